@@ -1,0 +1,86 @@
+"""Mass matrices and control-variate caches built from the Laplace approximation (private)."""
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ._validation import fail
+from .models import _kernels
+
+
+@dataclass
+class Preconditioner:
+    """Mass matrix M with its inverse and the lower Cholesky factor L of M^{-1} (L L^T = M^{-1})."""
+
+    kind: str
+    mass: np.ndarray
+    mass_inv: np.ndarray
+    mass_inv_chol: np.ndarray
+
+
+def make_preconditioner(mass_matrix, n_coef, laplace):
+    """Build the preconditioner from a setting: "identity", "laplace", "laplace-diagonal" or an
+    (n_coef, n_coef) symmetric positive definite array."""
+    if isinstance(mass_matrix, str):
+        if mass_matrix == "identity":
+            mass_inv = np.eye(n_coef)
+        elif mass_matrix == "laplace":
+            mass_inv = laplace.cov
+        elif mass_matrix == "laplace-diagonal":
+            mass_inv = np.diag(np.diag(laplace.cov))
+        else:
+            fail("mass_matrix", f"unknown value {mass_matrix!r}",
+                 'use "laplace", "laplace-diagonal", "identity" or an array')
+        kind = mass_matrix
+        mass_inv = np.array(mass_inv, dtype=float)
+        chol = np.linalg.cholesky(mass_inv)
+        inv_chol = np.linalg.inv(chol)
+        mass = inv_chol.T @ inv_chol
+    else:
+        kind = "given"
+        mass = np.array(mass_matrix, dtype=float)
+        if mass.shape != (n_coef, n_coef):
+            fail("mass_matrix", f"has shape {mass.shape}, expected ({n_coef}, {n_coef})",
+                 "give one row and column per coefficient")
+        if not np.all(np.isfinite(mass)) or not np.allclose(mass, mass.T):
+            fail("mass_matrix", "is not symmetric", "give a symmetric positive definite matrix")
+        try:
+            mchol = np.linalg.cholesky(mass)
+        except np.linalg.LinAlgError:
+            fail("mass_matrix", "is not positive definite",
+                 "give a symmetric positive definite matrix")
+        minv_chol = np.linalg.inv(mchol)
+        mass_inv = minv_chol.T @ minv_chol
+        chol = np.linalg.cholesky(0.5 * (mass_inv + mass_inv.T))
+    return Preconditioner(kind, np.ascontiguousarray(0.5 * (mass + mass.T)),
+                          np.ascontiguousarray(0.5 * (mass_inv + mass_inv.T)),
+                          np.ascontiguousarray(np.tril(chol)))
+
+
+@dataclass
+class ControlVariateCache:
+    """Per-row eta*, f'*, f''* and the sums g*, H* at the reference point beta* (O(N d^2) once)."""
+
+    order: int
+    beta_star: np.ndarray
+    eta_star: np.ndarray
+    f1_star: np.ndarray
+    f2_star: np.ndarray
+    g_star: np.ndarray
+    H_star: np.ndarray
+
+    @classmethod
+    def empty(cls, n_coef):
+        e = np.zeros(1)
+        return cls(0, np.zeros(n_coef), e, e, e, np.zeros(n_coef), np.zeros((n_coef, n_coef)))
+
+
+def control_variate_cache(model, beta_star, order):
+    """Cache the Taylor proxies of every l_i around beta_star (METHODS.md section 4)."""
+    n = model.n_rows
+    eta, f1, f2 = np.empty(n), np.empty(n), np.empty(n)
+    beta_star = np.ascontiguousarray(beta_star, dtype=float)
+    _kernels.full_eta_derivatives(*model.kernel_args, beta_star, eta, f1, f2)
+    _, g_star = model.log_likelihood_grad(beta_star)
+    H_star = model.log_likelihood_hessian(beta_star) if order >= 2 else np.zeros((model.n_coef,) * 2)
+    return ControlVariateCache(order, beta_star, eta, f1, f2, g_star, H_star)

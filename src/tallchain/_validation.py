@@ -1,0 +1,37 @@
+"""One message shape for every input check (private)."""
+
+import numpy as np
+
+
+class InputError(ValueError):
+    """Bad input: the message names the field, what was got, and the fix."""
+
+
+def fail(field, problem, fix):
+    """Raise InputError with the project's one-line message shape."""
+    raise InputError(f"{field}: {problem}; {fix}")
+
+
+def check_finite_matrix(name, a):
+    """Raise InputError naming the first row and column holding NaN or inf."""
+    if a.dtype.kind not in "fiu":
+        fail(name, f"has dtype {a.dtype}, not numeric", "give a float or integer array")
+    if a.dtype.kind == "f":
+        # Chunked so a memory-mapped X is never pulled into memory whole.
+        rows = a.shape[0]
+        step = max(1, 2**22 // max(1, a.size // max(rows, 1)))
+        for start in range(0, rows, step):
+            block = np.asarray(a[start:start + step])
+            bad = ~np.isfinite(block)
+            if bad.any():
+                r, *c = np.argwhere(bad)[0]
+                where = f"row {start + r}" + (f", column {c[0]}" if c else "")
+                fail(name, f"contains {block[(r, *c)]} in {where}", "remove or impute that value")
+
+
+def positive_int(name, value, minimum=1):
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)):
+        fail(name, f"must be an integer >= {minimum}, got {value!r}", f"give an integer >= {minimum}")
+    if value < minimum:
+        fail(name, f"must be >= {minimum}, got {value}", f"give an integer >= {minimum}")
+    return int(value)

@@ -1,0 +1,241 @@
+"""Numba kernels for generalised linear models (private).
+
+Every model is a GLM: with linear predictor eta_i = x_i . beta (+ intercept) (+ offset_i) the
+per-datum log-likelihood is l_i(beta) = f(eta_i; y_i), and its gradient is f'(eta_i) x_i.
+The family is a small integer code, so one compiled kernel serves all families.
+
+Kernels take plain arrays: ``X`` of shape (N, p) in float32 or float64 (never copied),
+``y`` and ``offset`` of shape (N,), ``intercept`` (0 or 1: coefficient 0 is the intercept),
+and an index batch ``idx`` (int64). They touch only the rows in ``idx``.
+
+The pure-NumPy references in ``_reference.py`` compute the same quantities and are the
+documentation of what is computed here.
+"""
+
+import math
+
+import numba
+import numpy as np
+
+LINEAR = 0
+LOGISTIC = 1
+POISSON = 2
+
+# exp() overflows past this; Poisson gradients saturate here instead of producing inf * 0 = NaN.
+_EXP_MAX = 700.0
+_HALF_LOG_2PI = 0.5 * math.log(2.0 * math.pi)
+
+jit = numba.njit(cache=True, nogil=True, fastmath=False, error_model="numpy")
+
+
+@jit
+def softplus(z):
+    """log(1 + e^z) without overflow for any finite z."""
+    if z > 0.0:
+        return z + math.log1p(math.exp(-z))
+    return math.log1p(math.exp(z))
+
+
+@jit
+def sigmoid(z):
+    """1 / (1 + e^-z) without overflow."""
+    if z >= 0.0:
+        return 1.0 / (1.0 + math.exp(-z))
+    e = math.exp(z)
+    return e / (1.0 + e)
+
+
+@jit
+def loglik_eta(family, eta, y, noise_sd, log_norm):
+    """f(eta; y): the per-datum log-likelihood as a function of the linear predictor.
+
+    ``log_norm`` is the datum's constant (-log(s sqrt(2 pi)) for linear, -log(y!) for Poisson).
+    """
+    if family == LINEAR:
+        r = (y - eta) / noise_sd
+        return -0.5 * r * r + log_norm
+    if family == LOGISTIC:
+        return y * eta - softplus(eta)
+    # Poisson, log link: y eta - e^eta - log y!  (-inf below float range for eta > ~709)
+    return y * eta - math.exp(eta) + log_norm
+
+
+@jit
+def dloglik_eta(family, eta, y, noise_sd):
+    """f'(eta; y)."""
+    if family == LINEAR:
+        return (y - eta) / (noise_sd * noise_sd)
+    if family == LOGISTIC:
+        return y - sigmoid(eta)
+    return y - math.exp(min(eta, _EXP_MAX))
+
+
+@jit
+def d2loglik_eta(family, eta, y, noise_sd):
+    """f''(eta; y) (METHODS.md section 4 table)."""
+    if family == LINEAR:
+        return -1.0 / (noise_sd * noise_sd)
+    if family == LOGISTIC:
+        s = sigmoid(eta)
+        return -s * (1.0 - s)
+    return -math.exp(min(eta, _EXP_MAX))
+
+
+@jit
+def loglik_diff_eta(family, eta_new, eta_old, y, noise_sd):
+    """f(eta_new) - f(eta_old), computed so that large |eta| does not cancel into NaN."""
+    de = eta_new - eta_old
+    if family == LINEAR:
+        # -(1/2s^2)[(y-e')^2 - (y-e)^2] = -(1/2s^2)(e'-e)(e'+e-2y)
+        return -0.5 * de * (eta_new + eta_old - 2.0 * y) / (noise_sd * noise_sd)
+    if family == LOGISTIC:
+        return y * de - (softplus(eta_new) - softplus(eta_old))
+    # y de - (e^{eta'} - e^{eta}) = y de - e^{eta} expm1(de)
+    if eta_old > _EXP_MAX or eta_new > _EXP_MAX:
+        return -math.inf if eta_new > eta_old else math.inf
+    return y * de - math.exp(eta_old) * math.expm1(de)
+
+
+@jit
+def linear_predictor(X, i, beta, intercept, offset):
+    """eta_i = [beta_0] + sum_j X[i, j] beta_{j + intercept} + offset_i."""
+    p = X.shape[1]
+    acc = beta[0] if intercept else 0.0
+    for j in range(p):
+        acc += X[i, j] * beta[j + intercept]
+    return acc + offset[i]
+
+
+@jit
+def log_norm_const(family, y_i, noise_sd):
+    if family == LINEAR:
+        return -math.log(noise_sd) - _HALF_LOG_2PI
+    if family == POISSON:
+        return -math.lgamma(y_i + 1.0)
+    return 0.0
+
+
+# ---------------------------------------------------------------------------------------------
+# Batch kernels (rows in idx only)
+# ---------------------------------------------------------------------------------------------
+
+
+@jit
+def batch_loglik(family, X, y, offset, noise_sd, intercept, beta, idx, out):
+    """out[k] = l_{idx[k]}(beta)."""
+    for k in range(idx.shape[0]):
+        i = idx[k]
+        eta = linear_predictor(X, i, beta, intercept, offset)
+        out[k] = loglik_eta(family, eta, y[i], noise_sd, log_norm_const(family, y[i], noise_sd))
+
+
+@jit
+def batch_loglik_diff(family, X, y, offset, noise_sd, intercept, beta_new, beta_old, idx, out):
+    """out[k] = l_i(beta_new) - l_i(beta_old) for i = idx[k]."""
+    for k in range(idx.shape[0]):
+        i = idx[k]
+        e1 = linear_predictor(X, i, beta_new, intercept, offset)
+        e0 = linear_predictor(X, i, beta_old, intercept, offset)
+        out[k] = loglik_diff_eta(family, e1, e0, y[i], noise_sd)
+
+
+@jit
+def batch_grad_sum(family, X, y, offset, noise_sd, intercept, beta, idx, out):
+    """out = sum_{i in idx} grad l_i(beta) (out is overwritten)."""
+    p = X.shape[1]
+    out[:] = 0.0
+    for k in range(idx.shape[0]):
+        i = idx[k]
+        r = dloglik_eta(family, linear_predictor(X, i, beta, intercept, offset), y[i], noise_sd)
+        if intercept:
+            out[0] += r
+        for j in range(p):
+            out[j + intercept] += r * X[i, j]
+
+
+@jit
+def batch_grad_rows(family, X, y, offset, noise_sd, intercept, beta, idx, out):
+    """out[k, :] = grad l_{idx[k]}(beta): per-datum gradients (for tests and diagnostics)."""
+    p = X.shape[1]
+    for k in range(idx.shape[0]):
+        i = idx[k]
+        r = dloglik_eta(family, linear_predictor(X, i, beta, intercept, offset), y[i], noise_sd)
+        if intercept:
+            out[k, 0] = r
+        for j in range(p):
+            out[k, j + intercept] = r * X[i, j]
+
+
+# ---------------------------------------------------------------------------------------------
+# Full-data kernels (for the exact samplers and mode finding)
+# ---------------------------------------------------------------------------------------------
+
+
+@jit
+def full_loglik(family, X, y, offset, noise_sd, intercept, beta):
+    """sum_i l_i(beta)."""
+    acc = 0.0
+    for i in range(X.shape[0]):
+        eta = linear_predictor(X, i, beta, intercept, offset)
+        acc += loglik_eta(family, eta, y[i], noise_sd, log_norm_const(family, y[i], noise_sd))
+    return acc
+
+
+@jit
+def full_loglik_grad(family, X, y, offset, noise_sd, intercept, beta, grad):
+    """sum_i l_i(beta), with sum_i grad l_i(beta) written into grad; one pass over the rows."""
+    p = X.shape[1]
+    grad[:] = 0.0
+    acc = 0.0
+    for i in range(X.shape[0]):
+        eta = linear_predictor(X, i, beta, intercept, offset)
+        acc += loglik_eta(family, eta, y[i], noise_sd, log_norm_const(family, y[i], noise_sd))
+        r = dloglik_eta(family, eta, y[i], noise_sd)
+        if intercept:
+            grad[0] += r
+        for j in range(p):
+            grad[j + intercept] += r * X[i, j]
+    return acc
+
+
+@jit
+def full_loglik_diff(family, X, y, offset, noise_sd, intercept, beta_new, beta_old):
+    """sum_i [l_i(beta_new) - l_i(beta_old)], stable where each sum alone would lose digits."""
+    acc = 0.0
+    for i in range(X.shape[0]):
+        e1 = linear_predictor(X, i, beta_new, intercept, offset)
+        e0 = linear_predictor(X, i, beta_old, intercept, offset)
+        acc += loglik_diff_eta(family, e1, e0, y[i], noise_sd)
+    return acc
+
+
+@jit
+def full_hessian(family, X, y, offset, noise_sd, intercept, beta, hess):
+    """hess = sum_i f''(eta_i) x_i x_i^T (the log-likelihood Hessian; overwritten)."""
+    p = X.shape[1]
+    d = p + intercept
+    hess[:, :] = 0.0
+    xi = np.empty(d)
+    for i in range(X.shape[0]):
+        w = d2loglik_eta(family, linear_predictor(X, i, beta, intercept, offset), y[i], noise_sd)
+        if intercept:
+            xi[0] = 1.0
+        for j in range(p):
+            xi[j + intercept] = X[i, j]
+        for a in range(d):
+            wa = w * xi[a]
+            for b in range(a + 1):
+                hess[a, b] += wa * xi[b]
+    for a in range(d):
+        for b in range(a):
+            hess[b, a] = hess[a, b]
+
+
+@jit
+def full_eta_derivatives(family, X, y, offset, noise_sd, intercept, beta, eta, f1, f2):
+    """Cache eta_i, f'(eta_i), f''(eta_i) at beta for every row (control-variate proxies)."""
+    for i in range(X.shape[0]):
+        e = linear_predictor(X, i, beta, intercept, offset)
+        eta[i] = e
+        f1[i] = dloglik_eta(family, e, y[i], noise_sd)
+        f2[i] = d2loglik_eta(family, e, y[i], noise_sd)

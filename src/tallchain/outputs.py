@@ -1,0 +1,92 @@
+"""Output files of a run: posterior.nc, summary.csv, run.json (written atomically)."""
+
+import json
+import math
+import os
+from pathlib import Path
+
+import numpy as np
+
+from .diagnostics import summarize
+
+
+def atomic_write(path, write):
+    """Call ``write(tmp_path)`` and then rename onto ``path``: a crash never leaves a torn file."""
+    path = Path(path)
+    tmp = path.with_name(f".{path.name}.tmp-{os.getpid()}")
+    try:
+        write(tmp)
+        os.replace(tmp, path)
+    finally:
+        if tmp.exists():
+            tmp.unlink()
+
+
+def write_json(path, obj):
+    def _write(tmp):
+        with open(tmp, "w") as fh:
+            json.dump(_jsonable(obj), fh, indent=2, allow_nan=False)
+            fh.write("\n")
+
+    atomic_write(path, _write)
+
+
+def _jsonable(obj):
+    if isinstance(obj, dict):
+        return {str(k): _jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_jsonable(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return _jsonable(obj.tolist())
+    if isinstance(obj, (np.integer,)):
+        return int(obj)
+    if isinstance(obj, (float, np.floating)):
+        f = float(obj)
+        return f if math.isfinite(f) else None
+    if isinstance(obj, (np.bool_,)):
+        return bool(obj)
+    return obj
+
+
+def run_record(result, summary, wall_seconds=None):
+    """The run.json content (keys of the interface contract plus the settings after tuning)."""
+    return {
+        "settings": result.settings,
+        "coef_names": result.coef_names,
+        "n_rows": result.n_rows,
+        "setup_seconds": result.setup_seconds,
+        "sampling_seconds": result.sampling_seconds,
+        "wall_seconds": wall_seconds if wall_seconds is not None
+        else result.setup_seconds + result.sampling_seconds,
+        "data_evaluations": result.data_evaluations,
+        "data_evaluations_per_draw": result.data_evaluations
+        / max(1, result.n_chains * (result.settings["warmup"] + result.completed_draws)),
+        "acceptance_rate": summary.run["acceptance_rate"],
+        "log_ratio_sd_mean": summary.run["log_ratio_sd_mean"],
+        "ess_bulk_min": summary.run["ess_bulk_min"],
+        "ess_per_second": summary.run["ess_per_second"],
+        "ess_per_data_pass": summary.run["ess_per_data_pass"],
+        "data_passes": summary.run["data_passes"],
+        "nonfinite_count": result.nonfinite_count,
+        "cd_fallback_count": result.cd_fallback_count,
+        "completed_draws": result.completed_draws,
+        "warnings": list(result.warnings) + list(summary.warnings),
+    }
+
+
+def save_result(result, directory, *, wall_seconds=None, extra=None):
+    """Write posterior.nc, summary.csv and run.json into ``directory`` (created if needed).
+
+    Returns the Summary, so a caller can report it without recomputing.
+    """
+    out = Path(directory)
+    out.mkdir(parents=True, exist_ok=True)
+    summary = summarize(result, warn=False)
+    tree = result.to_arviz()
+    atomic_write(out / "posterior.nc", lambda tmp: tree.to_netcdf(tmp, engine="h5netcdf"))
+    atomic_write(out / "summary.csv", summary.to_csv)
+    record = run_record(result, summary, wall_seconds)
+    if extra:
+        record.update(extra)
+    write_json(out / "run.json", record)
+    return summary

@@ -1,0 +1,395 @@
+"""The public entry point `sample`: validation, set-up, warmup, many chains."""
+
+import math
+import os
+import threading
+import time
+import warnings
+from concurrent.futures import ThreadPoolExecutor
+
+import numpy as np
+
+from . import _chain
+from ._methods import METHODS, NOISE_VARIANCE
+from ._preconditioning import ControlVariateCache, control_variate_cache, make_preconditioner
+from ._validation import fail, positive_int
+from .mode import find_mode
+from .result import SampleResult
+
+# Default target sd of the minibatch log-ratio for batch_size="auto"; see README ("choosing
+# the batch size") for the measurement behind it.
+DEFAULT_TARGET_LOG_RATIO_SD = 1.0
+DEFAULT_BATCH_FLOOR = 32
+DEFAULT_BATCH_CEILING = 100_000
+_PILOT_BATCH = 64
+_CHUNK = 256
+
+
+class NoisyLogRatioWarning(UserWarning):
+    """The minibatch log-ratio is too noisy or too far from Gaussian for the penalty method."""
+
+
+def _resolve_seed(seed, n_children):
+    if isinstance(seed, np.random.Generator):
+        return seed.spawn(n_children)
+    if isinstance(seed, np.random.SeedSequence):
+        ss = seed
+    else:
+        if seed is not None and (isinstance(seed, bool) or not isinstance(seed, (int, np.integer))
+                                 or seed < 0):
+            fail("seed", f"must be a non-negative integer, got {seed!r}",
+                 "give an integer such as 1, or a numpy Generator")
+        ss = np.random.SeedSequence(seed)
+    return [np.random.Generator(np.random.PCG64(s)) for s in ss.spawn(n_children)]
+
+
+def _check_settings(model, method, step_size, batch_size, chains, draws, warmup, noise_variance,
+                    control_variates, cv_order, target_log_ratio_sd):
+    if method not in METHODS:
+        from difflib import get_close_matches
+
+        near = get_close_matches(str(method), METHODS, n=1)
+        hint = f'did you mean "{near[0]}"? ' if near else ""
+        fail("method", f"unknown method {method!r}", f"{hint}choose one of {', '.join(METHODS)}")
+    spec = METHODS[method]
+    if isinstance(step_size, str):
+        if step_size != "auto":
+            fail("step_size", f"must be a number > 0 or \"auto\", got {step_size!r}",
+                 'give a positive number or "auto"')
+        if not spec.adjusted:
+            fail("step_size", f'"auto" is not available for {method} (it has no accept step to '
+                 "tune against)", "give a number, e.g. the step size tuned by penalty-mala")
+    elif isinstance(step_size, bool) or not isinstance(step_size, (int, float, np.floating)) \
+            or not math.isfinite(step_size) or step_size <= 0:
+        fail("step_size", f"must be > 0, got {step_size!r}", 'give a positive number or "auto"')
+    chains = positive_int("chains", chains)
+    draws = positive_int("draws", draws)
+    warmup = positive_int("warmup", warmup, minimum=0)
+    if step_size == "auto" and warmup < 20:
+        fail("warmup", f'is {warmup}, too short to tune step_size="auto"',
+             "give warmup >= 20 (a few hundred is usual) or a numeric step_size")
+    if spec.minibatch:
+        if isinstance(batch_size, str):
+            if batch_size != "auto":
+                fail("batch_size", f"must be an integer or \"auto\", got {batch_size!r}",
+                     'give an integer in [2, N] or "auto"')
+            if warmup < 40:
+                fail("warmup", f'is {warmup}, too short to choose batch_size="auto"',
+                     "give warmup >= 40 or an integer batch_size")
+        else:
+            if isinstance(batch_size, bool) or not isinstance(batch_size, (int, np.integer)):
+                fail("batch_size", f"must be an integer, got {batch_size!r}",
+                     'give an integer in [2, N] or "auto"')
+            if not 2 <= batch_size <= model.n_rows:
+                fail("batch_size", f"must be in [2, {model.n_rows}] (N), got {batch_size}",
+                     "give at least 2 rows and at most the number of rows")
+        if noise_variance not in NOISE_VARIANCE:
+            fail("noise_variance", f"unknown value {noise_variance!r}",
+                 f"choose one of {', '.join(NOISE_VARIANCE)}")
+    if cv_order not in (1, 2):
+        fail("cv_order", f"must be 1 or 2, got {cv_order!r}",
+             "use 2 (second-order Taylor proxies) or 1 (first-order)")
+    if not (isinstance(target_log_ratio_sd, (int, float)) and target_log_ratio_sd > 0):
+        fail("target_log_ratio_sd", f"must be > 0, got {target_log_ratio_sd!r}",
+             "give a positive number such as 1.0")
+    cv = bool(spec.minibatch if control_variates is None else control_variates)
+    if control_variates and not spec.minibatch:
+        warnings.warn(f"control_variates is ignored by the full-data method {method}",
+                      UserWarning, stacklevel=3)
+        cv = False
+    return spec, chains, draws, warmup, cv
+
+
+def _initial_points(init, model, laplace, n_chains, rng):
+    d = model.n_coef
+    if isinstance(init, str):
+        if init == "laplace":
+            # Overdispersed: twice the Laplace standard deviation (common practice for
+            # starting points that let R-hat detect non-convergence).
+            chol = np.linalg.cholesky(laplace.cov)
+            return laplace.mode + 2.0 * rng.standard_normal((n_chains, d)) @ chol.T
+        if init == "mode":
+            return np.tile(laplace.mode, (n_chains, 1))
+        if init == "prior-mean":
+            return np.tile(model.prior_mean, (n_chains, 1))
+        fail("init", f"unknown value {init!r}",
+             'use "laplace", "mode", "prior-mean" or an array of starting points')
+    start = np.asarray(init, dtype=float)
+    if start.shape == (d,):
+        start = np.tile(start, (n_chains, 1))
+    if start.shape != (n_chains, d) or not np.all(np.isfinite(start)):
+        fail("init", f"has shape {start.shape}", f"give ({d},) or ({n_chains}, {d}) finite values")
+    return start
+
+
+def _default_step(spec, pre, laplace, n_coef):
+    # Optimal scalings (Roberts, Gelman & Gilks 1997; Roberts & Rosenthal 1998), in units of the
+    # mass matrix: proposal variance 2.38^2/d for RWM, 1.65^2 d^(-1/3) for MALA.
+    h = 2.38**2 / n_coef if spec.proposal == _chain.PROPOSAL_RW else 1.65**2 * n_coef ** (-1 / 3)
+    if pre.kind == "identity" and laplace is not None:
+        h *= float(np.mean(np.diag(laplace.cov)))
+    return h
+
+
+class _ChainState:
+    """Everything one chain carries between kernel calls (also what a checkpoint stores)."""
+
+    def __init__(self, start, n_coef, log_h, adapt_mu, rng):
+        self.beta = np.array(start, dtype=float)
+        self.cur_grad = np.zeros(n_coef)
+        self.cur_loglik = np.zeros(1)
+        self.adapt = np.zeros(_chain.N_ADAPT)
+        self.adapt[_chain.AD_LOG_H] = log_h
+        self.adapt[_chain.AD_MU] = adapt_mu
+        self.pooled = np.zeros(2)
+        self.counters = np.zeros(_chain.N_COUNTERS, dtype=np.int64)
+        self.rng = rng
+        self.iteration = 0
+
+
+def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
+           control_variates=None, cv_order=2, chains=4, draws=2000, warmup=500, seed=None,
+           mass_matrix="laplace", init="laplace", noise_variance="same-batch",
+           target_log_ratio_sd=DEFAULT_TARGET_LOG_RATIO_SD, batch_floor=DEFAULT_BATCH_FLOOR,
+           batch_ceiling=DEFAULT_BATCH_CEILING, progress=False, parallel=True):
+    """Draw from the posterior of a regression model.
+
+    Parameters
+    ----------
+    model : LinearRegression, LogisticRegression or PoissonRegression
+    method : {"penalty-mala", "penalty-rwm", "mala", "rwm", "naive-mh", "sgld"}, default="penalty-mala"
+        ``mala`` and ``rwm`` use every row at every step (exact MH). ``penalty-*`` test on a
+        minibatch with the penalty correction. ``naive-mh`` and ``sgld`` are biased baselines.
+    step_size : float or "auto", default="auto"
+        Step h of the proposal (variance h M^{-1}). "auto": dual averaging during warmup toward
+        acceptance 0.574 (Langevin) or 0.234 (random walk), then frozen.
+    batch_size : int or "auto", default="auto"
+        Rows per minibatch (minibatch methods). "auto": chosen during warmup so that the
+        log-ratio sd sits near ``target_log_ratio_sd``, within [batch_floor, batch_ceiling].
+    control_variates : bool, optional
+        Taylor proxies around the mode for the log-ratio and the gradient. Default: on for
+        minibatch methods.
+    cv_order : {2, 1}, default=2
+        Order of the Taylor proxies.
+    chains, draws, warmup : int, default=4, 2000, 500
+    seed : int, numpy.random.Generator or SeedSequence, optional
+        The same seed gives bitwise-identical draws. Chains get independent streams via
+        ``SeedSequence.spawn``.
+    mass_matrix : "laplace", "laplace-diagonal", "identity" or array, default="laplace"
+        The preconditioner M; "laplace" uses the negative Hessian of the log posterior at the mode.
+    init : "laplace", "mode", "prior-mean" or array, default="laplace"
+        Starting points; "laplace" draws overdispersed points from the Laplace approximation.
+    noise_variance : {"same-batch", "independent-batch", "pooled"}, default="same-batch"
+        Where the variance of the minibatch log-ratio comes from: the batch of the estimate, an
+        independent batch of the same size, or a pooled mean over warmup, then frozen.
+    target_log_ratio_sd, batch_floor, batch_ceiling : float, int, int
+        Control of ``batch_size="auto"``.
+    progress : bool, default=False
+        Show a progress bar (only on a terminal).
+    parallel : bool, default=True
+        Run chains in threads (the kernel releases the GIL); results do not depend on it.
+
+    Returns
+    -------
+    SampleResult
+
+    References
+    ----------
+    Ceperley & Dewing (1999), J. Chem. Phys. 110, 9812 (penalty method).
+    Roberts & Tweedie (1996), Bernoulli 2, 341 (Langevin proposals).
+    Hoffman & Gelman (2014), JMLR 15, 1593 (dual averaging).
+    Welling & Teh (2011), ICML (SGLD).
+    """
+    t_setup = time.perf_counter()
+    spec, chains, draws, warmup, cv = _check_settings(
+        model, method, step_size, batch_size, chains, draws, warmup, noise_variance,
+        control_variates, cv_order, target_log_ratio_sd)
+    rngs = _resolve_seed(seed, chains + 1)
+    need_laplace = (cv or (isinstance(mass_matrix, str) and mass_matrix.startswith("laplace"))
+                    or (isinstance(init, str) and init in ("laplace", "mode"))
+                    or step_size == "auto")
+    laplace = find_mode(model) if need_laplace else None
+    pre = make_preconditioner(mass_matrix, model.n_coef, laplace)
+    cache = (control_variate_cache(model, laplace.mode, cv_order) if cv
+             else ControlVariateCache.empty(model.n_coef))
+    starts = _initial_points(init, model, laplace, chains, rngs[0])
+    setup_seconds = time.perf_counter() - t_setup
+
+    h0 = _default_step(spec, pre, laplace, model.n_coef) if step_size == "auto" else float(step_size)
+    adapt_step = step_size == "auto"
+    states = [_ChainState(starts[c], model.n_coef, math.log(h0), math.log(10.0 * h0), rngs[c + 1])
+              for c in range(chains)]
+    needs_full_state = spec.adjusted and spec.ratio == _chain.FULL
+    for st in states if needs_full_state else ():
+        _chain.init_full_state(*model.kernel_args, model.prior_mean, model.prior_prec, st.beta,
+                               st.cur_grad, st.cur_loglik)
+    n_total = warmup + draws
+    all_draws = np.zeros((chains, n_total, model.n_coef))
+    all_stats = np.full((chains, n_total, _chain.N_STATS), np.nan)
+    var_code = NOISE_VARIANCE.get(noise_variance, _chain.VAR_SAME)
+    runner = _Runner(model, spec, var_code, cache if cv else ControlVariateCache.empty(model.n_coef),
+                     pre, warmup, adapt_step, all_draws, all_stats, progress, parallel)
+
+    t_sample = time.perf_counter()
+    chosen_batch = _resolve_batch(spec, batch_size, model, runner, states, warmup,
+                                  target_log_ratio_sd, batch_floor, batch_ceiling)
+    runner.run(states, n_total, chosen_batch)
+    sampling_seconds = time.perf_counter() - t_sample
+
+    done = min(st.iteration for st in states)
+    n_done = max(0, done - warmup)
+    names = _chain.STAT_NAMES
+    stats = {k: all_stats[:, warmup:warmup + n_done, j] for j, k in enumerate(names)}
+    warm = {k: all_stats[:, :min(done, warmup), j] for j, k in enumerate(names)}
+    for key in ("accepted", "nonfinite"):
+        stats[key] = stats[key].astype(bool)
+        warm[key] = warm[key].astype(bool)
+    counters = np.sum([st.counters for st in states], axis=0)
+    settings = {
+        "method": method,
+        "step_size": [float(math.exp(st.adapt[_chain.AD_LOG_H])) for st in states],
+        "step_size_setting": step_size,
+        "batch_size": int(chosen_batch) if spec.minibatch else None,
+        "batch_size_setting": batch_size if spec.minibatch else None,
+        "control_variates": cv,
+        "cv_order": cv_order if cv else None,
+        "noise_variance": noise_variance if spec.minibatch and spec.adjusted else None,
+        "target_accept": spec.target_accept if adapt_step else None,
+        "target_log_ratio_sd": target_log_ratio_sd if batch_size == "auto" and spec.minibatch else None,
+        "chains": chains,
+        "draws": draws,
+        "warmup": warmup,
+        "seed": seed if isinstance(seed, (int, np.integer)) or seed is None else repr(seed),
+        "mass_matrix": pre.kind,
+        "init": init if isinstance(init, str) else "given",
+    }
+    result = SampleResult(
+        draws=all_draws[:, warmup:warmup + n_done].copy(), stats=stats, warmup_stats=warm,
+        coef_names=list(model.coef_names), method=method, settings=settings,
+        n_rows=model.n_rows, data_evaluations=int(counters[_chain.CT_DATA_EVALS]),
+        nonfinite_count=int(counters[_chain.CT_NONFINITE]),
+        cd_fallback_count=int(counters[_chain.CT_CD_FALLBACK]),
+        setup_seconds=setup_seconds, sampling_seconds=sampling_seconds,
+        completed_draws=n_done, laplace_mode=None if laplace is None else laplace.mode)
+    _noise_advice(result, spec)
+    return result
+
+
+class _Runner:
+    """Calls the kernel chunk by chunk for every chain, in threads."""
+
+    def __init__(self, model, spec, var_code, cache, pre, warmup, adapt_step, all_draws,
+                 all_stats, progress, parallel):
+        self.model, self.spec, self.var_code, self.cache, self.pre = model, spec, var_code, cache, pre
+        self.warmup, self.adapt_step = warmup, adapt_step
+        self.all_draws, self.all_stats = all_draws, all_stats
+        self.progress, self.parallel = progress, parallel
+        self.stop = threading.Event()
+
+    def _advance(self, st, chain, until, n_batch):
+        m, s, c, p = self.model, self.spec, self.cache, self.pre
+        while st.iteration < until and not self.stop.is_set():
+            n = min(_CHUNK, until - st.iteration)
+            i0 = st.iteration
+            _chain.run_chain(
+                *m.kernel_args, m.prior_mean, m.prior_prec,
+                s.proposal, s.gradient, s.ratio, s.rule, self.var_code, c.order,
+                c.beta_star, c.eta_star, c.f1_star, c.f2_star, c.g_star, c.H_star,
+                p.mass, p.mass_inv, p.mass_inv_chol, int(n_batch), st.rng,
+                st.beta, st.cur_grad, st.cur_loglik, st.adapt, st.pooled, st.counters,
+                i0, n, self.warmup, self.adapt_step, s.target_accept,
+                self.all_draws[chain, i0:i0 + n], self.all_stats[chain, i0:i0 + n])
+            st.iteration += n
+            if self._bar is not None:
+                self._bar.update(n)
+
+    def run(self, states, until, n_batch):
+        total = sum(max(0, until - st.iteration) for st in states)
+        self._bar = None
+        if self.progress and total and os.isatty(2):
+            from tqdm import tqdm
+
+            self._bar = tqdm(total=total, unit="it", desc=self.spec.name, leave=False)
+        try:
+            if self.parallel and len(states) > 1:
+                workers = min(len(states), os.cpu_count() or 1)
+                with ThreadPoolExecutor(max_workers=workers) as pool:
+                    futures = [pool.submit(self._advance, st, c, until, n_batch)
+                               for c, st in enumerate(states)]
+                    try:
+                        for f in futures:
+                            f.result()
+                    except BaseException:
+                        self.stop.set()
+                        raise
+            else:
+                for c, st in enumerate(states):
+                    self._advance(st, c, until, n_batch)
+        finally:
+            if self._bar is not None:
+                self._bar.close()
+
+
+def _resolve_batch(spec, batch_size, model, runner, states, warmup, target_sd, floor, ceiling):
+    """Return the batch size; for "auto", run the first half of warmup in two pilot phases and
+    set n so that the log-ratio variance N^2 (1 - n/N) S^2 / n meets target_sd^2."""
+    n_rows = model.n_rows
+    if not spec.minibatch:
+        return 1
+    if batch_size != "auto":
+        return int(batch_size)
+    floor = min(max(2, int(floor)), n_rows)
+    ceiling = max(floor, min(int(ceiling), n_rows))
+    n = int(np.clip(_PILOT_BATCH, floor, ceiling))
+    if spec.ratio != _chain.BATCH:
+        return n  # SGLD: no log-ratio to control; the floor-clipped pilot size is used
+    phase = warmup // 4
+    for k in (1, 2):
+        start = states[0].iteration
+        runner.run(states, k * phase, n)
+        sd = runner.all_stats[:, start + (k * phase - start) // 2:k * phase, _chain.ST_LOG_RATIO_SD]
+        var = float(np.nanmean(sd**2)) if np.isfinite(sd).any() else 0.0
+        # Solve N^2 (1 - n/N) S^2 / n = target^2 for n, with S^2 from the pilot variance.
+        s2 = var * n / (n_rows**2 * (1.0 - n / n_rows)) if n < n_rows else 0.0
+        need = n_rows**2 * s2 / (target_sd**2 + n_rows * s2) if s2 > 0 else floor
+        n = int(np.clip(math.ceil(need), floor, ceiling))
+        for st in states:
+            _restart_step_adaptation(st)
+    return n
+
+
+def _restart_step_adaptation(st):
+    """Restart dual averaging from the current averaged step (the noise level just changed)."""
+    if st.adapt[_chain.AD_COUNT] > 0:
+        log_h = st.adapt[_chain.AD_LOG_HBAR]
+        st.adapt[:] = 0.0
+        st.adapt[_chain.AD_LOG_H] = log_h
+        st.adapt[_chain.AD_MU] = log_h + math.log(10.0)
+
+
+def _noise_advice(result, spec):
+    if not (spec.minibatch and spec.adjusted) or result.n_draws == 0:
+        return
+    sd = result.stats["log_ratio_sd"]
+    med = float(np.nanmedian(sd))
+    n = result.settings["batch_size"]
+    msgs = []
+    if med > 2.0:
+        msgs.append(f"the minibatch log-ratio sd is {med:.2f} (median) > 2: acceptance drops as "
+                    "exp(-sigma^2/2) and the Gaussian noise assumption is strained; use a larger "
+                    "batch_size or control_variates=True")
+    skew = float(np.nanmedian(np.abs(result.stats["log_ratio_skew"])))
+    kurt = float(np.nanmedian(result.stats["log_ratio_kurtosis"]))
+    # Error of the penalty's Gaussian assumption: sigma^3 g1/(6 sqrt(n)) + sigma^4 g2/(24 n)
+    # (METHODS.md section 2); flag when it could move log acceptance by more than 0.05.
+    err = med**3 * skew / (6 * math.sqrt(n)) + med**4 * abs(kurt) / (24 * n)
+    if err > 0.05:
+        msgs.append(f"the batch log-ratio terms are far from Gaussian (median |skewness| "
+                    f"{skew:.2f}, excess kurtosis {kurt:.2f}; error term {err:.3f}); the penalty "
+                    "correction may be biased: use a larger batch_size or control_variates=True")
+    if result.cd_fallback_count:
+        msgs.append(f"{result.cd_fallback_count} iterations were beyond the Ceperley-Dewing "
+                    "validity bound and used the plug-in correction; use a larger batch_size")
+    for m in msgs:
+        result.warnings.append(m)
+        warnings.warn(m, NoisyLogRatioWarning, stacklevel=3)
