@@ -64,7 +64,27 @@ def ceperley_dewing_penalty(chi2, n):
 
 
 @jit
-def log_accept_probability(log_ratio, penalty):
-    """log min(1, exp(log_ratio - penalty))."""
-    z = log_ratio - penalty
+def noise_penalty(rule, var, n_batch, var_is_known):
+    """The amount subtracted from the log acceptance ratio, and whether the Ceperley-Dewing
+    correction fell back to the plug-in sigma^2/2 (beyond its validity bound).
+
+    EXACT and PLUGIN subtract nothing; PENALTY subtracts var/2; PENALTY_CD subtracts u_B(var, n)
+    unless the variance is treated as known (a pooled estimate), when it subtracts var/2.
+    """
+    if rule == PENALTY or (rule == PENALTY_CD and var_is_known):
+        return 0.5 * var, False
+    if rule == PENALTY_CD:
+        u = ceperley_dewing_penalty(var, n_batch)
+        if math.isnan(u):
+            return 0.5 * var, True
+        return u, False
+    return 0.0, False
+
+
+@jit
+def log_accept_probability(log_ratio, proposal_term, penalty):
+    """log min(1, exp(log_ratio + c - penalty)); -inf when that is not a finite number."""
+    z = log_ratio + proposal_term - penalty
+    if not math.isfinite(z):
+        return -math.inf
     return z if z < 0.0 else 0.0

@@ -27,14 +27,7 @@ import math
 
 import numpy as np
 
-from ._acceptance_kernels import (
-    EXACT,
-    NONE,
-    PENALTY,
-    PENALTY_CD,
-    PLUGIN,
-    ceperley_dewing_penalty,
-)
+from ._acceptance_kernels import NONE, log_accept_probability, noise_penalty
 from ._batch_kernels import draw_batch
 from ._estimator_kernels import (
     add_prior_grad,
@@ -49,6 +42,9 @@ from .models._kernels import full_loglik, full_loglik_grad, jit
 
 PROPOSAL_RW = 0
 PROPOSAL_LANGEVIN = 1
+# Langevin proposal whose MH ratio omits the proposal-density term c: a deliberately wrong
+# variant, kept only so the statistical tests can show that they detect it (power checks).
+PROPOSAL_LANGEVIN_NO_C = 2
 FULL = 0
 BATCH = 1
 VAR_SAME = 0
@@ -177,7 +173,8 @@ def run_chain(family, X, y, offset, noise_sd, intercept, prior_mean, prior_prec,
         h = math.exp(adapt[AD_LOG_H])
 
         # --- gradient at the current state -------------------------------------------------
-        if proposal == PROPOSAL_LANGEVIN:
+        langevin = proposal != PROPOSAL_RW
+        if langevin:
             if grad_mode == FULL:
                 grad[:] = cur_grad
             else:
@@ -196,7 +193,7 @@ def run_chain(family, X, y, offset, noise_sd, intercept, prior_mean, prior_prec,
             for b in range(a + 1):
                 s += mass_inv_chol[a, b] * xi[b]
             prop[a] = beta[a] + sqrt_h * s
-            if proposal == PROPOSAL_LANGEVIN:
+            if langevin:
                 drift = 0.0
                 for b in range(d):
                     drift += mass_inv[a, b] * grad[b]
@@ -215,7 +212,7 @@ def run_chain(family, X, y, offset, noise_sd, intercept, prior_mean, prior_prec,
         else:
             # --- proposal-density term c = log q(beta | beta') - log q(beta' | beta) ---------
             c = 0.0
-            if proposal == PROPOSAL_LANGEVIN:
+            if langevin:
                 if grad_mode == FULL:
                     loglik_prop = full_loglik_grad(family, X, y, offset, noise_sd, intercept,
                                                    prop, grad_prop)
@@ -226,14 +223,15 @@ def run_chain(family, X, y, offset, noise_sd, intercept, prior_mean, prior_prec,
                                     prior_prec, cv_order, beta_star, eta_star, f1_star,
                                     f2_star, g_star, H_star, prop, idx_grad, tmp, grad_prop)
                     counters[CT_DATA_EVALS] += n_batch
-                c = (_langevin_log_density(beta, prop, grad_prop, h, mass, mass_inv, z)
-                     - _langevin_log_density(prop, beta, grad, h, mass, mass_inv, z))
+                if proposal == PROPOSAL_LANGEVIN:
+                    c = (_langevin_log_density(beta, prop, grad_prop, h, mass, mass_inv, z)
+                         - _langevin_log_density(prop, beta, grad, h, mass, mass_inv, z))
 
             # --- log target ratio ------------------------------------------------------------
             prior_diff = prior_logpdf_diff(prior_mean, prior_prec, prop, beta)
             penalty = 0.0
             if ratio_mode == FULL:
-                if not (proposal == PROPOSAL_LANGEVIN and grad_mode == FULL):
+                if not (langevin and grad_mode == FULL):
                     loglik_prop = full_loglik(family, X, y, offset, noise_sd, intercept, prop)
                     counters[CT_DATA_EVALS] += n_rows
                 log_ratio = prior_diff + loglik_prop - cur_loglik[0]
@@ -256,38 +254,30 @@ def run_chain(family, X, y, offset, noise_sd, intercept, prior_mean, prior_prec,
                     counters[CT_DATA_EVALS] += n_batch
                     _, var, _, _ = scaled_sum_and_variance(diffs, n_rows)
                 elif var_mode == VAR_POOLED:
-                    if in_warmup and math.isfinite(var):
+                    # Pool over the second half of warmup only, when step and batch have settled.
+                    if in_warmup and 2 * it >= n_warmup and math.isfinite(var):
                         pooled[0] += var
                         pooled[1] += 1.0
                     if pooled[1] > 0.0:
                         var = pooled[0] / pooled[1]
                 log_ratio_sd = math.sqrt(var) if var >= 0.0 else math.nan
-                if rule == PENALTY or (rule == PENALTY_CD and var_mode == VAR_POOLED):
-                    penalty = 0.5 * var
-                elif rule == PENALTY_CD:
-                    penalty = ceperley_dewing_penalty(var, n_batch)
-                    if math.isnan(penalty):
-                        # Beyond the validity bound the estimator would be a negative
-                        # "probability": fall back to the plug-in sigma^2/2 and count it.
-                        penalty = 0.5 * var
-                        counters[CT_CD_FALLBACK] += 1
+                penalty, fell_back = noise_penalty(rule, var, n_batch, var_mode == VAR_POOLED)
+                if fell_back:
+                    counters[CT_CD_FALLBACK] += 1
 
             # --- accept or reject --------------------------------------------------------------
-            log_alpha = log_ratio + c - penalty
-            if not math.isfinite(log_alpha):
+            log_alpha = log_accept_probability(log_ratio, c, penalty)
+            if not math.isfinite(log_ratio + c - penalty):
                 nonfinite = True
                 counters[CT_NONFINITE] += 1
-                log_alpha = -math.inf
-            elif log_alpha > 0.0:
-                log_alpha = 0.0
-            if not nonfinite:
+            else:
                 accepted = math.log(rng.random()) < log_alpha
 
         if accepted:
             beta[:] = prop
             if grad_mode == FULL and rule != NONE:
                 cur_loglik[0] = loglik_prop
-                if proposal == PROPOSAL_LANGEVIN:
+                if langevin:
                     cur_grad[:] = grad_prop
 
         # --- step-size adaptation in warmup (dual averaging), frozen afterwards --------------

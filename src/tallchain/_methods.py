@@ -46,5 +46,13 @@ METHODS = {
     )
 }
 
+# Deliberately wrong variants for the power checks of the statistical tests; not offered to
+# users (sample() accepts them only through the private name).
+BROKEN_METHODS = {
+    "_mala-without-proposal-term": MethodSpec(
+        "_mala-without-proposal-term", _chain.PROPOSAL_LANGEVIN_NO_C, _F, _F, acc.EXACT, 0.574,
+        "MALA with the proposal-density term dropped (wrong; for power checks only)"),
+}
+
 NOISE_VARIANCE = {"same-batch": _chain.VAR_SAME, "independent-batch": _chain.VAR_INDEPENDENT,
                   "pooled": _chain.VAR_POOLED}

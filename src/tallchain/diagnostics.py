@@ -177,7 +177,21 @@ class KSCheck:
                 "verdict": self.verdicts, "tolerance": self.tolerance, "passed": self.passed}
 
 
-def ks_check(draws, reference, *, coef_names=None, tolerance=1.5):
+def _weighted_ks(x, ref, weights):
+    """sup |F_x - G| with F_x the ECDF of x and G the weighted ECDF of ref."""
+    order = np.argsort(ref)
+    ref, w = ref[order], weights[order] / weights.sum()
+    cum_w = np.concatenate([[0.0], np.cumsum(w)])
+    xs = np.sort(x)
+    grid = np.concatenate([xs, ref])
+    f = np.searchsorted(xs, grid, side="right") / xs.size
+    g = cum_w[np.searchsorted(ref, grid, side="right")]
+    f_left = np.searchsorted(xs, grid, side="left") / xs.size
+    g_left = cum_w[np.searchsorted(ref, grid, side="left")]
+    return float(max(np.max(np.abs(f - g)), np.max(np.abs(f_left - g_left))))
+
+
+def ks_check(draws, reference, *, coef_names=None, tolerance=1.5, reference_weights=None):
     """Per-coefficient KS distance of MCMC draws to a reference, with its ESS noise floor.
 
     Parameters
@@ -186,6 +200,9 @@ def ks_check(draws, reference, *, coef_names=None, tolerance=1.5):
     reference : GaussianPosterior, sequence of frozen scipy.stats distributions, or ndarray
         An exact posterior (its marginals are used), one marginal per coefficient, or reference
         draws of shape (n_ref, n_coef) (two-sample KS; assumed independent).
+    reference_weights : ndarray of shape (n_ref,), optional
+        Importance weights of the reference draws; the floor then uses their effective size
+        (sum w)^2 / sum w^2.
     tolerance : float, default=1.5
         Multiple of the floor up to which the distance counts as noise.
 
@@ -201,9 +218,16 @@ def ks_check(draws, reference, *, coef_names=None, tolerance=1.5):
     if isinstance(reference, np.ndarray):
         if reference.ndim != 2 or reference.shape[1] != n_coef:
             raise ValueError(f"reference draws must have shape (n, {n_coef})")
-        for j in range(n_coef):
-            ks[j] = stats.ks_2samp(flat[:, j], reference[:, j]).statistic
-        floor = KS_CRITICAL * np.sqrt(1.0 / ess + 1.0 / reference.shape[0])
+        if reference_weights is None:
+            for j in range(n_coef):
+                ks[j] = stats.ks_2samp(flat[:, j], reference[:, j]).statistic
+            n_ref = reference.shape[0]
+        else:
+            w = np.asarray(reference_weights, dtype=float)
+            for j in range(n_coef):
+                ks[j] = _weighted_ks(flat[:, j], reference[:, j], w)
+            n_ref = w.sum() ** 2 / np.sum(w**2)
+        floor = KS_CRITICAL * np.sqrt(1.0 / ess + 1.0 / n_ref)
     else:
         marginals = ([reference.marginal(j) for j in range(n_coef)]
                      if hasattr(reference, "marginal") else list(reference))

@@ -29,10 +29,12 @@ class SampleResult:
     data_evaluations : int
         Per-datum likelihood or gradient evaluations during warmup and sampling (row visits).
     nonfinite_count : int
-        Iterations whose log acceptance ratio was NaN or infinite (rejected).
+        Iterations after warmup whose log acceptance ratio was NaN or infinite (rejected).
     cd_fallback_count : int
-        Iterations where the Ceperley-Dewing correction was outside its validity bound and the
-        plug-in sigma^2/2 was used instead.
+        Iterations after warmup where the Ceperley-Dewing correction was outside its validity
+        bound and the plug-in sigma^2/2 was used instead.
+    warmup_counts : dict
+        The same two counts during warmup (``nonfinite``, ``cd_fallback``).
     setup_seconds, sampling_seconds : float
         Data checks and mode finding; warmup and draws.
     completed_draws : int
@@ -54,6 +56,7 @@ class SampleResult:
     setup_seconds: float
     sampling_seconds: float
     completed_draws: int
+    warmup_counts: dict = field(default_factory=dict)
     laplace_mode: np.ndarray | None = None
     warnings: list = field(default_factory=list)
 

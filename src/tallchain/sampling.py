@@ -9,8 +9,9 @@ from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 
+from . import _acceptance_kernels as _acc
 from . import _chain
-from ._methods import METHODS, NOISE_VARIANCE
+from ._methods import BROKEN_METHODS, METHODS, NOISE_VARIANCE
 from ._preconditioning import ControlVariateCache, control_variate_cache, make_preconditioner
 from ._validation import fail, positive_int
 from .mode import find_mode
@@ -45,13 +46,13 @@ def _resolve_seed(seed, n_children):
 
 def _check_settings(model, method, step_size, batch_size, chains, draws, warmup, noise_variance,
                     control_variates, cv_order, target_log_ratio_sd):
-    if method not in METHODS:
+    if method not in METHODS and method not in BROKEN_METHODS:
         from difflib import get_close_matches
 
         near = get_close_matches(str(method), METHODS, n=1)
         hint = f'did you mean "{near[0]}"? ' if near else ""
         fail("method", f"unknown method {method!r}", f"{hint}choose one of {', '.join(METHODS)}")
-    spec = METHODS[method]
+    spec = METHODS.get(method) or BROKEN_METHODS[method]
     if isinstance(step_size, str):
         if step_size != "auto":
             fail("step_size", f"must be a number > 0 or \"auto\", got {step_size!r}",
@@ -129,6 +130,21 @@ def _default_step(spec, pre, laplace, n_coef):
     if pre.kind == "identity" and laplace is not None:
         h *= float(np.mean(np.diag(laplace.cov)))
     return h
+
+
+def _target_acceptance(spec, target_log_ratio_sd):
+    """Acceptance rate the step-size tuning aims at.
+
+    Exact methods: 0.574 (Langevin) or 0.234 (random walk). Penalty methods: that rate times
+    A(0, sigma_ref) = 2 Phi(-sigma_ref/2), the acceptance that log-ratio noise of sd sigma_ref
+    allows even for a zero step (METHODS.md section 1), with sigma_ref = target_log_ratio_sd.
+    Without the factor the step would shrink toward zero chasing an unreachable rate. With a
+    fixed batch the step then also sets the noise level (a larger step, a noisier log-ratio).
+    This scaling is our heuristic; the sweep command measures what it costs.
+    """
+    if spec.rule in (_acc.PENALTY, _acc.PENALTY_CD):
+        return spec.target_accept * math.erfc(target_log_ratio_sd / (2.0 * math.sqrt(2.0)))
+    return spec.target_accept
 
 
 class _ChainState:
@@ -227,12 +243,15 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
     all_draws = np.zeros((chains, n_total, model.n_coef))
     all_stats = np.full((chains, n_total, _chain.N_STATS), np.nan)
     var_code = NOISE_VARIANCE.get(noise_variance, _chain.VAR_SAME)
-    runner = _Runner(model, spec, var_code, cache if cv else ControlVariateCache.empty(model.n_coef),
+    target_accept = _target_acceptance(spec, target_log_ratio_sd)
+    runner = _Runner(model, spec, var_code, target_accept, cache if cv else ControlVariateCache.empty(model.n_coef),
                      pre, warmup, adapt_step, all_draws, all_stats, progress, parallel)
 
     t_sample = time.perf_counter()
     chosen_batch = _resolve_batch(spec, batch_size, model, runner, states, warmup,
                                   target_log_ratio_sd, batch_floor, batch_ceiling)
+    runner.run(states, warmup, chosen_batch)
+    after_warmup = np.sum([st.counters for st in states], axis=0)
     runner.run(states, n_total, chosen_batch)
     sampling_seconds = time.perf_counter() - t_sample
 
@@ -254,7 +273,7 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
         "control_variates": cv,
         "cv_order": cv_order if cv else None,
         "noise_variance": noise_variance if spec.minibatch and spec.adjusted else None,
-        "target_accept": spec.target_accept if adapt_step else None,
+        "target_accept": target_accept if adapt_step else None,
         "target_log_ratio_sd": target_log_ratio_sd if batch_size == "auto" and spec.minibatch else None,
         "chains": chains,
         "draws": draws,
@@ -267,8 +286,11 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
         draws=all_draws[:, warmup:warmup + n_done].copy(), stats=stats, warmup_stats=warm,
         coef_names=list(model.coef_names), method=method, settings=settings,
         n_rows=model.n_rows, data_evaluations=int(counters[_chain.CT_DATA_EVALS]),
-        nonfinite_count=int(counters[_chain.CT_NONFINITE]),
-        cd_fallback_count=int(counters[_chain.CT_CD_FALLBACK]),
+        nonfinite_count=int(counters[_chain.CT_NONFINITE] - after_warmup[_chain.CT_NONFINITE]),
+        cd_fallback_count=int(counters[_chain.CT_CD_FALLBACK]
+                              - after_warmup[_chain.CT_CD_FALLBACK]),
+        warmup_counts={"nonfinite": int(after_warmup[_chain.CT_NONFINITE]),
+                       "cd_fallback": int(after_warmup[_chain.CT_CD_FALLBACK])},
         setup_seconds=setup_seconds, sampling_seconds=sampling_seconds,
         completed_draws=n_done, laplace_mode=None if laplace is None else laplace.mode)
     _noise_advice(result, spec)
@@ -278,9 +300,10 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
 class _Runner:
     """Calls the kernel chunk by chunk for every chain, in threads."""
 
-    def __init__(self, model, spec, var_code, cache, pre, warmup, adapt_step, all_draws,
-                 all_stats, progress, parallel):
+    def __init__(self, model, spec, var_code, target_accept, cache, pre, warmup, adapt_step,
+                 all_draws, all_stats, progress, parallel):
         self.model, self.spec, self.var_code, self.cache, self.pre = model, spec, var_code, cache, pre
+        self.target_accept = target_accept
         self.warmup, self.adapt_step = warmup, adapt_step
         self.all_draws, self.all_stats = all_draws, all_stats
         self.progress, self.parallel = progress, parallel
@@ -297,7 +320,7 @@ class _Runner:
                 c.beta_star, c.eta_star, c.f1_star, c.f2_star, c.g_star, c.H_star,
                 p.mass, p.mass_inv, p.mass_inv_chol, int(n_batch), st.rng,
                 st.beta, st.cur_grad, st.cur_loglik, st.adapt, st.pooled, st.counters,
-                i0, n, self.warmup, self.adapt_step, s.target_accept,
+                i0, n, self.warmup, self.adapt_step, self.target_accept,
                 self.all_draws[chain, i0:i0 + n], self.all_stats[chain, i0:i0 + n])
             st.iteration += n
             if self._bar is not None:
@@ -331,8 +354,14 @@ class _Runner:
 
 
 def _resolve_batch(spec, batch_size, model, runner, states, warmup, target_sd, floor, ceiling):
-    """Return the batch size; for "auto", run the first half of warmup in two pilot phases and
-    set n so that the log-ratio variance N^2 (1 - n/N) S^2 / n meets target_sd^2."""
+    """Return the batch size used after warmup.
+
+    For "auto": three pilot phases of warmup/5 iterations each, after each of which n is set so
+    that the log-ratio variance N^2 (1 - n/N) S^2 / n meets target_sd^2 (S^2 estimated from the
+    phase's second half) and the step tuning restarts; the rest of warmup tunes the step at that
+    n; a last correction of n from the final part of warmup fixes the batch used for the draws
+    (the kernel is fixed from then on, so the chain stays valid). Runs warmup as a side effect.
+    """
     n_rows = model.n_rows
     if not spec.minibatch:
         return 1
@@ -343,19 +372,25 @@ def _resolve_batch(spec, batch_size, model, runner, states, warmup, target_sd, f
     n = int(np.clip(_PILOT_BATCH, floor, ceiling))
     if spec.ratio != _chain.BATCH:
         return n  # SGLD: no log-ratio to control; the floor-clipped pilot size is used
-    phase = warmup // 4
-    for k in (1, 2):
+    phase = warmup // 5
+    ends = [phase, 2 * phase, 3 * phase, warmup]
+    for k, end in enumerate(ends):
         start = states[0].iteration
-        runner.run(states, k * phase, n)
-        sd = runner.all_stats[:, start + (k * phase - start) // 2:k * phase, _chain.ST_LOG_RATIO_SD]
-        var = float(np.nanmean(sd**2)) if np.isfinite(sd).any() else 0.0
-        # Solve N^2 (1 - n/N) S^2 / n = target^2 for n, with S^2 from the pilot variance.
-        s2 = var * n / (n_rows**2 * (1.0 - n / n_rows)) if n < n_rows else 0.0
-        need = n_rows**2 * s2 / (target_sd**2 + n_rows * s2) if s2 > 0 else floor
-        n = int(np.clip(math.ceil(need), floor, ceiling))
-        for st in states:
-            _restart_step_adaptation(st)
+        runner.run(states, end, n)
+        n = _batch_for_target(runner.all_stats[:, (start + end) // 2:end, _chain.ST_LOG_RATIO_SD],
+                              n, n_rows, target_sd, floor, ceiling)
+        if k < 3:
+            for st in states:
+                _restart_step_adaptation(st)
     return n
+
+
+def _batch_for_target(sd, n, n_rows, target_sd, floor, ceiling):
+    """Solve N^2 (1 - m/N) S^2 / m = target^2 for m, with S^2 from the variances seen at n."""
+    var = float(np.nanmean(sd**2)) if np.isfinite(sd).any() else 0.0
+    s2 = var * n / (n_rows**2 * (1.0 - n / n_rows)) if n < n_rows else 0.0
+    need = n_rows**2 * s2 / (target_sd**2 + n_rows * s2) if s2 > 0 else floor
+    return int(np.clip(math.ceil(need), floor, ceiling))
 
 
 def _restart_step_adaptation(st):
@@ -365,6 +400,7 @@ def _restart_step_adaptation(st):
         st.adapt[:] = 0.0
         st.adapt[_chain.AD_LOG_H] = log_h
         st.adapt[_chain.AD_MU] = log_h + math.log(10.0)
+    st.pooled[:] = 0.0
 
 
 def _noise_advice(result, spec):
@@ -390,6 +426,6 @@ def _noise_advice(result, spec):
     if result.cd_fallback_count:
         msgs.append(f"{result.cd_fallback_count} iterations were beyond the Ceperley-Dewing "
                     "validity bound and used the plug-in correction; use a larger batch_size")
-    for m in msgs:
-        result.warnings.append(m)
-        warnings.warn(m, NoisyLogRatioWarning, stacklevel=3)
+    if msgs:
+        result.warnings.extend(msgs)
+        warnings.warn("; and ".join(msgs), NoisyLogRatioWarning, stacklevel=3)
