@@ -75,13 +75,14 @@ STAT_NAMES = (
 )
 
 # Layout of the adaptation state: current log step, averaged log step, running error,
-# shrinkage target mu, adaptation iteration count.
+# shrinkage target mu, adaptation iteration count, running mean of the log-ratio variance.
 AD_LOG_H = 0
 AD_LOG_HBAR = 1
 AD_ERR = 2
 AD_MU = 3
 AD_COUNT = 4
-N_ADAPT = 5
+AD_VAR_AVG = 5
+N_ADAPT = 6
 
 # Integer counters.
 CT_DATA_EVALS = 0
@@ -147,12 +148,17 @@ def run_chain(family, X, y, offset, noise_sd, intercept, prior_mean, prior_prec,
               beta_star, eta_star, f1_star, f2_star, g_star, H_star,
               mass, mass_inv, mass_inv_chol, n_batch, rng,
               beta, cur_grad, cur_loglik, adapt, pooled, counters,
-              it_start, n_iter, n_warmup, adapt_step, target_accept,
+              it_start, n_iter, n_warmup, adapt_step, target_accept, noise_sd_cap,
               draws_out, stats_out):
     """Run iterations it_start .. it_start + n_iter - 1 of one chain, in place.
 
     State arrays (beta, cur_grad, cur_loglik, adapt, pooled, counters) and the generator are
     updated in place; draws_out[k] and stats_out[k] receive iteration it_start + k.
+
+    Step-size tuning aims at ``target_accept`` times A(0, s) = erfc(s / 2 sqrt 2), the most that
+    log-ratio noise of sd s lets through (METHODS.md section 1), with s the running rms of the
+    estimated noise sd capped at ``noise_sd_cap`` (0 for exact methods: no scaling). The cap keeps
+    a very noisy start from lowering the target to nothing, which would stop the step shrinking.
     """
     n_rows = X.shape[0]
     d = beta.shape[0]
@@ -285,8 +291,15 @@ def run_chain(family, X, y, offset, noise_sd, intercept, prior_mean, prior_prec,
             alpha = math.exp(log_alpha) if rule != NONE else target_accept
             adapt[AD_COUNT] += 1.0
             m = adapt[AD_COUNT]
+            target = target_accept
+            if noise_sd_cap > 0.0:
+                v = log_ratio_sd * log_ratio_sd if math.isfinite(log_ratio_sd) else noise_sd_cap ** 2
+                wv = 1.0 / min(m, 100.0)
+                adapt[AD_VAR_AVG] = (1.0 - wv) * adapt[AD_VAR_AVG] + wv * v
+                s_noise = min(math.sqrt(adapt[AD_VAR_AVG]), noise_sd_cap)
+                target *= math.erfc(s_noise / (2.0 * math.sqrt(2.0)))
             w = 1.0 / (m + _DA_T0)
-            adapt[AD_ERR] = (1.0 - w) * adapt[AD_ERR] + w * (target_accept - alpha)
+            adapt[AD_ERR] = (1.0 - w) * adapt[AD_ERR] + w * (target - alpha)
             adapt[AD_LOG_H] = adapt[AD_MU] - math.sqrt(m) / _DA_GAMMA * adapt[AD_ERR]
             eta_w = m ** (-_DA_KAPPA)
             adapt[AD_LOG_HBAR] = eta_w * adapt[AD_LOG_H] + (1.0 - eta_w) * adapt[AD_LOG_HBAR]

@@ -132,21 +132,6 @@ def _default_step(spec, pre, laplace, n_coef):
     return h
 
 
-def _target_acceptance(spec, target_log_ratio_sd):
-    """Acceptance rate the step-size tuning aims at.
-
-    Exact methods: 0.574 (Langevin) or 0.234 (random walk). Penalty methods: that rate times
-    A(0, sigma_ref) = 2 Phi(-sigma_ref/2), the acceptance that log-ratio noise of sd sigma_ref
-    allows even for a zero step (METHODS.md section 1), with sigma_ref = target_log_ratio_sd.
-    Without the factor the step would shrink toward zero chasing an unreachable rate. With a
-    fixed batch the step then also sets the noise level (a larger step, a noisier log-ratio).
-    This scaling is our heuristic; the sweep command measures what it costs.
-    """
-    if spec.rule in (_acc.PENALTY, _acc.PENALTY_CD):
-        return spec.target_accept * math.erfc(target_log_ratio_sd / (2.0 * math.sqrt(2.0)))
-    return spec.target_accept
-
-
 class _ChainState:
     """Everything one chain carries between kernel calls (also what a checkpoint stores)."""
 
@@ -243,8 +228,10 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
     all_draws = np.zeros((chains, n_total, model.n_coef))
     all_stats = np.full((chains, n_total, _chain.N_STATS), np.nan)
     var_code = NOISE_VARIANCE.get(noise_variance, _chain.VAR_SAME)
-    target_accept = _target_acceptance(spec, target_log_ratio_sd)
-    runner = _Runner(model, spec, var_code, target_accept, cache if cv else ControlVariateCache.empty(model.n_coef),
+    # Penalty methods aim at the exact-method rate times the share that the noise lets through
+    # (see run_chain); target_log_ratio_sd caps the noise level used for that share.
+    noise_cap = target_log_ratio_sd if spec.rule in (_acc.PENALTY, _acc.PENALTY_CD) else 0.0
+    runner = _Runner(model, spec, var_code, noise_cap, cache if cv else ControlVariateCache.empty(model.n_coef),
                      pre, warmup, adapt_step, all_draws, all_stats, progress, parallel)
 
     t_sample = time.perf_counter()
@@ -273,7 +260,7 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
         "control_variates": cv,
         "cv_order": cv_order if cv else None,
         "noise_variance": noise_variance if spec.minibatch and spec.adjusted else None,
-        "target_accept": target_accept if adapt_step else None,
+        "target_accept": spec.target_accept if adapt_step else None,
         "target_log_ratio_sd": target_log_ratio_sd if batch_size == "auto" and spec.minibatch else None,
         "chains": chains,
         "draws": draws,
@@ -300,10 +287,10 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
 class _Runner:
     """Calls the kernel chunk by chunk for every chain, in threads."""
 
-    def __init__(self, model, spec, var_code, target_accept, cache, pre, warmup, adapt_step,
+    def __init__(self, model, spec, var_code, noise_cap, cache, pre, warmup, adapt_step,
                  all_draws, all_stats, progress, parallel):
         self.model, self.spec, self.var_code, self.cache, self.pre = model, spec, var_code, cache, pre
-        self.target_accept = target_accept
+        self.noise_cap = noise_cap
         self.warmup, self.adapt_step = warmup, adapt_step
         self.all_draws, self.all_stats = all_draws, all_stats
         self.progress, self.parallel = progress, parallel
@@ -320,7 +307,7 @@ class _Runner:
                 c.beta_star, c.eta_star, c.f1_star, c.f2_star, c.g_star, c.H_star,
                 p.mass, p.mass_inv, p.mass_inv_chol, int(n_batch), st.rng,
                 st.beta, st.cur_grad, st.cur_loglik, st.adapt, st.pooled, st.counters,
-                i0, n, self.warmup, self.adapt_step, self.target_accept,
+                i0, n, self.warmup, self.adapt_step, s.target_accept, self.noise_cap,
                 self.all_draws[chain, i0:i0 + n], self.all_stats[chain, i0:i0 + n])
             st.iteration += n
             if self._bar is not None:

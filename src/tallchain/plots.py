@@ -1,0 +1,101 @@
+"""Figures: the sweep's bias-against-cost picture and a run's trace, rank and noise plots."""
+
+from pathlib import Path
+
+import numpy as np
+
+
+def _pyplot():
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    return plt
+
+
+def plot_sweep(result, path):
+    """Two panels against step size (log scale), one line per method and batch size:
+    KS distance over its noise floor (the unbiased region shaded) and ESS per second.
+    The recommended setting is starred."""
+    plt = _pyplot()
+    fig, (ax_bias, ax_cost) = plt.subplots(1, 2, figsize=(11, 4.4), constrained_layout=True)
+    groups = {}
+    for r in result.rows:
+        key = r["method"] if r["batch_size"] is None else f"{r['method']} (n={r['batch_size']})"
+        groups.setdefault(key, []).append(r)
+    for key, rows in groups.items():
+        rows = sorted(rows, key=lambda r: r["step_size"])
+        h = [r["step_size"] for r in rows]
+        line, = ax_bias.plot(h, [r["ks_ratio_max"] for r in rows], marker="o", label=key)
+        ax_cost.plot(h, [r["ess_per_second"] for r in rows], marker="o", color=line.get_color(),
+                     label=key)
+        weak = [r for r in rows if r["verdict"].startswith("inconclusive")]
+        for ax, col in ((ax_bias, "ks_ratio_max"), (ax_cost, "ess_per_second")):
+            ax.plot([r["step_size"] for r in weak], [r[col] for r in weak], marker="o", ls="none",
+                    mfc="white", mec=line.get_color(), zorder=4)
+    tol = result.tolerance
+    ax_bias.axhspan(0, tol, color="tab:green", alpha=0.12, label=f"within noise (<= {tol:g})")
+    ax_bias.axhline(tol, color="tab:green", lw=1, ls="--")
+    best = result.recommended
+    if best is not None:
+        for ax, key in ((ax_bias, "ks_ratio_max"), (ax_cost, "ess_per_second")):
+            ax.plot([best["step_size"]], [best[key]], marker="*", ms=16, color="gold",
+                    markeredgecolor="black", ls="none", label="recommended", zorder=5)
+    for ax in (ax_bias, ax_cost):
+        ax.set_xscale("log")
+        ax.set_xlabel("step size h (proposal variance h M^-1)")
+        ax.grid(True, which="both", alpha=0.3)
+    ax_bias.set_yscale("log")
+    ax_bias.set_ylabel("max KS distance / noise floor 1.358/sqrt(ESS)")
+    ax_bias.set_title(f"bias against {result.reference}")
+    ax_cost.set_yscale("log")
+    ax_cost.set_ylabel("ESS per second (min over coefficients)")
+    ax_cost.set_title("cost")
+    if any(r["verdict"].startswith("inconclusive") for r in result.rows):
+        ax_bias.plot([], [], marker="o", ls="none", mfc="white", mec="gray",
+                     label="inconclusive (ESS < 100)")
+    ax_bias.legend(fontsize=8, loc="upper left")
+    fig.savefig(path, dpi=110)
+    plt.close(fig)
+    return Path(path)
+
+
+def plot_run(result, directory):
+    """Write trace.png and rank.png (ArviZ, matplotlib backend) and log_ratio_sd.png.
+
+    Returns the list of files written.
+    """
+    import arviz as az
+
+    plt = _pyplot()
+    out = Path(directory)
+    out.mkdir(parents=True, exist_ok=True)
+    tree = result.to_arviz()
+    files = []
+    pc = az.plot_trace_dist(tree, var_names=["beta"], backend="matplotlib")
+    pc.savefig(out / "trace.png")
+    files.append(out / "trace.png")
+    pc = az.plot_rank(tree, var_names=["beta"], backend="matplotlib")
+    pc.savefig(out / "rank.png")
+    files.append(out / "rank.png")
+    plt.close("all")
+
+    fig, ax = plt.subplots(figsize=(8, 3.2), constrained_layout=True)
+    sd = result.stats["log_ratio_sd"]
+    warm = result.warmup_stats.get("log_ratio_sd")
+    n_warm = 0 if warm is None else warm.shape[1]
+    for c in range(sd.shape[0]):
+        series = sd[c] if warm is None else np.concatenate([warm[c], sd[c]])
+        ax.plot(np.arange(series.size), series, lw=0.6, label=f"chain {c}")
+    if n_warm:
+        ax.axvline(n_warm, color="black", ls="--", lw=1, label="end of warmup")
+    ax.set_yscale("symlog", linthresh=1e-3)
+    ax.set_xlabel("iteration")
+    ax.set_ylabel("estimated sd of the log-ratio")
+    ax.set_title(f"{result.method}: log-ratio noise (the penalty method assumes it is Gaussian)")
+    ax.legend(fontsize=7, ncol=4)
+    fig.savefig(out / "log_ratio_sd.png", dpi=110)
+    plt.close(fig)
+    files.append(out / "log_ratio_sd.png")
+    return files

@@ -1,0 +1,279 @@
+"""Step-size and batch-size sweeps: bias against cost, one table, one recommendation."""
+
+import hashlib
+import math
+import multiprocessing
+import os
+import time
+import warnings
+from concurrent.futures import ProcessPoolExecutor, as_completed
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from ._methods import METHODS
+from ._validation import fail
+from .conjugate import conjugate_posterior
+from .diagnostics import ess_bulk, ks_check
+
+COLUMNS = ("method", "step_size", "batch_size", "ks_max", "ks_ratio_max", "ks_floor",
+           "ess_bulk_min", "ess_per_second", "acceptance", "log_ratio_sd_mean",
+           "data_evals_per_draw", "seconds", "verdict")
+DEFAULT_STEP_FACTORS = tuple(2.0**k for k in range(-3, 4))
+# Below this ESS the noise floor is so wide that "within noise" says little (common practice:
+# ESS of a few hundred for stable tail summaries; we ask for 100 per point).
+MIN_ESS_FOR_VERDICT = 100
+
+
+@dataclass
+class SweepResult:
+    """Rows of a sweep, the reference used, and the recommended setting.
+
+    Attributes
+    ----------
+    rows : list of dict
+        One per grid point, with the keys in `COLUMNS`.
+    recommended : dict or None
+        The row with the highest ESS per second among those judged unbiased.
+    reference : str
+        "exact posterior" (conjugate model) or "full-data mala run (cached)".
+    tuned_step_size : float
+        The step size the grid is centred on.
+    tolerance : float
+    """
+
+    rows: list
+    recommended: dict | None
+    reference: str
+    tuned_step_size: float
+    tolerance: float
+    notes: list = field(default_factory=list)
+
+    def as_dict(self):
+        return {"recommended": self.recommended, "reference": self.reference,
+                "tuned_step_size": self.tuned_step_size, "tolerance": self.tolerance,
+                "notes": self.notes, "rows": self.rows}
+
+
+def model_fingerprint(model):
+    """A hash of the data, prior and family: the key of the cached reference run."""
+    h = hashlib.sha1()
+    h.update(f"{model.family_name}|{model.add_intercept}|{model.noise_sd}|{model.X.shape}|"
+             f"{model.X.dtype}".encode())
+    block = 1 << 16
+    for start in range(0, model.n_rows, block):
+        h.update(np.ascontiguousarray(model.X[start:start + block]).tobytes())
+    for arr in (model.y, model.offset, model.prior_mean, model.prior_prec):
+        h.update(np.ascontiguousarray(arr).tobytes())
+    return h.hexdigest()[:16]
+
+
+def reference_draws(model, *, cache_dir=None, draws=20_000, seed=0):
+    """Long full-data MALA run used as the reference for non-conjugate models.
+
+    The draws are thinned to about one per effective sample, so the two-sample KS floor can
+    treat them as independent. Cached as ``reference-<fingerprint>.npz`` in ``cache_dir``.
+    """
+    from .sampling import sample
+
+    path = None
+    if cache_dir is not None:
+        path = Path(cache_dir) / f"reference-{model_fingerprint(model)}.npz"
+        if path.exists():
+            with np.load(path, allow_pickle=False) as z:
+                return z["draws"]
+    r = sample(model, method="mala", chains=4, draws=draws // 4, warmup=1000, seed=seed)
+    ess = float(np.min(ess_bulk(r.draws)))
+    thin = max(1, int(math.floor(r.draws.shape[0] * r.draws.shape[1] / max(ess, 1.0))))
+    flat = r.draws[:, ::thin].reshape(-1, r.draws.shape[2])
+    if path is not None:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        tmp = path.with_name(path.name + f".tmp-{os.getpid()}.npz")
+        np.savez(tmp, draws=flat)
+        os.replace(tmp, path)
+    return flat
+
+
+_WORKER_MODEL = None
+
+
+def _init_worker(model):
+    global _WORKER_MODEL
+    _WORKER_MODEL = model
+    warnings.simplefilter("ignore")
+
+
+def _run_point(model, reference, tolerance, method, step, batch, seed, settings):
+    from .sampling import sample
+
+    t = time.perf_counter()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        r = sample(model, method=method, step_size=step, batch_size=batch, seed=seed, **settings)
+    seconds = time.perf_counter() - t
+    if isinstance(reference, np.ndarray):
+        k = ks_check(r.draws, reference, tolerance=tolerance)
+    else:
+        k = ks_check(r.draws, reference, tolerance=tolerance)
+    finite = bool(np.all(np.isfinite(r.draws)))
+    ratio = np.where(np.isfinite(k.ratio), k.ratio, np.inf)
+    j = int(np.argmax(ratio))
+    ess_min = float(np.min(k.ess)) if finite else float("nan")
+    if not finite:
+        verdict = "diverged"
+    elif not ess_min >= MIN_ESS_FOR_VERDICT:
+        verdict = f"inconclusive (ESS < {MIN_ESS_FOR_VERDICT})"
+    else:
+        verdict = "within noise" if ratio[j] <= tolerance else "biased"
+    sd = r.stats["log_ratio_sd"]
+    iters = r.n_chains * (r.settings["warmup"] + r.n_draws)
+    return {
+        "method": method, "step_size": float(step),
+        "batch_size": int(batch) if METHODS[method].minibatch else None,
+        "ks_max": float(np.max(k.ks)), "ks_ratio_max": float(ratio[j]) if finite else float("nan"),
+        "ks_floor": float(k.floor[j]), "ess_bulk_min": ess_min,
+        "ess_per_second": ess_min / r.sampling_seconds if r.sampling_seconds > 0 else float("nan"),
+        "acceptance": r.acceptance_rate,
+        "log_ratio_sd_mean": float(np.nanmean(sd)) if np.isfinite(sd).any() else float("nan"),
+        "data_evals_per_draw": r.data_evaluations / iters, "seconds": seconds,
+        "verdict": verdict,
+    }
+
+
+def _run_point_in_worker(args):
+    return args[0], _run_point(_WORKER_MODEL, *args[1:])
+
+
+def sweep(model, *, methods=("penalty-mala", "sgld"), step_sizes=None, batch_sizes=None,
+          chains=4, draws=2000, warmup=500, seed=1, tolerance=1.5, workers=None,
+          cache_dir=None, progress=False, on_row=None, **settings):
+    """Run a grid of (method, step size, batch size) and measure bias against cost.
+
+    Parameters
+    ----------
+    model : LinearRegression, LogisticRegression or PoissonRegression
+    methods : sequence of str, default=("penalty-mala", "sgld")
+    step_sizes : sequence of float, optional
+        Default: the step size that ``penalty-mala`` (or the first adjusted method) tunes,
+        times 1/8, 1/4, ..., 8 - wide enough to show where each method breaks.
+    batch_sizes : sequence of int, optional
+        Default: the batch size chosen by that tuning run (``batch_size="auto"``).
+    chains, draws, warmup : int
+        Per grid point.
+    seed : int, default=1
+        Grid point k gets child k of ``SeedSequence(seed)``: results do not depend on the
+        number of workers or the order of completion.
+    tolerance : float, default=1.5
+        A point is "within noise" when every coefficient's KS distance to the reference is at
+        most ``tolerance`` times its floor.
+    workers : int, optional
+        Worker processes (default: the number of cores, at most the number of points).
+    cache_dir : path, optional
+        Where the reference run of a non-conjugate model is cached.
+    on_row : callable, optional
+        Called with each finished row (e.g. to write it out at once).
+    **settings
+        Further `tallchain.sample` settings held fixed across the grid.
+
+    Returns
+    -------
+    SweepResult
+    """
+    from .sampling import sample
+
+    methods = list(methods)
+    for m in methods:
+        if m not in METHODS:
+            fail("methods", f"unknown method {m!r}", f"choose from {', '.join(METHODS)}")
+    tuner = next((m for m in methods if METHODS[m].adjusted), "penalty-mala")
+    tune_settings = {k: v for k, v in settings.items() if k not in ("step_size", "batch_size")}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        tuned = sample(model, method=tuner, chains=2, draws=200, warmup=max(warmup, 200),
+                       seed=seed, batch_size=batch_sizes[0] if batch_sizes else "auto",
+                       **tune_settings)
+    h_star = float(np.mean(tuned.settings["step_size"]))
+    if step_sizes is None:
+        step_sizes = [h_star * f for f in DEFAULT_STEP_FACTORS]
+    if batch_sizes is None:
+        batch_sizes = [tuned.settings["batch_size"] or 100]
+    for h in step_sizes:
+        if not (isinstance(h, (int, float)) and h > 0):
+            fail("step_sizes", f"must be numbers > 0, got {h!r}", "give positive step sizes")
+    grid = []
+    for m in methods:
+        for n in (batch_sizes if METHODS[m].minibatch else [None]):
+            for h in step_sizes:
+                grid.append((m, float(h), n))
+
+    if model.family_name == "linear":
+        reference, ref_kind = conjugate_posterior(model), "exact posterior"
+    else:
+        reference, ref_kind = reference_draws(model, cache_dir=cache_dir, seed=seed), \
+            "full-data mala run (cached)"
+
+    seeds = np.random.SeedSequence(seed).spawn(len(grid))
+    n_workers = min(len(grid), workers or os.cpu_count() or 1)
+    point_settings = dict(settings, chains=chains, draws=draws, warmup=warmup,
+                          parallel=n_workers == 1)
+    rows = [None] * len(grid)
+    bar = None
+    if progress and os.isatty(2):
+        from tqdm import tqdm
+
+        bar = tqdm(total=len(grid), unit="point", desc="sweep", leave=False)
+
+    def _done(i, row):
+        rows[i] = row
+        if on_row is not None:
+            on_row(row)
+        if bar is not None:
+            bar.update(1)
+
+    try:
+        if n_workers == 1:
+            for i, (m, h, n) in enumerate(grid):
+                _done(i, _run_point(model, reference, tolerance, m, h, n or 2, seeds[i],
+                                    point_settings))
+        else:
+            ctx = multiprocessing.get_context("forkserver")
+            with ProcessPoolExecutor(n_workers, mp_context=ctx, initializer=_init_worker,
+                                     initargs=(model,)) as pool:
+                futures = [pool.submit(_run_point_in_worker,
+                                       (i, reference, tolerance, m, h, n or 2, seeds[i],
+                                        point_settings))
+                           for i, (m, h, n) in enumerate(grid)]
+                for f in as_completed(futures):
+                    _done(*f.result())
+    finally:
+        if bar is not None:
+            bar.close()
+
+    ok = [r for r in rows if r["verdict"] == "within noise" and np.isfinite(r["ess_per_second"])]
+    best = max(ok, key=lambda r: r["ess_per_second"]) if ok else None
+    notes = []
+    if best is None:
+        notes.append("no grid point was within the noise floor: widen the grid toward smaller "
+                     "steps or larger batches")
+    return SweepResult(rows=rows, recommended=best, reference=ref_kind, tuned_step_size=h_star,
+                       tolerance=tolerance, notes=notes)
+
+
+def write_sweep(result, directory):
+    """Write sweep.csv, sweep.json and sweep.png into ``directory``."""
+    from .outputs import atomic_write, write_json
+    from .plots import plot_sweep
+
+    out = Path(directory)
+    out.mkdir(parents=True, exist_ok=True)
+
+    def _csv(tmp):
+        with open(tmp, "w") as fh:
+            fh.write(",".join(COLUMNS) + "\n")
+            for r in result.rows:
+                fh.write(",".join("" if r[c] is None else str(r[c]) for c in COLUMNS) + "\n")
+
+    atomic_write(out / "sweep.csv", _csv)
+    write_json(out / "sweep.json", result.as_dict())
+    plot_sweep(result, out / "sweep.png")
