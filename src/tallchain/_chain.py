@@ -38,7 +38,7 @@ from ._estimator_kernels import (
     proxy_loglik_diff_sum,
     scaled_sum_and_variance,
 )
-from .models._kernels import full_loglik, full_loglik_grad, jit
+from .models._kernels import full_loglik_grad_shifted, full_loglik_shifted, jit
 
 PROPOSAL_RW = 0
 PROPOSAL_LANGEVIN = 1
@@ -138,7 +138,8 @@ def _langevin_log_density(beta_to, beta_from, grad_from, h, mass, mass_inv, z):
 def init_full_state(family, X, y, offset, noise_sd, intercept, prior_mean, prior_prec, beta,
                     cur_grad, cur_loglik):
     """Full-data log-likelihood and log-posterior gradient at the starting point."""
-    cur_loglik[0] = full_loglik_grad(family, X, y, offset, noise_sd, intercept, beta, cur_grad)
+    cur_loglik[0] = full_loglik_grad_shifted(family, X, y, offset, noise_sd, intercept, beta,
+                                             cur_grad, False)
     add_prior_grad(prior_mean, prior_prec, beta, cur_grad)
 
 
@@ -220,8 +221,8 @@ def run_chain(family, X, y, offset, noise_sd, intercept, prior_mean, prior_prec,
             c = 0.0
             if langevin:
                 if grad_mode == FULL:
-                    loglik_prop = full_loglik_grad(family, X, y, offset, noise_sd, intercept,
-                                                   prop, grad_prop)
+                    loglik_prop = full_loglik_grad_shifted(family, X, y, offset, noise_sd,
+                                                           intercept, prop, grad_prop, False)
                     add_prior_grad(prior_mean, prior_prec, prop, grad_prop)
                     counters[CT_DATA_EVALS] += n_rows
                 else:
@@ -238,7 +239,8 @@ def run_chain(family, X, y, offset, noise_sd, intercept, prior_mean, prior_prec,
             penalty = 0.0
             if ratio_mode == FULL:
                 if not (langevin and grad_mode == FULL):
-                    loglik_prop = full_loglik(family, X, y, offset, noise_sd, intercept, prop)
+                    loglik_prop = full_loglik_shifted(family, X, y, offset, noise_sd, intercept,
+                                                      prop, False)
                     counters[CT_DATA_EVALS] += n_rows
                 log_ratio = prior_diff + loglik_prop - cur_loglik[0]
                 log_ratio_sd = 0.0

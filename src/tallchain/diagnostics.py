@@ -119,9 +119,8 @@ def summarize(result, *, warn=True):
     if not np.isfinite(low) or low < ESS_MIN:
         msgs.append(f"the smallest ESS is {low:.0f} < {ESS_MIN} (Vehtari et al. 2021): estimates "
                     "of tails and sd are unreliable; draw more")
-    if warn:
-        for m in msgs:
-            warnings.warn(m, ConvergenceWarning, stacklevel=2)
+    if warn and msgs:
+        warnings.warn("; and ".join(msgs), ConvergenceWarning, stacklevel=2)
     return Summary(table=table, run=run, warnings=msgs)
 
 
