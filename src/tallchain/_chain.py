@@ -97,15 +97,14 @@ _DA_KAPPA = 0.75
 
 
 @jit
-def _batch_gradient(family, X, y, offset, noise_sd, intercept, prior_mean, prior_prec,
-                    cv_order, beta_star, eta_star, f1_star, f2_star, g_star, H_star,
-                    beta, idx, tmp, out):
+def _batch_gradient(family, X, aux, noise_sd, intercept, prior_mean, prior_prec,
+                    cv_order, beta_star, g_star, H_star, beta, delta, idx, tmp, out):
     """Unbiased estimate of grad log pi(beta) from the rows in idx:
-    grad log p(beta) + sum_i grad q_i(beta) + (N/n) sum_{i in idx} [grad l_i - grad q_i]."""
+    grad log p(beta) + sum_i grad q_i(beta) + (N/n) sum_{i in idx} [grad l_i - grad q_i].
+    ``delta`` is beta - beta* (the row cache's reference point)."""
     n_rows = X.shape[0]
     d = beta.shape[0]
-    cv_gradient_rows(family, X, y, offset, noise_sd, intercept, beta, idx, cv_order,
-                     eta_star, f1_star, f2_star, tmp)
+    cv_gradient_rows(family, X, aux, noise_sd, intercept, delta, idx, cv_order, tmp)
     scale = n_rows / idx.shape[0]
     if cv_order > 0:
         proxy_gradient_sum(cv_order, g_star, H_star, beta, beta_star, out)
@@ -146,7 +145,7 @@ def init_full_state(family, X, y, offset, noise_sd, intercept, prior_mean, prior
 @jit
 def run_chain(family, X, y, offset, noise_sd, intercept, prior_mean, prior_prec,
               proposal, grad_mode, ratio_mode, rule, var_mode, cv_order,
-              beta_star, eta_star, f1_star, f2_star, g_star, H_star,
+              beta_star, aux, g_star, H_star,
               mass, mass_inv, mass_inv_chol, n_batch, rng,
               beta, cur_grad, cur_loglik, adapt, pooled, counters,
               it_start, n_iter, n_warmup, adapt_step, target_accept, noise_sd_cap,
@@ -164,6 +163,8 @@ def run_chain(family, X, y, offset, noise_sd, intercept, prior_mean, prior_prec,
     n_rows = X.shape[0]
     d = beta.shape[0]
     prop = np.empty(d)
+    delta = np.empty(d)
+    delta_prop = np.empty(d)
     grad = np.empty(d)
     grad_prop = np.empty(d)
     tmp = np.empty(d)
@@ -186,9 +187,11 @@ def run_chain(family, X, y, offset, noise_sd, intercept, prior_mean, prior_prec,
                 grad[:] = cur_grad
             else:
                 draw_batch(rng, n_rows, idx_grad)
-                _batch_gradient(family, X, y, offset, noise_sd, intercept, prior_mean,
-                                prior_prec, cv_order, beta_star, eta_star, f1_star, f2_star,
-                                g_star, H_star, beta, idx_grad, tmp, grad)
+                for a in range(d):
+                    delta[a] = beta[a] - beta_star[a]
+                _batch_gradient(family, X, aux, noise_sd, intercept, prior_mean, prior_prec,
+                                cv_order, beta_star, g_star, H_star, beta, delta, idx_grad, tmp,
+                                grad)
                 counters[CT_DATA_EVALS] += n_batch
 
         # --- proposal ----------------------------------------------------------------------
@@ -206,6 +209,9 @@ def run_chain(family, X, y, offset, noise_sd, intercept, prior_mean, prior_prec,
                     drift += mass_inv[a, b] * grad[b]
                 prop[a] += 0.5 * h * drift
 
+        for a in range(d):
+            delta[a] = beta[a] - beta_star[a]
+            delta_prop[a] = prop[a] - beta_star[a]
         log_ratio = math.nan
         log_ratio_sd = math.nan
         skew = math.nan
@@ -226,9 +232,9 @@ def run_chain(family, X, y, offset, noise_sd, intercept, prior_mean, prior_prec,
                     add_prior_grad(prior_mean, prior_prec, prop, grad_prop)
                     counters[CT_DATA_EVALS] += n_rows
                 else:
-                    _batch_gradient(family, X, y, offset, noise_sd, intercept, prior_mean,
-                                    prior_prec, cv_order, beta_star, eta_star, f1_star,
-                                    f2_star, g_star, H_star, prop, idx_grad, tmp, grad_prop)
+                    _batch_gradient(family, X, aux, noise_sd, intercept, prior_mean,
+                                    prior_prec, cv_order, beta_star, g_star, H_star, prop,
+                                    delta_prop, idx_grad, tmp, grad_prop)
                     counters[CT_DATA_EVALS] += n_batch
                 if proposal == PROPOSAL_LANGEVIN:
                     c = (_langevin_log_density(beta, prop, grad_prop, h, mass, mass_inv, z)
@@ -246,8 +252,8 @@ def run_chain(family, X, y, offset, noise_sd, intercept, prior_mean, prior_prec,
                 log_ratio_sd = 0.0
             else:
                 draw_batch(rng, n_rows, idx_ratio)
-                batch_residual_diffs(family, X, y, offset, noise_sd, intercept, prop, beta,
-                                     idx_ratio, cv_order, eta_star, f1_star, f2_star, diffs)
+                batch_residual_diffs(family, X, aux, noise_sd, intercept, delta_prop, delta,
+                                     idx_ratio, cv_order, diffs)
                 counters[CT_DATA_EVALS] += n_batch
                 est, var, skew, kurt = scaled_sum_and_variance(diffs, n_rows)
                 log_ratio = prior_diff + est
@@ -256,9 +262,8 @@ def run_chain(family, X, y, offset, noise_sd, intercept, prior_mean, prior_prec,
                                                        beta_star)
                 if var_mode == VAR_INDEPENDENT:
                     draw_batch(rng, n_rows, idx_ratio)
-                    batch_residual_diffs(family, X, y, offset, noise_sd, intercept, prop,
-                                         beta, idx_ratio, cv_order, eta_star, f1_star,
-                                         f2_star, diffs)
+                    batch_residual_diffs(family, X, aux, noise_sd, intercept, delta_prop,
+                                         delta, idx_ratio, cv_order, diffs)
                     counters[CT_DATA_EVALS] += n_batch
                     _, var, _, _ = scaled_sum_and_variance(diffs, n_rows)
                 elif var_mode == VAR_POOLED:

@@ -5,12 +5,13 @@ For a GLM, l_i depends on beta only through eta_i, which is linear in beta, so t
 in beta is the Taylor proxy of f in eta:
     q_i(beta) = f(eta*_i) + f'*_i (eta_i - eta*_i) + 1/2 f''*_i (eta_i - eta*_i)^2
 (METHODS.md section 4). ``cv_order`` is 0 (none), 1 or 2; the arrays eta*, f'*, f''* are
-cached once per run, together with g* = sum_i grad l_i(beta*) and H* = sum_i Hess l_i(beta*).
+cached once per run (the row cache below), together with g* = sum_i grad l_i(beta*) and
+H* = sum_i Hess l_i(beta*).
 """
 
 import math
 
-from .models._kernels import dloglik_eta, jit, linear_predictor, loglik_diff_eta
+from .models._kernels import dloglik_eta, jit, loglik_diff_eta, row_dot
 
 
 @jit
@@ -38,28 +39,49 @@ def add_prior_grad(prior_mean, prior_prec, beta, out):
         out[a] -= s
 
 
+# Row cache: aux[i] = (y_i, eta*_i, f'*_i, f''*_i), one 32-byte record per row, so a batch row
+# costs one cache line besides its row of X (separate arrays cost a cache miss each). eta*_i
+# includes the offset; eta_i(beta) = eta*_i + x_i . (beta - beta*) needs no offset array.
+# Without control variates beta* = 0 and eta*_i is the offset.
+AUX_Y = 0
+AUX_ETA = 1
+AUX_F1 = 2
+AUX_F2 = 3
+
+
 @jit
-def cv_gradient_rows(family, X, y, offset, noise_sd, intercept, beta, idx, cv_order,
-                     eta_star, f1_star, f2_star, out):
-    """out = sum over idx of [grad l_i(beta) - grad q_i(beta)] (out overwritten).
+def _eta_from_delta(X, aux, i, delta, intercept):
+    u = row_dot(X, i, delta[intercept:])
+    if intercept:
+        u += delta[0]
+    return aux[i, AUX_ETA] + u, u
+
+
+@jit
+def cv_gradient_rows(family, X, aux, noise_sd, intercept, delta, idx, cv_order, out):
+    """out = sum over idx of [grad l_i(beta) - grad q_i(beta)] (out overwritten), where
+    delta = beta - beta*.
 
     cv_order 0 gives the plain sum of gradients; 1 subtracts f'*_i x_i (Baker et al. 2019);
     2 also subtracts f''*_i (eta_i - eta*_i) x_i, the gradient of the second-order proxy.
     """
     p = X.shape[1]
+    g = out[intercept:]
     out[:] = 0.0
+    g0 = 0.0
     for k in range(idx.shape[0]):
         i = idx[k]
-        eta = linear_predictor(X, i, beta, intercept, offset)
-        r = dloglik_eta(family, eta, y[i], noise_sd)
+        eta, u = _eta_from_delta(X, aux, i, delta, intercept)
+        r = dloglik_eta(family, eta, aux[i, AUX_Y], noise_sd)
         if cv_order >= 1:
-            r -= f1_star[i]
+            r -= aux[i, AUX_F1]
         if cv_order >= 2:
-            r -= f2_star[i] * (eta - eta_star[i])
-        if intercept:
-            out[0] += r
+            r -= aux[i, AUX_F2] * u
+        g0 += r
         for j in range(p):
-            out[j + intercept] += r * X[i, j]
+            g[j] += r * X[i, j]
+    if intercept:
+        out[0] = g0
 
 
 @jit
@@ -92,20 +114,19 @@ def proxy_loglik_diff_sum(cv_order, g_star, H_star, beta_new, beta_old, beta_sta
 
 
 @jit
-def batch_residual_diffs(family, X, y, offset, noise_sd, intercept, beta_new, beta_old, idx,
-                         cv_order, eta_star, f1_star, f2_star, out):
-    """out[k] = D_i - [q_i(b') - q_i(b)] for i = idx[k], with D_i = l_i(b') - l_i(b)."""
+def batch_residual_diffs(family, X, aux, noise_sd, intercept, delta_new, delta_old, idx,
+                         cv_order, out):
+    """out[k] = D_i - [q_i(b') - q_i(b)] for i = idx[k], with D_i = l_i(b') - l_i(b) and
+    delta_new = b' - beta*, delta_old = b - beta*."""
     for k in range(idx.shape[0]):
         i = idx[k]
-        e1 = linear_predictor(X, i, beta_new, intercept, offset)
-        e0 = linear_predictor(X, i, beta_old, intercept, offset)
-        r = loglik_diff_eta(family, e1, e0, y[i], noise_sd)
+        e1, u1 = _eta_from_delta(X, aux, i, delta_new, intercept)
+        e0, u0 = _eta_from_delta(X, aux, i, delta_old, intercept)
+        r = loglik_diff_eta(family, e1, e0, aux[i, AUX_Y], noise_sd)
         if cv_order >= 1:
-            r -= f1_star[i] * (e1 - e0)
+            r -= aux[i, AUX_F1] * (u1 - u0)
         if cv_order >= 2:
-            u1 = e1 - eta_star[i]
-            u0 = e0 - eta_star[i]
-            r -= 0.5 * f2_star[i] * (u1 * u1 - u0 * u0)
+            r -= 0.5 * aux[i, AUX_F2] * (u1 * u1 - u0 * u0)
         out[k] = r
 
 

@@ -59,28 +59,44 @@ def make_preconditioner(mass_matrix, n_coef, laplace):
 
 @dataclass
 class ControlVariateCache:
-    """Per-row eta*, f'*, f''* and the sums g*, H* at the reference point beta* (O(N d^2) once)."""
+    """The row cache of the batch kernels and the proxy sums (O(N d^2) once).
+
+    ``aux[i] = (y_i, eta*_i, f'*_i, f''*_i)`` at the reference point ``beta_star`` (see
+    `_estimator_kernels`); ``g_star`` and ``H_star`` are the full-data gradient and Hessian of
+    the log-likelihood there. With ``order = 0`` (no control variates) beta* = 0, eta*_i is the
+    offset and the derivative columns are unused.
+    """
 
     order: int
     beta_star: np.ndarray
-    eta_star: np.ndarray
-    f1_star: np.ndarray
-    f2_star: np.ndarray
+    aux: np.ndarray
     g_star: np.ndarray
     H_star: np.ndarray
 
     @classmethod
     def empty(cls, n_coef):
-        e = np.zeros(1)
-        return cls(0, np.zeros(n_coef), e, e, e, np.zeros(n_coef), np.zeros((n_coef, n_coef)))
+        """Placeholder for full-data methods, which never read the row cache."""
+        return cls(0, np.zeros(n_coef), np.zeros((1, 4)), np.zeros(n_coef),
+                   np.zeros((n_coef, n_coef)))
+
+
+def row_cache(family, X, y, offset, noise_sd, intercept, beta_star):
+    """aux[i] = (y_i, eta_i, f'(eta_i), f''(eta_i)) at beta_star, for every row."""
+    n = X.shape[0]
+    eta, f1, f2 = np.empty(n), np.empty(n), np.empty(n)
+    _kernels.full_eta_derivatives(family, X, y, offset, noise_sd, intercept,
+                                  np.ascontiguousarray(beta_star, dtype=float), eta, f1, f2)
+    return np.ascontiguousarray(np.column_stack([y, eta, f1, f2]))
 
 
 def control_variate_cache(model, beta_star, order):
-    """Cache the Taylor proxies of every l_i around beta_star (METHODS.md section 4)."""
-    n = model.n_rows
-    eta, f1, f2 = np.empty(n), np.empty(n), np.empty(n)
-    beta_star = np.ascontiguousarray(beta_star, dtype=float)
-    _kernels.full_eta_derivatives(*model.kernel_args, beta_star, eta, f1, f2)
+    """Cache the Taylor proxies of every l_i around beta_star (METHODS.md section 4);
+    ``order = 0`` builds the plain row cache (beta* = 0) for runs without control variates."""
+    d = model.n_coef
+    beta_star = np.zeros(d) if order == 0 else np.ascontiguousarray(beta_star, dtype=float)
+    aux = row_cache(*model.kernel_args, beta_star)
+    if order == 0:
+        return ControlVariateCache(0, beta_star, aux, np.zeros(d), np.zeros((d, d)))
     _, g_star = model.log_likelihood_grad(beta_star)
-    H_star = model.log_likelihood_hessian(beta_star) if order >= 2 else np.zeros((model.n_coef,) * 2)
-    return ControlVariateCache(order, beta_star, eta, f1, f2, g_star, H_star)
+    H_star = model.log_likelihood_hessian(beta_star) if order >= 2 else np.zeros((d, d))
+    return ControlVariateCache(order, beta_star, aux, g_star, H_star)

@@ -211,8 +211,10 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
                     or step_size == "auto")
     laplace = find_mode(model) if need_laplace else None
     pre = make_preconditioner(mass_matrix, model.n_coef, laplace)
-    cache = (control_variate_cache(model, laplace.mode, cv_order) if cv
-             else ControlVariateCache.empty(model.n_coef))
+    if spec.minibatch:
+        cache = control_variate_cache(model, laplace.mode if cv else None, cv_order if cv else 0)
+    else:
+        cache = ControlVariateCache.empty(model.n_coef)
     starts = _initial_points(init, model, laplace, chains, rngs[0])
     setup_seconds = time.perf_counter() - t_setup
 
@@ -231,7 +233,7 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
     # Penalty methods aim at the exact-method rate times the share that the noise lets through
     # (see run_chain); target_log_ratio_sd caps the noise level used for that share.
     noise_cap = target_log_ratio_sd if spec.rule in (_acc.PENALTY, _acc.PENALTY_CD) else 0.0
-    runner = _Runner(model, spec, var_code, noise_cap, cache if cv else ControlVariateCache.empty(model.n_coef),
+    runner = _Runner(model, spec, var_code, noise_cap, cache,
                      pre, warmup, adapt_step, all_draws, all_stats, progress, parallel)
 
     t_sample = time.perf_counter()
@@ -304,7 +306,7 @@ class _Runner:
             _chain.run_chain(
                 *m.kernel_args, m.prior_mean, m.prior_prec,
                 s.proposal, s.gradient, s.ratio, s.rule, self.var_code, c.order,
-                c.beta_star, c.eta_star, c.f1_star, c.f2_star, c.g_star, c.H_star,
+                c.beta_star, c.aux, c.g_star, c.H_star,
                 p.mass, p.mass_inv, p.mass_inv_chol, int(n_batch), st.rng,
                 st.beta, st.cur_grad, st.cur_loglik, st.adapt, st.pooled, st.counters,
                 i0, n, self.warmup, self.adapt_step, s.target_accept, self.noise_cap,
