@@ -146,11 +146,13 @@ class _ChainState:
         self.counters = np.zeros(_chain.N_COUNTERS, dtype=np.int64)
         self.rng = rng
         self.iteration = 0
+        self.carried_ready = False
 
 
 def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
            control_variates=None, cv_order=2, chains=4, draws=2000, warmup=500, seed=None,
            mass_matrix="laplace", init="laplace", noise_variance="same-batch",
+           gradient_batch="fresh",
            target_log_ratio_sd=DEFAULT_TARGET_LOG_RATIO_SD, batch_floor=DEFAULT_BATCH_FLOOR,
            batch_ceiling=DEFAULT_BATCH_CEILING, progress=False, parallel=True):
     """Draw from the posterior of a regression model.
@@ -182,7 +184,12 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
         Starting points; "laplace" draws overdispersed points from the Laplace approximation.
     noise_variance : {"same-batch", "independent-batch", "pooled"}, default="same-batch"
         Where the variance of the minibatch log-ratio comes from: the batch of the estimate, an
-        independent batch of the same size, or a pooled mean over warmup, then frozen.
+        independent batch of the same size, or a pooled mean over the second half of warmup,
+        then frozen.
+    gradient_batch : {"fresh", "carried"}, default="fresh"
+        penalty-mala only. "fresh": a new gradient batch each step, used at both ends of the
+        proposal. "carried": the batch is part of the chain's state and the gradient at the
+        current point is reused (two batches per step instead of three); both are exact.
     target_log_ratio_sd, batch_floor, batch_ceiling : float, int, int
         Control of ``batch_size="auto"``.
     progress : bool, default=False
@@ -230,10 +237,17 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
     all_draws = np.zeros((chains, n_total, model.n_coef))
     all_stats = np.full((chains, n_total, _chain.N_STATS), np.nan)
     var_code = NOISE_VARIANCE.get(noise_variance, _chain.VAR_SAME)
+    if gradient_batch not in ("fresh", "carried"):
+        fail("gradient_batch", f"unknown value {gradient_batch!r}", 'use "fresh" or "carried"')
+    carried = gradient_batch == "carried"
+    if carried and not (spec.gradient == _chain.BATCH and spec.adjusted):
+        fail("gradient_batch", f'"carried" applies to penalty-mala, not {method}',
+             'use gradient_batch="fresh" or method="penalty-mala"')
     # Penalty methods aim at the exact-method rate times the share that the noise lets through
     # (see run_chain); target_log_ratio_sd caps the noise level used for that share.
     noise_cap = target_log_ratio_sd if spec.rule in (_acc.PENALTY, _acc.PENALTY_CD) else 0.0
-    runner = _Runner(model, spec, var_code, noise_cap, cache,
+    runner = _Runner(model, spec, _chain.CARRIED if carried else spec.gradient, var_code,
+                     noise_cap, cache,
                      pre, warmup, adapt_step, all_draws, all_stats, progress, parallel)
 
     t_sample = time.perf_counter()
@@ -262,6 +276,7 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
         "control_variates": cv,
         "cv_order": cv_order if cv else None,
         "noise_variance": noise_variance if spec.minibatch and spec.adjusted else None,
+        "gradient_batch": gradient_batch if spec.gradient == _chain.BATCH and spec.adjusted else None,
         "target_accept": spec.target_accept if adapt_step else None,
         "target_log_ratio_sd": target_log_ratio_sd if batch_size == "auto" and spec.minibatch else None,
         "chains": chains,
@@ -289,8 +304,9 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
 class _Runner:
     """Calls the kernel chunk by chunk for every chain, in threads."""
 
-    def __init__(self, model, spec, var_code, noise_cap, cache, pre, warmup, adapt_step,
-                 all_draws, all_stats, progress, parallel):
+    def __init__(self, model, spec, grad_code, var_code, noise_cap, cache, pre, warmup,
+                 adapt_step, all_draws, all_stats, progress, parallel):
+        self.grad_code = grad_code
         self.model, self.spec, self.var_code, self.cache, self.pre = model, spec, var_code, cache, pre
         self.noise_cap = noise_cap
         self.warmup, self.adapt_step = warmup, adapt_step
@@ -300,12 +316,18 @@ class _Runner:
 
     def _advance(self, st, chain, until, n_batch):
         m, s, c, p = self.model, self.spec, self.cache, self.pre
+        if self.grad_code == _chain.CARRIED and not st.carried_ready:
+            _chain.init_carried_gradient(m.family, m.X, c.aux, m.noise_sd, int(m.add_intercept),
+                                         m.prior_mean, m.prior_prec, c.order, c.beta_star,
+                                         c.g_star, c.H_star, int(n_batch), st.rng, st.beta,
+                                         st.cur_grad)
+            st.carried_ready = True
         while st.iteration < until and not self.stop.is_set():
             n = min(_CHUNK, until - st.iteration)
             i0 = st.iteration
             _chain.run_chain(
                 *m.kernel_args, m.prior_mean, m.prior_prec,
-                s.proposal, s.gradient, s.ratio, s.rule, self.var_code, c.order,
+                s.proposal, self.grad_code, s.ratio, s.rule, self.var_code, c.order,
                 c.beta_star, c.aux, c.g_star, c.H_star,
                 p.mass, p.mass_inv, p.mass_inv_chol, int(n_batch), st.rng,
                 st.beta, st.cur_grad, st.cur_loglik, st.adapt, st.pooled, st.counters,
