@@ -1,0 +1,90 @@
+"""`GaussianPrior.resolve`: mean vector, precision and covariance, and its input errors."""
+
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose, assert_array_equal
+
+import tallchain as tc
+from tallchain import InputError
+
+
+@pytest.fixture
+def rng():
+    return np.random.default_rng(1618)
+
+
+def test_default_is_isotropic_sd_10():
+    mean, prec, cov = tc.GaussianPrior().resolve(3)
+    assert_array_equal(mean, np.zeros(3))
+    assert_allclose(cov, 100.0 * np.eye(3), rtol=1e-15, atol=0)
+    assert_allclose(prec, 0.01 * np.eye(3), rtol=1e-15, atol=0)
+
+
+def test_isotropic_with_scalar_mean():
+    mean, prec, cov = tc.GaussianPrior(mean=1.5, sd=2.0).resolve(4)
+    assert_array_equal(mean, np.full(4, 1.5))
+    assert_allclose(cov, 4.0 * np.eye(4), rtol=1e-15, atol=0)
+    assert_allclose(prec, 0.25 * np.eye(4), rtol=1e-15, atol=0)
+
+
+def test_per_coefficient_sd_and_mean():
+    sd = [1.0, 0.5, 4.0]
+    mean, prec, cov = tc.GaussianPrior(mean=[0.0, -1.0, 2.0], sd=sd).resolve(3)
+    assert_array_equal(mean, [0.0, -1.0, 2.0])
+    assert_allclose(cov, np.diag(np.square(sd)), rtol=1e-15, atol=0)
+    assert_allclose(prec, np.diag(1.0 / np.square(sd)), rtol=1e-15, atol=0)
+
+
+def test_full_covariance(rng):
+    a = rng.normal(size=(4, 4))
+    cov_in = a @ a.T + 0.5 * np.eye(4)
+    mean, prec, cov = tc.GaussianPrior(mean=[1.0, 2.0, 3.0, 4.0], cov=cov_in, sd=-1.0).resolve(4)
+    assert_array_equal(cov, cov_in)  # sd is ignored when cov is given
+    assert_array_equal(prec, prec.T)
+    assert_allclose(prec @ cov_in, np.eye(4), rtol=0, atol=1e-12)
+    assert_allclose(prec, np.linalg.inv(cov_in), rtol=1e-10, atol=1e-12)
+    assert_array_equal(mean, [1.0, 2.0, 3.0, 4.0])
+
+
+def test_model_resolves_prior_with_intercept_first(rng):
+    X = rng.normal(size=(10, 2))
+    y = rng.normal(size=10)
+    model = tc.LinearRegression(X, y, prior=tc.GaussianPrior(sd=[5.0, 1.0, 2.0]))
+    assert_allclose(np.diag(model.prior_cov), [25.0, 1.0, 4.0], rtol=1e-15)
+    with pytest.raises(InputError, match=r"prior sd: has 3 entries, expected 1 or 2"):
+        tc.LinearRegression(X, y, add_intercept=False, prior=tc.GaussianPrior(sd=[5.0, 1.0, 2.0]))
+    with pytest.raises(InputError, match=r"prior: must be a GaussianPrior, got float"):
+        tc.LinearRegression(X, y, prior=10.0)
+
+
+@pytest.mark.parametrize(("prior", "n", "match"), [
+    (tc.GaussianPrior(sd=-1.0), 3, r"prior sd: must be > 0, got -1\.0; give positive"),
+    (tc.GaussianPrior(sd=0.0), 3, r"prior sd: must be > 0, got 0\.0"),
+    (tc.GaussianPrior(sd=[1.0, -2.0, 3.0]), 3, r"prior sd: must be > 0, got -2\.0"),
+    (tc.GaussianPrior(sd=[1.0, 2.0]), 3, r"prior sd: has 2 entries, expected 1 or 3"),
+    (tc.GaussianPrior(sd=np.ones((3, 1))), 3, r"prior sd: has 3 entries, expected 1 or 3"),
+    (tc.GaussianPrior(sd=[1.0, np.inf, 1.0]), 3, r"prior sd: contains NaN or inf"),
+    (tc.GaussianPrior(mean=[0.0, 1.0]), 3, r"prior mean: has 2 entries, expected 1 or 3"),
+    (tc.GaussianPrior(mean=np.nan), 2, r"prior mean: contains NaN or inf"),
+    (tc.GaussianPrior(cov=np.eye(2)), 3, r"prior cov: has shape \(2, 2\), expected \(3, 3\)"),
+    (tc.GaussianPrior(cov=[[1.0, 0.5], [0.0, 1.0]]), 2, r"prior cov: is not symmetric"),
+    (tc.GaussianPrior(cov=[[1.0, 2.0], [2.0, 1.0]]), 2, r"prior cov: is not positive definite"),
+    (tc.GaussianPrior(cov=[[1.0, 0.0], [0.0, 0.0]]), 2, r"prior cov: is not positive definite"),
+    (tc.GaussianPrior(cov=-np.eye(2)), 2, r"prior cov: is not positive definite"),
+], ids=["negative-sd", "zero-sd", "one-negative-sd", "short-sd", "2d-sd", "inf-sd", "short-mean",
+        "nan-mean", "cov-shape", "cov-asymmetric", "cov-indefinite", "cov-singular",
+        "cov-negative"])
+def test_resolve_errors(prior, n, match):
+    with pytest.raises(InputError, match=match):
+        prior.resolve(n)
+
+
+def test_nan_in_covariance_is_rejected():
+    # rejected, though the message says "not symmetric" rather than naming the NaN
+    with pytest.raises(InputError, match=r"prior cov: is not symmetric"):
+        tc.GaussianPrior(cov=[[1.0, np.nan], [np.nan, 1.0]]).resolve(2)
+
+
+def test_repr_names_the_parameters():
+    assert repr(tc.GaussianPrior(sd=2.0)) == "GaussianPrior(mean=0.0, sd=2.0)"
+    assert repr(tc.GaussianPrior(cov=np.eye(3))) == "GaussianPrior(mean=0.0, cov=<(3, 3) matrix>)"
