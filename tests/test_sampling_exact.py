@@ -33,7 +33,7 @@ import numpy as np
 import pytest
 
 import tallchain as tc
-from tallchain import _chain, sampling
+from tallchain import _chain, _driver, sampling
 from tallchain.diagnostics import ess_bulk, ks_check
 from tallchain.sampling import NoisyLogRatioWarning
 
@@ -217,7 +217,7 @@ def test_data_evaluations_one_pass_per_iteration(run_name, request):
 @pytest.mark.parametrize("method", ["mala", "rwm", WRONG_MALA])
 @pytest.mark.parametrize(("chains", "warmup", "draws"), [(1, 0, 7), (3, 137, 253)])
 def test_data_evaluations_exact_count(method, chains, warmup, draws):
-    # Odd sizes; 390 iterations span two kernel chunks (sampling._CHUNK = 256).
+    # Odd sizes; 390 iterations span two kernel chunks (_driver.CHUNK = 256).
     rng = np.random.default_rng(5)
     X = rng.standard_normal((301, 2))
     y = X @ [0.5, -1.0] + rng.standard_normal(301)
@@ -325,7 +325,7 @@ def test_chunk_length_does_not_change_draws(small_logistic, method, monkeypatch)
     # The kernel keeps all state in its arrays, so cutting the run into other chunks (a private
     # setting, patched here) must not change a bit (_chain module docstring).
     a = tc.sample(small_logistic, method=method, seed=123, **REPRO)
-    monkeypatch.setattr(sampling, "_CHUNK", 37)
+    monkeypatch.setattr(_driver, "CHUNK", 37)
     b = tc.sample(small_logistic, method=method, seed=123, **REPRO)
     _assert_same_run(a, b)
 

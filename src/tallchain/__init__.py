@@ -11,7 +11,7 @@ from .conjugate import GaussianPosterior, conjugate_posterior
 from .mode import LaplaceApproximation, ModeNotFoundError, find_mode
 from .models import GaussianPrior, LinearRegression, LogisticRegression, PoissonRegression
 from .result import SampleResult
-from .sampling import NoisyLogRatioWarning, sample
+from .sampling import NoisyLogRatioWarning, SamplingInterrupted, sample
 from ._validation import InputError
 
 try:
@@ -29,6 +29,7 @@ __all__ = [
     "sample",
     "SampleResult",
     "NoisyLogRatioWarning",
+    "SamplingInterrupted",
     # exact and approximate posteriors
     "conjugate_posterior",
     "GaussianPosterior",

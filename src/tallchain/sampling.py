@@ -1,16 +1,14 @@
 """The public entry point `sample`: validation, set-up, warmup, many chains."""
 
 import math
-import os
-import threading
 import time
 import warnings
-from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 
 from . import _acceptance_kernels as _acc
 from . import _chain
+from . import _driver
 from ._methods import BROKEN_METHODS, METHODS, NOISE_VARIANCE
 from ._preconditioning import ControlVariateCache, control_variate_cache, make_preconditioner
 from ._validation import fail, positive_int
@@ -23,11 +21,24 @@ DEFAULT_TARGET_LOG_RATIO_SD = 1.0
 DEFAULT_BATCH_FLOOR = 32
 DEFAULT_BATCH_CEILING = 100_000
 _PILOT_BATCH = 64
-_CHUNK = 256
 
 
 class NoisyLogRatioWarning(UserWarning):
     """The minibatch log-ratio is too noisy or too far from Gaussian for the penalty method."""
+
+
+class SamplingInterrupted(KeyboardInterrupt):
+    """The run was interrupted (Ctrl-C or SIGTERM); ``result`` holds every completed draw.
+
+    When a checkpoint path was given, the checkpoint is written before this is raised, and
+    ``sample(..., checkpoint=path, resume=True)`` continues the run; the final draws are
+    bitwise identical to those of an uninterrupted run with the same seed.
+    """
+
+    def __init__(self, result, checkpoint):
+        super().__init__(f"interrupted after {result.completed_draws} draws per chain")
+        self.result = result
+        self.checkpoint = checkpoint
 
 
 def _resolve_seed(seed, n_children):
@@ -132,27 +143,10 @@ def _default_step(spec, pre, laplace, n_coef):
     return h
 
 
-class _ChainState:
-    """Everything one chain carries between kernel calls (also what a checkpoint stores)."""
-
-    def __init__(self, start, n_coef, log_h, adapt_mu, rng):
-        self.beta = np.array(start, dtype=float)
-        self.cur_grad = np.zeros(n_coef)
-        self.cur_loglik = np.zeros(1)
-        self.adapt = np.zeros(_chain.N_ADAPT)
-        self.adapt[_chain.AD_LOG_H] = log_h
-        self.adapt[_chain.AD_MU] = adapt_mu
-        self.pooled = np.zeros(2)
-        self.counters = np.zeros(_chain.N_COUNTERS, dtype=np.int64)
-        self.rng = rng
-        self.iteration = 0
-        self.carried_ready = False
-
-
 def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
            control_variates=None, cv_order=2, chains=4, draws=2000, warmup=500, seed=None,
            mass_matrix="laplace", init="laplace", noise_variance="same-batch",
-           gradient_batch="fresh",
+           gradient_batch="fresh", checkpoint=None, resume=False, checkpoint_seconds=30.0,
            target_log_ratio_sd=DEFAULT_TARGET_LOG_RATIO_SD, batch_floor=DEFAULT_BATCH_FLOOR,
            batch_ceiling=DEFAULT_BATCH_CEILING, progress=False, parallel=True):
     """Draw from the posterior of a regression model.
@@ -192,6 +186,12 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
         current point is reused (two batches per step instead of three); both are exact.
     target_log_ratio_sd, batch_floor, batch_ceiling : float, int, int
         Control of ``batch_size="auto"``.
+    checkpoint : path, optional
+        File (.npz) to which the run's state is written every ``checkpoint_seconds``, at the
+        end, and when the run is interrupted.
+    resume : bool, default=False
+        Continue from ``checkpoint``; the settings must be those of the interrupted run.
+    checkpoint_seconds : float, default=30.0
     progress : bool, default=False
         Show a progress bar (only on a terminal).
     parallel : bool, default=True
@@ -200,6 +200,11 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
     Returns
     -------
     SampleResult
+
+    Raises
+    ------
+    SamplingInterrupted
+        On Ctrl-C: carries the result with every completed draw (and the checkpoint written).
 
     References
     ----------
@@ -227,8 +232,8 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
 
     h0 = _default_step(spec, pre, laplace, model.n_coef) if step_size == "auto" else float(step_size)
     adapt_step = step_size == "auto"
-    states = [_ChainState(starts[c], model.n_coef, math.log(h0), math.log(10.0 * h0), rngs[c + 1])
-              for c in range(chains)]
+    states = [_driver.ChainState(starts[c], model.n_coef, math.log(h0), math.log(10.0 * h0),
+                                 rngs[c + 1]) for c in range(chains)]
     needs_full_state = spec.adjusted and spec.ratio == _chain.FULL
     for st in states if needs_full_state else ():
         _chain.init_full_state(*model.kernel_args, model.prior_mean, model.prior_prec, st.beta,
@@ -246,16 +251,38 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
     # Penalty methods aim at the exact-method rate times the share that the noise lets through
     # (see run_chain); target_log_ratio_sd caps the noise level used for that share.
     noise_cap = target_log_ratio_sd if spec.rule in (_acc.PENALTY, _acc.PENALTY_CD) else 0.0
-    runner = _Runner(model, spec, _chain.CARRIED if carried else spec.gradient, var_code,
-                     noise_cap, cache,
-                     pre, warmup, adapt_step, all_draws, all_stats, progress, parallel)
+    runner = _driver.Runner(model, spec, _chain.CARRIED if carried else spec.gradient, var_code,
+                            noise_cap, cache, pre, warmup, adapt_step, all_draws, all_stats,
+                            progress, parallel)
+    schedule = _driver.Schedule(spec, batch_size, model.n_rows, warmup, draws,
+                                target_log_ratio_sd, batch_floor, batch_ceiling, _PILOT_BATCH)
+    ckpt = None
+    after_warmup = None
+    if checkpoint is not None:
+        identity = {"method": method, "step_size": str(step_size), "batch_size": str(batch_size),
+                    "control_variates": cv, "cv_order": cv_order, "chains": chains,
+                    "draws": draws, "warmup": warmup, "seed": repr(seed),
+                    "mass_matrix": str(mass_matrix) if isinstance(mass_matrix, str) else "given",
+                    "noise_variance": noise_variance, "gradient_batch": gradient_batch,
+                    "target_log_ratio_sd": float(target_log_ratio_sd),
+                    "n_rows": model.n_rows, "n_coef": model.n_coef, "family": model.family_name}
+        ckpt = _driver.Checkpoint(checkpoint, identity)
+        if resume:
+            after_warmup = ckpt.restore(states, schedule, runner)
+    elif resume:
+        fail("resume", "needs a checkpoint path", "pass checkpoint=<file> (the CLI does this)")
 
     t_sample = time.perf_counter()
-    chosen_batch = _resolve_batch(spec, batch_size, model, runner, states, warmup,
-                                  target_log_ratio_sd, batch_floor, batch_ceiling)
-    runner.run(states, warmup, chosen_batch)
-    after_warmup = np.sum([st.counters for st in states], axis=0)
-    runner.run(states, n_total, chosen_batch)
+    interrupted = False
+    try:
+        after_warmup = _driver.drive(runner, states, schedule, checkpoint=ckpt,
+                                     checkpoint_seconds=checkpoint_seconds,
+                                     after_warmup=after_warmup)
+    except _driver.Interrupted:
+        interrupted = True
+    if after_warmup is None:
+        after_warmup = np.zeros(_chain.N_COUNTERS, dtype=np.int64)
+    chosen_batch = schedule.n_batch
     sampling_seconds = time.perf_counter() - t_sample
 
     done = min(st.iteration for st in states)
@@ -297,121 +324,10 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
                        "cd_fallback": int(after_warmup[_chain.CT_CD_FALLBACK])},
         setup_seconds=setup_seconds, sampling_seconds=sampling_seconds,
         completed_draws=n_done, laplace_mode=None if laplace is None else laplace.mode)
+    if interrupted:
+        raise SamplingInterrupted(result, checkpoint)
     _noise_advice(result, spec)
     return result
-
-
-class _Runner:
-    """Calls the kernel chunk by chunk for every chain, in threads."""
-
-    def __init__(self, model, spec, grad_code, var_code, noise_cap, cache, pre, warmup,
-                 adapt_step, all_draws, all_stats, progress, parallel):
-        self.grad_code = grad_code
-        self.model, self.spec, self.var_code, self.cache, self.pre = model, spec, var_code, cache, pre
-        self.noise_cap = noise_cap
-        self.warmup, self.adapt_step = warmup, adapt_step
-        self.all_draws, self.all_stats = all_draws, all_stats
-        self.progress, self.parallel = progress, parallel
-        self.stop = threading.Event()
-
-    def _advance(self, st, chain, until, n_batch):
-        m, s, c, p = self.model, self.spec, self.cache, self.pre
-        if self.grad_code == _chain.CARRIED and not st.carried_ready:
-            _chain.init_carried_gradient(m.family, m.X, c.aux, m.noise_sd, int(m.add_intercept),
-                                         m.prior_mean, m.prior_prec, c.order, c.beta_star,
-                                         c.g_star, c.H_star, int(n_batch), st.rng, st.beta,
-                                         st.cur_grad)
-            st.carried_ready = True
-        while st.iteration < until and not self.stop.is_set():
-            n = min(_CHUNK, until - st.iteration)
-            i0 = st.iteration
-            _chain.run_chain(
-                *m.kernel_args, m.prior_mean, m.prior_prec,
-                s.proposal, self.grad_code, s.ratio, s.rule, self.var_code, c.order,
-                c.beta_star, c.aux, c.g_star, c.H_star,
-                p.mass, p.mass_inv, p.mass_inv_chol, int(n_batch), st.rng,
-                st.beta, st.cur_grad, st.cur_loglik, st.adapt, st.pooled, st.counters,
-                i0, n, self.warmup, self.adapt_step, s.target_accept, self.noise_cap,
-                self.all_draws[chain, i0:i0 + n], self.all_stats[chain, i0:i0 + n])
-            st.iteration += n
-            if self._bar is not None:
-                self._bar.update(n)
-
-    def run(self, states, until, n_batch):
-        total = sum(max(0, until - st.iteration) for st in states)
-        self._bar = None
-        if self.progress and total and os.isatty(2):
-            from tqdm import tqdm
-
-            self._bar = tqdm(total=total, unit="it", desc=self.spec.name, leave=False)
-        try:
-            if self.parallel and len(states) > 1:
-                workers = min(len(states), os.cpu_count() or 1)
-                with ThreadPoolExecutor(max_workers=workers) as pool:
-                    futures = [pool.submit(self._advance, st, c, until, n_batch)
-                               for c, st in enumerate(states)]
-                    try:
-                        for f in futures:
-                            f.result()
-                    except BaseException:
-                        self.stop.set()
-                        raise
-            else:
-                for c, st in enumerate(states):
-                    self._advance(st, c, until, n_batch)
-        finally:
-            if self._bar is not None:
-                self._bar.close()
-
-
-def _resolve_batch(spec, batch_size, model, runner, states, warmup, target_sd, floor, ceiling):
-    """Return the batch size used after warmup.
-
-    For "auto": three pilot phases of warmup/5 iterations each, after each of which n is set so
-    that the log-ratio variance N^2 (1 - n/N) S^2 / n meets target_sd^2 (S^2 estimated from the
-    phase's second half) and the step tuning restarts; the rest of warmup tunes the step at that
-    n; a last correction of n from the final part of warmup fixes the batch used for the draws
-    (the kernel is fixed from then on, so the chain stays valid). Runs warmup as a side effect.
-    """
-    n_rows = model.n_rows
-    if not spec.minibatch:
-        return 1
-    if batch_size != "auto":
-        return int(batch_size)
-    floor = min(max(2, int(floor)), n_rows)
-    ceiling = max(floor, min(int(ceiling), n_rows))
-    n = int(np.clip(_PILOT_BATCH, floor, ceiling))
-    if spec.ratio != _chain.BATCH:
-        return n  # SGLD: no log-ratio to control; the floor-clipped pilot size is used
-    phase = warmup // 5
-    ends = [phase, 2 * phase, 3 * phase, warmup]
-    for k, end in enumerate(ends):
-        start = states[0].iteration
-        runner.run(states, end, n)
-        n = _batch_for_target(runner.all_stats[:, (start + end) // 2:end, _chain.ST_LOG_RATIO_SD],
-                              n, n_rows, target_sd, floor, ceiling)
-        if k < 3:
-            for st in states:
-                _restart_step_adaptation(st)
-    return n
-
-
-def _batch_for_target(sd, n, n_rows, target_sd, floor, ceiling):
-    """Solve N^2 (1 - m/N) S^2 / m = target^2 for m, with S^2 from the variances seen at n."""
-    var = float(np.nanmean(sd**2)) if np.isfinite(sd).any() else 0.0
-    s2 = var * n / (n_rows**2 * (1.0 - n / n_rows)) if n < n_rows else 0.0
-    need = n_rows**2 * s2 / (target_sd**2 + n_rows * s2) if s2 > 0 else floor
-    return int(np.clip(math.ceil(need), floor, ceiling))
-
-
-def _restart_step_adaptation(st):
-    """Restart dual averaging from the current averaged step (the noise level just changed)."""
-    if st.adapt[_chain.AD_COUNT] > 0:
-        log_h = st.adapt[_chain.AD_LOG_HBAR]
-        st.adapt[:] = 0.0
-        st.adapt[_chain.AD_LOG_H] = log_h
-        st.adapt[_chain.AD_MU] = log_h + math.log(10.0)
-    st.pooled[:] = 0.0
 
 
 def _noise_advice(result, spec):
