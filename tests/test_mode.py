@@ -104,12 +104,12 @@ def test_too_few_iterations_raise_with_advice(rng):
         tc.find_mode(tc.LogisticRegression(X, y, prior=FLAT), max_iter=2)
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "find_mode does not detect separation: with prior sd 1e8 L-BFGS meets its relative gradient "
-    "tolerance at a huge slope (about 876 here) and returns a 'converged' mode whose Laplace "
-    "precision is ~1e-8; reported to the lead"))
 def test_separated_logistic_data_with_flat_prior_raise():
     x = np.linspace(-1.0, 1.0, 50)[:, None]
     y = (x[:, 0] > 0).astype(float)  # perfectly separated: the MLE does not exist
     with pytest.raises(tc.ModeNotFoundError, match="separation"):
         tc.find_mode(tc.LogisticRegression(x, y, prior=tc.GaussianPrior(sd=1e8)))
+    # Power check of the guard's other side: an informative prior makes the posterior proper,
+    # and the same data then have a mode (no error).
+    lap = tc.find_mode(tc.LogisticRegression(x, y, prior=tc.GaussianPrior(sd=2.5)))
+    assert np.all(np.isfinite(lap.mode)) and abs(lap.mode[1]) < 25
