@@ -192,6 +192,8 @@ def drive(runner, states, schedule, *, checkpoint=None, checkpoint_seconds=30.0,
                         if checkpoint is not None:
                             checkpoint.write(states, schedule, runner, after_warmup)
                         raise
+                    if runner.bar is not None:
+                        _show_progress(runner, states)
                     if checkpoint is not None and time.monotonic() - last_write > checkpoint_seconds:
                         checkpoint.write(states, schedule, runner, after_warmup)
                         last_write = time.monotonic()
@@ -207,6 +209,18 @@ def drive(runner, states, schedule, *, checkpoint=None, checkpoint_seconds=30.0,
     if checkpoint is not None:
         checkpoint.write(states, schedule, runner, after_warmup)
     return after_warmup
+
+
+def _show_progress(runner, states):
+    """Acceptance and log-ratio sd over the last round, beside the bar's iterations per second."""
+    hi = min(st.iteration for st in states)
+    lo = max(0, hi - ROUND)
+    recent = runner.all_stats[:, lo:hi]
+    acc = float(np.nanmean(recent[:, :, _chain.ST_ACCEPTED])) if hi > lo else float("nan")
+    sd = recent[:, :, _chain.ST_LOG_RATIO_SD]
+    sd = float(np.nanmean(sd)) if np.isfinite(sd).any() else float("nan")
+    phase = "warmup" if hi < runner.warmup else "sampling"
+    runner.bar.set_postfix_str(f"{phase} acc={acc:.2f} log-ratio sd={sd:.3g}", refresh=False)
 
 
 class Checkpoint:
