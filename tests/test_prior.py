@@ -80,8 +80,7 @@ def test_resolve_errors(prior, n, match):
 
 
 def test_nan_in_covariance_is_rejected():
-    # rejected, though the message says "not symmetric" rather than naming the NaN
-    with pytest.raises(InputError, match=r"prior cov: is not symmetric"):
+    with pytest.raises(InputError, match=r"prior cov: contains NaN or inf"):
         tc.GaussianPrior(cov=[[1.0, np.nan], [np.nan, 1.0]]).resolve(2)
 
 

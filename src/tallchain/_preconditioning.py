@@ -4,7 +4,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._validation import fail
+from ._validation import fail, spd_matrix_and_inverse
 from .models import _kernels
 
 
@@ -38,19 +38,8 @@ def make_preconditioner(mass_matrix, n_coef, laplace):
         mass = inv_chol.T @ inv_chol
     else:
         kind = "given"
-        mass = np.array(mass_matrix, dtype=float)
-        if mass.shape != (n_coef, n_coef):
-            fail("mass_matrix", f"has shape {mass.shape}, expected ({n_coef}, {n_coef})",
-                 "give one row and column per coefficient")
-        if not np.all(np.isfinite(mass)) or not np.allclose(mass, mass.T):
-            fail("mass_matrix", "is not symmetric", "give a symmetric positive definite matrix")
-        try:
-            mchol = np.linalg.cholesky(mass)
-        except np.linalg.LinAlgError:
-            fail("mass_matrix", "is not positive definite",
-                 "give a symmetric positive definite matrix")
-        minv_chol = np.linalg.inv(mchol)
-        mass_inv = minv_chol.T @ minv_chol
+        mass, mass_inv = spd_matrix_and_inverse("mass_matrix", mass_matrix, n_coef,
+                                                "give one row and column per coefficient")
         chol = np.linalg.cholesky(0.5 * (mass_inv + mass_inv.T))
     return Preconditioner(kind, np.ascontiguousarray(0.5 * (mass + mass.T)),
                           np.ascontiguousarray(0.5 * (mass_inv + mass_inv.T)),

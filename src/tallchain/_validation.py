@@ -35,3 +35,22 @@ def positive_int(name, value, minimum=1):
     if value < minimum:
         fail(name, f"must be >= {minimum}, got {value}", f"give an integer >= {minimum}")
     return int(value)
+
+
+def spd_matrix_and_inverse(field, value, n, fix_shape):
+    """Check that ``value`` is a finite symmetric positive definite (n, n) matrix; return it
+    (symmetrised) with its inverse, computed through the Cholesky factor."""
+    m = np.array(value, dtype=float)
+    if m.shape != (n, n):
+        fail(field, f"has shape {m.shape}, expected ({n}, {n})", fix_shape)
+    if not np.all(np.isfinite(m)):
+        fail(field, "contains NaN or inf", "give finite values")
+    if not np.allclose(m, m.T, rtol=1e-10, atol=1e-12):
+        fail(field, "is not symmetric", "give a symmetric positive definite matrix")
+    try:
+        chol = np.linalg.cholesky(m)
+    except np.linalg.LinAlgError:
+        fail(field, "is not positive definite", "give a symmetric positive definite matrix")
+    inv_chol = np.linalg.inv(chol)
+    inv = inv_chol.T @ inv_chol
+    return 0.5 * (m + m.T), 0.5 * (inv + inv.T)

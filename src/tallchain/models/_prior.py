@@ -2,7 +2,7 @@
 
 import numpy as np
 
-from .._validation import fail
+from .._validation import fail, spd_matrix_and_inverse
 
 
 class GaussianPrior:
@@ -38,20 +38,10 @@ class GaussianPrior:
         """Return (mean vector, precision matrix, covariance matrix) for ``n_coef`` coefficients."""
         mean = _vector("prior mean", self.mean, n_coef)
         if self.cov is not None:
-            cov = np.array(self.cov, dtype=float)
-            if cov.shape != (n_coef, n_coef):
-                fail("prior cov", f"has shape {cov.shape}, expected ({n_coef}, {n_coef})",
-                     "give one row and column per coefficient (intercept first)")
-            if not np.all(np.isfinite(cov)) or not np.allclose(cov, cov.T, rtol=1e-10, atol=1e-12):
-                fail("prior cov", "is not symmetric", "give a symmetric positive definite matrix")
-            try:
-                chol = np.linalg.cholesky(cov)
-            except np.linalg.LinAlgError:
-                fail("prior cov", "is not positive definite",
-                     "give a symmetric positive definite matrix")
-            inv_chol = np.linalg.inv(chol)
-            prec = inv_chol.T @ inv_chol
-            return mean, 0.5 * (prec + prec.T), cov
+            cov, prec = spd_matrix_and_inverse(
+                "prior cov", self.cov, n_coef,
+                "give one row and column per coefficient (intercept first)")
+            return mean, prec, cov
         sd = _vector("prior sd", self.sd, n_coef)
         if np.any(sd <= 0):
             fail("prior sd", f"must be > 0, got {sd.min()}", "give positive standard deviations")
