@@ -19,7 +19,7 @@ $(VENV)/bin/python:
 
 $(STAMP): $(VENV)/bin/python pyproject.toml
 	$(VPY) -m pip install --quiet --upgrade pip
-	$(VPY) -m pip install --quiet -e '.[test]'
+	$(VPY) -m pip install --quiet -e '.[test,distributed]'
 	@touch $(STAMP)
 
 venv install: $(STAMP)

@@ -7,10 +7,8 @@ calibrated the ranks are uniform on {0, ..., L} (Talts, Betancourt, Simpson, Veh
 "Validating Bayesian inference algorithms with simulation-based calibration", 2018).
 """
 
-import multiprocessing
 import os
 import warnings
-from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass
 
 import numpy as np
@@ -132,22 +130,13 @@ def _replicate(model, prior, n_draws, seed, settings):
     return np.sum(flat[pick] < beta, axis=0)
 
 
-_WORKER = None
-
-
-def _init(model, prior, n_draws, settings):
-    global _WORKER
-    _WORKER = (model, prior, n_draws, settings)
-    warnings.simplefilter("ignore")
-
-
-def _run_in_worker(args):
-    i, seed = args
-    return i, _replicate(*_WORKER[:3], seed, _WORKER[3])
+def _replicate_task(shared, seed):
+    model, prior, n_draws, settings = shared
+    return _replicate(model, prior, n_draws, seed, settings)
 
 
 def calibrate(model, *, replications=100, draws=99, prior="laplace", level=0.05, n_bins=10,
-              seed=1, workers=None, progress=False, **settings):
+              seed=1, workers=None, scheduler="processes", progress=False, **settings):
     """Simulation-based calibration of a sampler setting on the model's X.
 
     Parameters
@@ -169,6 +158,8 @@ def calibrate(model, *, replications=100, draws=99, prior="laplace", level=0.05,
         Replication r gets child r of SeedSequence(seed): results do not depend on workers.
     workers : int, optional
         Worker processes (default: the number of cores).
+    scheduler : str or distributed.Client, default="processes"
+        Where replications run: see `tallchain.executors`.
     **settings
         `tallchain.sample` settings (method, step_size, batch_size, chains, ...).
 
@@ -187,35 +178,31 @@ def calibrate(model, *, replications=100, draws=99, prior="laplace", level=0.05,
         cal_prior = model.prior
     else:
         fail("prior", f"unknown calibration prior {prior!r}", 'use "laplace" or "model"')
+    from .executors import check_scheduler, run_tasks
+
+    check_scheduler(scheduler)
     seeds = np.random.SeedSequence(seed).spawn(replications)
     n_workers = min(replications, workers or os.cpu_count() or 1)
     settings = dict(settings)
     settings.setdefault("chains", 2)
     settings.setdefault("draws", 500)
     settings.setdefault("warmup", 300)
-    settings["parallel"] = n_workers == 1
+    settings["parallel"] = scheduler == "serial" or (scheduler == "processes" and n_workers == 1)
     ranks = np.zeros((replications, model.n_coef), dtype=np.int64)
     bar = None
     if progress and os.isatty(2):
         from tqdm import tqdm
 
         bar = tqdm(total=replications, unit="rep", desc="calibrate", leave=False)
+
+    def _done(i, rk):
+        ranks[i] = rk
+        if bar is not None:
+            bar.update(1)
+
     try:
-        if n_workers == 1:
-            for i, s in enumerate(seeds):
-                ranks[i] = _replicate(model, cal_prior, draws, s, settings)
-                if bar is not None:
-                    bar.update(1)
-        else:
-            ctx = multiprocessing.get_context("forkserver")
-            with ProcessPoolExecutor(n_workers, mp_context=ctx, initializer=_init,
-                                     initargs=(model, cal_prior, draws, settings)) as pool:
-                futures = [pool.submit(_run_in_worker, (i, s)) for i, s in enumerate(seeds)]
-                for f in as_completed(futures):
-                    i, rk = f.result()
-                    ranks[i] = rk
-                    if bar is not None:
-                        bar.update(1)
+        run_tasks(_replicate_task, (model, cal_prior, draws, settings), seeds,
+                  scheduler=scheduler, workers=n_workers, on_result=_done)
     finally:
         if bar is not None:
             bar.close()

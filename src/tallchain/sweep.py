@@ -2,11 +2,9 @@
 
 import hashlib
 import math
-import multiprocessing
 import os
 import time
 import warnings
-from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -95,15 +93,6 @@ def reference_draws(model, *, cache_dir=None, draws=20_000, seed=0):
     return flat
 
 
-_WORKER_MODEL = None
-
-
-def _init_worker(model):
-    global _WORKER_MODEL
-    _WORKER_MODEL = model
-    warnings.simplefilter("ignore")
-
-
 def _run_point(model, reference, tolerance, method, step, batch, seed, settings):
     from .sampling import sample
 
@@ -112,10 +101,7 @@ def _run_point(model, reference, tolerance, method, step, batch, seed, settings)
         warnings.simplefilter("ignore")
         r = sample(model, method=method, step_size=step, batch_size=batch, seed=seed, **settings)
     seconds = time.perf_counter() - t
-    if isinstance(reference, np.ndarray):
-        k = ks_check(r.draws, reference, tolerance=tolerance)
-    else:
-        k = ks_check(r.draws, reference, tolerance=tolerance)
+    k = ks_check(r.draws, reference, tolerance=tolerance)
     finite = bool(np.all(np.isfinite(r.draws)))
     ratio = np.where(np.isfinite(k.ratio), k.ratio, np.inf)
     j = int(np.argmax(ratio))
@@ -141,13 +127,16 @@ def _run_point(model, reference, tolerance, method, step, batch, seed, settings)
     }
 
 
-def _run_point_in_worker(args):
-    return args[0], _run_point(_WORKER_MODEL, *args[1:])
+def _sweep_task(shared, task):
+    model, reference, tolerance, settings = shared
+    method, step, batch, seed = task
+    return _run_point(model, reference, tolerance, method, step, batch, seed, settings)
 
 
 def sweep(model, *, methods=("penalty-mala", "sgld"), step_sizes=None, batch_sizes=None,
           chains=4, draws=2000, warmup=500, seed=1, tolerance=1.5, workers=None,
-          cache_dir=None, progress=False, on_row=None, **settings):
+          scheduler="processes", cache_dir=None, progress=False, on_row=None, done_rows=None,
+          **settings):
     """Run a grid of (method, step size, batch size) and measure bias against cost.
 
     Parameters
@@ -169,10 +158,14 @@ def sweep(model, *, methods=("penalty-mala", "sgld"), step_sizes=None, batch_siz
         most ``tolerance`` times its floor.
     workers : int, optional
         Worker processes (default: the number of cores, at most the number of points).
+    scheduler : str or distributed.Client, default="processes"
+        Where grid points run: see `tallchain.executors`.
     cache_dir : path, optional
         Where the reference run of a non-conjugate model is cached.
     on_row : callable, optional
         Called with each finished row (e.g. to write it out at once).
+    done_rows : list of dict, optional
+        Rows of an interrupted sweep over the same grid: those points are not run again.
     **settings
         Further `tallchain.sample` settings held fixed across the grid.
 
@@ -213,39 +206,39 @@ def sweep(model, *, methods=("penalty-mala", "sgld"), step_sizes=None, batch_siz
         reference, ref_kind = reference_draws(model, cache_dir=cache_dir, seed=seed), \
             "full-data mala run (cached)"
 
+    from .executors import check_scheduler, run_tasks
+
+    check_scheduler(scheduler)
     seeds = np.random.SeedSequence(seed).spawn(len(grid))
     n_workers = min(len(grid), workers or os.cpu_count() or 1)
-    point_settings = dict(settings, chains=chains, draws=draws, warmup=warmup,
-                          parallel=n_workers == 1)
+    local = scheduler == "serial" or (scheduler == "processes" and n_workers == 1)
+    point_settings = dict(settings, chains=chains, draws=draws, warmup=warmup, parallel=local)
     rows = [None] * len(grid)
+    known = {(r["method"], r["step_size"], r["batch_size"]): r for r in (done_rows or [])}
+    todo = []
+    for i, (m, h, n) in enumerate(grid):
+        key = (m, h, n if METHODS[m].minibatch else None)
+        if key in known:
+            rows[i] = known[key]
+        else:
+            todo.append(i)
     bar = None
     if progress and os.isatty(2):
         from tqdm import tqdm
 
-        bar = tqdm(total=len(grid), unit="point", desc="sweep", leave=False)
+        bar = tqdm(total=len(todo), unit="point", desc="sweep", leave=False)
 
-    def _done(i, row):
-        rows[i] = row
+    def _done(k, row):
+        rows[todo[k]] = row
         if on_row is not None:
             on_row(row)
         if bar is not None:
             bar.update(1)
 
+    tasks = [(grid[i][0], grid[i][1], grid[i][2] or 2, seeds[i]) for i in todo]
     try:
-        if n_workers == 1:
-            for i, (m, h, n) in enumerate(grid):
-                _done(i, _run_point(model, reference, tolerance, m, h, n or 2, seeds[i],
-                                    point_settings))
-        else:
-            ctx = multiprocessing.get_context("forkserver")
-            with ProcessPoolExecutor(n_workers, mp_context=ctx, initializer=_init_worker,
-                                     initargs=(model,)) as pool:
-                futures = [pool.submit(_run_point_in_worker,
-                                       (i, reference, tolerance, m, h, n or 2, seeds[i],
-                                        point_settings))
-                           for i, (m, h, n) in enumerate(grid)]
-                for f in as_completed(futures):
-                    _done(*f.result())
+        run_tasks(_sweep_task, (model, reference, tolerance, point_settings), tasks,
+                  scheduler=scheduler, workers=n_workers, on_result=_done)
     finally:
         if bar is not None:
             bar.close()

@@ -1,0 +1,54 @@
+"""Wall time of a 24-point sweep on a Dask LocalCluster with 1 and 2 workers, side by side.
+
+Logistic regression (invented data, N = 20,000, d = 4), penalty-mala and sgld at 12 step sizes
+each (24 grid points), each point 2 chains x (300 warmup + 1500 draws). The reference run is
+made once and cached before timing. Prints both wall times and their ratio; the sweep tables
+of both runs must be equal (timings aside), which the script checks.
+Run:  .venv/bin/python benchmarks/bench_dask_sweep.py [--quick]
+"""
+
+import argparse
+import tempfile
+import time
+import warnings
+
+import numpy as np
+
+import tallchain as tc
+from tallchain.sweep import sweep
+
+
+def main():
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--quick", action="store_true")
+    args = ap.parse_args()
+    warnings.simplefilter("ignore")
+    rng = np.random.default_rng(4)
+    n = 20_000
+    X = rng.standard_normal((n, 3))
+    y = (rng.random(n) < 1 / (1 + np.exp(-(X @ [0.6, -0.3, 0.2])))).astype(float)
+    model = tc.LogisticRegression(X, y)
+    steps = list(np.geomspace(0.1, 4.0, 12))
+    draws = 500 if args.quick else 1500
+    grid = dict(methods=["penalty-mala", "sgld"], step_sizes=steps, draws=draws, warmup=300,
+                chains=2, seed=3)
+    with tempfile.TemporaryDirectory() as cache:
+        sweep(model, scheduler="serial", cache_dir=cache, **dict(grid, step_sizes=steps[:1],
+                                                               methods=["sgld"]))
+        walls, tables = {}, {}
+        for workers in (1, 2):
+            t = time.perf_counter()
+            res = sweep(model, scheduler="dask-local", workers=workers, cache_dir=cache, **grid)
+            walls[workers] = time.perf_counter() - t
+            tables[workers] = [(r["method"], r["step_size"], r["ks_max"], r["acceptance"])
+                               for r in res.rows]
+    same = tables[1] == tables[2]
+    print(f"24-point sweep, dask-local: 1 worker {walls[1]:.1f} s, 2 workers {walls[2]:.1f} s")
+    print(f"check: tables equal with 1 and 2 workers: {'ok' if same else 'FAILED'}")
+    print(f"ratio (wall 1 worker / wall 2 workers): {walls[1] / walls[2]:.2f}")
+    if not same:
+        raise SystemExit(1)
+
+
+if __name__ == "__main__":
+    main()
