@@ -11,7 +11,7 @@ from tallchain.calibration import calibrate, ecdf_bands, rank_uniformity_pvalues
 
 pytestmark = pytest.mark.slow
 
-SMALL = dict(replications=60, draws=29, seed=1, workers=2, chains=2, warmup=300)
+SMALL = dict(replications=60, thinned_draws=29, seed=1, workers=2, chains=2, warmup=300)
 
 
 @pytest.fixture(scope="module")

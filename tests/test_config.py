@@ -139,7 +139,7 @@ def test_overrides_replace_keys_and_are_named_as_such(folder, tmp_path, monkeypa
     ("[sampler]\nnoise_variance = \"fresh\"\n", r"^sampler\.noise_variance: unknown value 'fresh'"),
     ("[sampler]\nmass_matrix = \"dense\"\n", r"^sampler\.mass_matrix: unknown value 'dense'"),
     ("[sampler]\ninit = \"random\"\n", r"^sampler\.init: unknown value 'random'"),
-    ("[sampler]\ntarget_log_ratio_sd = 0\n", r"^sampler\.target_log_ratio_sd: must be > 0"),
+    ("[sampler]\ntarget_log_ratio_sd = 0\n", r"^sampler\.target_log_ratio_sd: must be a finite number > 0"),
     ("[sampler]\nbatch_floor = 1\n", r"^sampler\.batch_floor: must be >= 2, got 1"),
     ("[sampler]\nbatch_floor = 64\nbatch_ceiling = 40\n",
      r"^sampler\.batch_ceiling: is 40, below batch_floor 64"),

@@ -113,3 +113,13 @@ def test_separated_logistic_data_with_flat_prior_raise():
     # and the same data then have a mode (no error).
     lap = tc.find_mode(tc.LogisticRegression(x, y, prior=tc.GaussianPrior(sd=2.5)))
     assert np.all(np.isfinite(lap.mode)) and abs(lap.mode[1]) < 25
+
+
+def test_collinear_constant_column_is_not_mistaken_for_separation():
+    # A constant column beside the intercept carries no information along (1, -1); the prior
+    # decides that direction and the mode exists.
+    rng = np.random.default_rng(4)
+    X = np.column_stack([rng.standard_normal(400), np.ones(400)])
+    y = (rng.random(400) < 0.4).astype(float)
+    lap = tc.find_mode(tc.LogisticRegression(X, y, prior=tc.GaussianPrior(sd=10.0)))
+    assert np.all(np.isfinite(lap.mode))

@@ -135,7 +135,7 @@ def _replicate_task(shared, seed):
     return _replicate(model, prior, n_draws, seed, settings)
 
 
-def calibrate(model, *, replications=100, draws=99, prior="laplace", level=0.05, n_bins=10,
+def calibrate(model, *, replications=100, thinned_draws=99, prior="laplace", level=0.05, n_bins=10,
               seed=1, workers=None, scheduler="processes", progress=False, **settings):
     """Simulation-based calibration of a sampler setting on the model's X.
 
@@ -145,8 +145,9 @@ def calibrate(model, *, replications=100, draws=99, prior="laplace", level=0.05,
         Its X (and offset, noise sd) are used; its y only to build the Laplace prior.
     replications : int, default=100
         R.
-    draws : int, default=99
-        L, thinned posterior draws per replication (ranks take L + 1 values).
+    thinned_draws : int, default=99
+        L, thinned posterior draws per replication (ranks take L + 1 values); the sampler's
+        own ``draws`` setting (per chain, default 500) goes in ``settings``.
     prior : {"laplace", "model"}, default="laplace"
         Calibration prior: the Laplace approximation of the user's posterior (proper and near
         the region that matters) or the model's own prior. SBC holds for any prior used
@@ -168,7 +169,7 @@ def calibrate(model, *, replications=100, draws=99, prior="laplace", level=0.05,
     CalibrationResult
     """
     replications = positive_int("replications", replications, minimum=2)
-    draws = positive_int("draws", draws, minimum=1)
+    draws = positive_int("thinned_draws", thinned_draws, minimum=1)
     if prior == "laplace":
         from .mode import find_mode
 

@@ -20,6 +20,7 @@ To add a command::
 import argparse
 import dataclasses
 import math
+import signal
 import sys
 import time
 import warnings
@@ -34,6 +35,7 @@ from .config import load_config
 from .io import load_data
 from .mode import ModeNotFoundError
 from .models import FAMILIES
+from .sampling import SamplingInterrupted
 
 PROG = "tallchain"
 EXIT_OK, EXIT_CHECK_FAILED, EXIT_BAD_INPUT = 0, 1, 2
@@ -150,7 +152,7 @@ def build_model(config):
     return model, dataset
 
 
-def run_config(config, *, progress=False):
+def run_config(config, *, progress=False, resume=False):
     """Build the model, sample, map back to the original scale and write the output files.
 
     Returns
@@ -166,15 +168,21 @@ def run_config(config, *, progress=False):
     t0 = time.perf_counter()
     model, dataset = build_model(config)
     load_seconds = time.perf_counter() - t0
-    with config.named_fields():
-        result = sample(model, **config.sampler, progress=progress)
-    changes = {"setup_seconds": result.setup_seconds + load_seconds}
+    checkpoint = Path(config.output_dir) / CHECKPOINT_NAME
+    try:
+        with config.named_fields():
+            result = sample(model, **config.sampler, progress=progress, checkpoint=checkpoint,
+                            resume=resume)
+    except SamplingInterrupted as stop:
+        partial = _to_original_scale(stop.result, dataset, load_seconds)
+        save_result(partial, config.output_dir)
+        raise KeyboardInterrupt(
+            f"{partial.completed_draws} draws per chain kept in "
+            f"{Path(config.output_dir) / 'posterior.nc'}; continue with: tallchain run "
+            f"{config.path or 'CONFIG'} --resume (with the same options)") from None
+    checkpoint.unlink(missing_ok=True)
+    result = _to_original_scale(result, dataset, load_seconds)
     scaling = dataset.standardization
-    if scaling is not None:
-        changes["draws"] = scaling.to_original(result.draws)
-        if result.laplace_mode is not None:
-            changes["laplace_mode"] = scaling.to_original(result.laplace_mode)
-    result = dataclasses.replace(result, **changes)
     extra = {"config": None if config.path is None else str(config.path.absolute()),
              "family": config.model.family,
              "data": {"x": str(config.data.x), "y": str(config.data.y),
@@ -184,6 +192,20 @@ def run_config(config, *, progress=False):
     summary = save_result(result, config.output_dir, wall_seconds=time.perf_counter() - t0,
                           extra=extra)
     return result, summary, dataset
+
+
+CHECKPOINT_NAME = "checkpoint.npz"
+
+
+def _to_original_scale(result, dataset, load_seconds):
+    """Add the data loading to the set-up time and map standardised draws back."""
+    changes = {"setup_seconds": result.setup_seconds + load_seconds}
+    scaling = dataset.standardization
+    if scaling is not None:
+        changes["draws"] = scaling.to_original(result.draws)
+        if result.laplace_mode is not None:
+            changes["laplace_mode"] = scaling.to_original(result.laplace_mode)
+    return dataclasses.replace(result, **changes)
 
 
 def print_summary(result, summary, *, file=None, standardized=False):
@@ -245,18 +267,30 @@ def _print_outputs(directory):
 def _add_run_arguments(parser):
     add_config_arguments(parser)
     parser.add_argument("--quiet", action="store_true", help="print only warnings and errors")
+    parser.add_argument("--resume", action="store_true",
+                        help="continue an interrupted run from its checkpoint in the output "
+                             "folder (same config and options)")
+    parser.add_argument("--plots", action="store_true",
+                        help="also write trace.png, rank.png and log_ratio_sd.png")
 
 
 @command("run", "sample the posterior of a configured model", _add_run_arguments)
 def _run(args):
     config = config_from_args(args)
     with warnings_as_lines():
-        result, summary, dataset = run_config(config, progress=not args.quiet)
+        result, summary, dataset = run_config(config, progress=not args.quiet,
+                                              resume=args.resume)
     for msg in summary.warnings:
         warning_line(msg)
+    if args.plots:
+        from .plots import plot_run
+
+        plot_run(result, config.output_dir)
     if not args.quiet:
         print_summary(result, summary, standardized=dataset.standardization is not None)
         _print_outputs(config.output_dir)
+        if args.plots:
+            print(f"wrote trace.png, rank.png, log_ratio_sd.png to {config.output_dir}")
     return EXIT_OK
 
 
@@ -291,6 +325,8 @@ def _demo(args):
 
 def make_parser():
     """The argument parser with one subcommand per registered command."""
+    from . import _check_commands  # noqa: F401  (registers validate, sweep, calibrate)
+
     parser = _Parser(prog=PROG, description="Posterior sampling for regressions on tall data.")
     parser.add_argument("--version", action="version", version=f"{PROG} {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
@@ -315,6 +351,7 @@ def main(argv=None):
         The exit code: 0 done, 1 a check failed, 2 bad input or usage.
     """
     parser = make_parser()
+    previous = signal.signal(signal.SIGTERM, _terminate) if _main_thread() else None
     try:
         try:
             args = parser.parse_args(argv)
@@ -329,9 +366,24 @@ def main(argv=None):
     except OSError as exc:
         where = f"{exc.filename}: " if exc.filename else ""
         return _error(f"{where}{exc.strerror or exc}")
-    except KeyboardInterrupt as exc:  # SamplingInterrupted says how far the run got
-        print(f"{PROG}: {_one_line(exc) or 'interrupted'}", file=sys.stderr)
+    except KeyboardInterrupt as exc:  # run_config says how far the run got
+        detail = f": {_one_line(exc)}" if str(exc) else ""
+        print(f"{PROG}: interrupted{detail}", file=sys.stderr)
         return 130
+    finally:
+        if previous is not None:
+            signal.signal(signal.SIGTERM, previous)
+
+
+def _terminate(signum, frame):
+    """SIGTERM stops a run the way Ctrl-C does: completed draws are kept, the run resumable."""
+    raise KeyboardInterrupt
+
+
+def _main_thread():
+    import threading
+
+    return threading.current_thread() is threading.main_thread()
 
 
 def _error(message):

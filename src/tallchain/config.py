@@ -22,7 +22,7 @@ import numpy as np
 
 from . import sampling
 from ._preconditioning import make_preconditioner
-from ._validation import InputError, fail, positive_int
+from ._validation import InputError, fail
 from .io import ARRAY_SUFFIXES, DataSource, load_array
 from .mode import LaplaceApproximation
 from .models import FAMILIES, GaussianPrior, LinearRegression
@@ -64,6 +64,8 @@ SCHEMA = {
                 "noise_variance": _STR, "gradient_batch": _STR, "target_log_ratio_sd": _NUMBER,
                 "batch_floor": _INT, "batch_ceiling": _INT},
     "output": {"dir": _STR},
+    # Where sweeps and calibrations run (tallchain.executors); --scheduler/--workers override.
+    "compute": {"scheduler": _STR, "workers": _INT},
 }
 REQUIRED = (("data", "x"), ("model", "family"))
 
@@ -149,6 +151,9 @@ class RunConfig:
         The ``[sampler]`` keys that were given, as keyword arguments of `tallchain.sample`
         (the rest take that function's defaults).
     output_dir : pathlib.Path
+    compute : mapping
+        The ``[compute]`` keys given: ``scheduler`` ("processes", "dask-local" or a Dask
+        scheduler address) and ``workers``.
     overridden : frozenset of str
         ``section.key`` names set on the command line rather than in the file.
     """
@@ -159,6 +164,7 @@ class RunConfig:
     sampler: MappingProxyType
     output_dir: Path
     overridden: frozenset = frozenset()
+    compute: MappingProxyType = MappingProxyType({})
 
     @property
     def field_names(self):
@@ -256,6 +262,8 @@ def config_from_dict(raw, *, base_dir=".", stem="run", overrides=None, path=None
         data = _data_settings(raw["data"], model.family, base_dir)
         sampler = dict(raw.get("sampler", {}))
         _dry_check_sampler(sampler)
+        compute = dict(raw.get("compute", {}))
+        _check_compute(compute)
     out = raw.get("output", {}).get("dir")
     if out is None:
         output_dir = base_dir / "runs" / stem
@@ -264,7 +272,21 @@ def config_from_dict(raw, *, base_dir=".", stem="run", overrides=None, path=None
         if not output_dir.is_absolute():
             output_dir = (Path.cwd() if "output.dir" in overridden else base_dir) / output_dir
     return RunConfig(path=path, data=data, model=model, sampler=MappingProxyType(sampler),
-                     output_dir=output_dir, overridden=overridden)
+                     output_dir=output_dir, overridden=overridden,
+                     compute=MappingProxyType(compute))
+
+
+def _check_compute(compute):
+    from .executors import check_scheduler
+
+    if "scheduler" in compute:
+        try:
+            check_scheduler(compute["scheduler"])
+        except InputError as exc:
+            raise InputError(str(exc).replace("scheduler:", "compute.scheduler:", 1)) from None
+    if "workers" in compute and compute["workers"] < 1:
+        fail("compute.workers", f"must be >= 1, got {compute['workers']}",
+             "give the number of worker processes")
 
 
 def _check_shape(raw):
@@ -409,15 +431,11 @@ def _dry_check_sampler(settings):
         warnings.simplefilter("ignore")  # sample() repeats its warnings on the real run
         sampling._check_settings(stand_in, s["method"], s["step_size"], s["batch_size"],
                                  s["chains"], s["draws"], s["warmup"], s["noise_variance"],
-                                 s["control_variates"], s["cv_order"], s["target_log_ratio_sd"])
+                                 s["control_variates"], s["cv_order"], s["target_log_ratio_sd"],
+                                 s["gradient_batch"], s["batch_floor"], s["batch_ceiling"])
     sampling._resolve_seed(s["seed"], 1)
     make_preconditioner(s["mass_matrix"], 1, laplace)
     sampling._initial_points(s["init"], stand_in, laplace, 1, np.random.default_rng(0))
-    floor = positive_int("batch_floor", s["batch_floor"], minimum=2)
-    ceiling = positive_int("batch_ceiling", s["batch_ceiling"], minimum=2)
-    if ceiling < floor:
-        fail("batch_ceiling", f"is {ceiling}, below batch_floor {floor}",
-             "give batch_ceiling >= batch_floor")
 
 
 __all__ = ["RunConfig", "DataSettings", "ModelSettings", "load_config", "config_from_dict",

@@ -115,7 +115,9 @@ def _check_separation(model, mode, info):
     info0 = -model.log_likelihood_hessian(model.prior_mean)
     evals, evecs = np.linalg.eigh(0.5 * (info0 + info0.T))
     for lam0, v in zip(evals, evecs.T):
-        if lam0 <= 0:
+        # A direction without information even at the prior mean is collinearity (e.g. a
+        # constant column beside the intercept), not separation: the prior decides it.
+        if lam0 <= 1e-8 * evals[-1]:
             continue
         collapsed = v @ info @ v < 1e-6 * lam0
         prior_var = v @ model.prior_cov @ v

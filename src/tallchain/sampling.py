@@ -56,7 +56,8 @@ def _resolve_seed(seed, n_children):
 
 
 def _check_settings(model, method, step_size, batch_size, chains, draws, warmup, noise_variance,
-                    control_variates, cv_order, target_log_ratio_sd):
+                    control_variates, cv_order, target_log_ratio_sd, gradient_batch="fresh",
+                    batch_floor=DEFAULT_BATCH_FLOOR, batch_ceiling=DEFAULT_BATCH_CEILING):
     if method not in METHODS and method not in BROKEN_METHODS:
         from difflib import get_close_matches
 
@@ -101,9 +102,20 @@ def _check_settings(model, method, step_size, batch_size, chains, draws, warmup,
     if cv_order not in (1, 2):
         fail("cv_order", f"must be 1 or 2, got {cv_order!r}",
              "use 2 (second-order Taylor proxies) or 1 (first-order)")
-    if not (isinstance(target_log_ratio_sd, (int, float)) and target_log_ratio_sd > 0):
-        fail("target_log_ratio_sd", f"must be > 0, got {target_log_ratio_sd!r}",
+    if not (isinstance(target_log_ratio_sd, (int, float)) and not isinstance(target_log_ratio_sd, bool)
+            and math.isfinite(target_log_ratio_sd) and target_log_ratio_sd > 0):
+        fail("target_log_ratio_sd", f"must be a finite number > 0, got {target_log_ratio_sd!r}",
              "give a positive number such as 1.0")
+    floor = positive_int("batch_floor", batch_floor, minimum=2)
+    ceiling = positive_int("batch_ceiling", batch_ceiling, minimum=2)
+    if ceiling < floor:
+        fail("batch_ceiling", f"is {ceiling}, below batch_floor {floor}",
+             "give batch_ceiling >= batch_floor")
+    if gradient_batch not in ("fresh", "carried"):
+        fail("gradient_batch", f"unknown value {gradient_batch!r}", 'use "fresh" or "carried"')
+    if gradient_batch == "carried" and not (spec.gradient == _chain.BATCH and spec.adjusted):
+        fail("gradient_batch", f'"carried" applies to penalty-mala, not {method}',
+             'use gradient_batch="fresh" or method="penalty-mala"')
     cv = bool(spec.minibatch if control_variates is None else control_variates)
     if control_variates and not spec.minibatch:
         warnings.warn(f"control_variates is ignored by the full-data method {method}",
@@ -216,7 +228,8 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
     t_setup = time.perf_counter()
     spec, chains, draws, warmup, cv = _check_settings(
         model, method, step_size, batch_size, chains, draws, warmup, noise_variance,
-        control_variates, cv_order, target_log_ratio_sd)
+        control_variates, cv_order, target_log_ratio_sd, gradient_batch, batch_floor,
+        batch_ceiling)
     rngs = _resolve_seed(seed, chains + 1)
     need_laplace = (cv or (isinstance(mass_matrix, str) and mass_matrix.startswith("laplace"))
                     or (isinstance(init, str) and init in ("laplace", "mode"))
@@ -242,12 +255,7 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
     all_draws = np.zeros((chains, n_total, model.n_coef))
     all_stats = np.full((chains, n_total, _chain.N_STATS), np.nan)
     var_code = NOISE_VARIANCE.get(noise_variance, _chain.VAR_SAME)
-    if gradient_batch not in ("fresh", "carried"):
-        fail("gradient_batch", f"unknown value {gradient_batch!r}", 'use "fresh" or "carried"')
     carried = gradient_batch == "carried"
-    if carried and not (spec.gradient == _chain.BATCH and spec.adjusted):
-        fail("gradient_batch", f'"carried" applies to penalty-mala, not {method}',
-             'use gradient_batch="fresh" or method="penalty-mala"')
     # Penalty methods aim at the exact-method rate times the share that the noise lets through
     # (see run_chain); target_log_ratio_sd caps the noise level used for that share.
     noise_cap = target_log_ratio_sd if spec.rule in (_acc.PENALTY, _acc.PENALTY_CD) else 0.0
