@@ -73,7 +73,8 @@ def plot_run(result, directory):
     out.mkdir(parents=True, exist_ok=True)
     tree = result.to_arviz()
     files = []
-    pc = az.plot_trace_dist(tree, var_names=["beta"], backend="matplotlib")
+    # compact=False: one row per coefficient, labelled, chains coloured.
+    pc = az.plot_trace_dist(tree, var_names=["beta"], compact=False, backend="matplotlib")
     pc.savefig(out / "trace.png")
     files.append(out / "trace.png")
     pc = az.plot_rank(tree, var_names=["beta"], backend="matplotlib")
@@ -85,12 +86,19 @@ def plot_run(result, directory):
     sd = result.stats["log_ratio_sd"]
     warm = result.warmup_stats.get("log_ratio_sd")
     n_warm = 0 if warm is None else warm.shape[1]
+    positive = False
     for c in range(sd.shape[0]):
         series = sd[c] if warm is None else np.concatenate([warm[c], sd[c]])
-        ax.plot(np.arange(series.size), series, lw=0.6, label=f"chain {c}")
+        positive |= bool(np.any(series > 0))
+        ax.plot(np.arange(series.size), np.where(series > 0, series, np.nan), lw=0.6,
+                label=f"chain {c}")
     if n_warm:
         ax.axvline(n_warm, color="black", ls="--", lw=1, label="end of warmup")
-    ax.set_yscale("symlog", linthresh=1e-3)
+    if positive:
+        ax.set_yscale("log")
+    else:
+        ax.text(0.5, 0.5, "no log-ratio noise (exact method, or exact control variates)",
+                transform=ax.transAxes, ha="center")
     ax.set_xlabel("iteration")
     ax.set_ylabel("estimated sd of the log-ratio")
     ax.set_title(f"{result.method}: log-ratio noise (the penalty method assumes it is Gaussian)")
