@@ -197,9 +197,14 @@ def drive(runner, states, schedule, *, checkpoint=None, checkpoint_seconds=30.0,
                     if checkpoint is not None and time.monotonic() - last_write > checkpoint_seconds:
                         checkpoint.write(states, schedule, runner, after_warmup)
                         last_write = time.monotonic()
-                if end == schedule.warmup and after_warmup is None:
+                at_warmup_end = end == schedule.warmup
+                if at_warmup_end and after_warmup is None:
                     after_warmup = np.sum([st.counters for st in states], axis=0)
                 schedule.finish_segment(states, runner.all_stats, start)
+                if at_warmup_end and checkpoint is not None:
+                    # Warmup (tuning) is the part most costly to lose: keep it at once.
+                    checkpoint.write(states, schedule, runner, after_warmup)
+                    last_write = time.monotonic()
     finally:
         if runner.bar is not None:
             runner.bar.close()
