@@ -25,6 +25,16 @@ def _scheduler_argument(parser):
     parser.add_argument("--quiet", action="store_true", help="print only warnings and errors")
 
 
+def _load(args):
+    """The config, its model and the (created) output folder of a checking command."""
+    config = config_from_args(args)
+    with warnings_as_lines():
+        model, _ = build_model(config)
+    out = Path(config.output_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    return config, model, out
+
+
 def _add_validate_arguments(parser):
     add_config_arguments(parser)
     parser.add_argument("--quiet", action="store_true", help="print only warnings and errors")
@@ -35,15 +45,11 @@ def _add_validate_arguments(parser):
 def _validate(args):
     from .twin import check_on_twin
 
-    config = config_from_args(args)
-    with warnings_as_lines():
-        model, _ = build_model(config)
+    config, model, out = _load(args)
     settings = dict(config.sampler)
     seed = settings.pop("seed", None)
     with warnings_as_lines(), config.named_fields():
         check = check_on_twin(model, seed=seed, **settings)
-    out = Path(config.output_dir)
-    out.mkdir(parents=True, exist_ok=True)
     write_json(out / "validate.json", check.as_dict())
     if not args.quiet:
         k = check.ks
@@ -84,11 +90,7 @@ def _add_sweep_arguments(parser):
 def _sweep(args):
     from .sweep import sweep, write_sweep
 
-    config = config_from_args(args)
-    with warnings_as_lines():
-        model, _ = build_model(config)
-    out = Path(config.output_dir)
-    out.mkdir(parents=True, exist_ok=True)
+    config, model, out = _load(args)
     partial = out / "sweep.partial.jsonl"
     done = []
     if args.resume and partial.exists():
@@ -151,11 +153,7 @@ def _add_calibrate_arguments(parser):
 def _calibrate(args):
     from .calibration import calibrate, plot_calibration
 
-    config = config_from_args(args)
-    with warnings_as_lines():
-        model, _ = build_model(config)
-    out = Path(config.output_dir)
-    out.mkdir(parents=True, exist_ok=True)
+    config, model, out = _load(args)
     settings = dict(config.sampler)
     seed = settings.pop("seed", None) or 1
     compute = config.compute

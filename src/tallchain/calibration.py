@@ -190,23 +190,11 @@ def calibrate(model, *, replications=100, thinned_draws=99, prior="laplace", lev
     settings.setdefault("warmup", 300)
     settings["parallel"] = scheduler == "serial" or (scheduler == "processes" and n_workers == 1)
     ranks = np.zeros((replications, model.n_coef), dtype=np.int64)
-    bar = None
-    if progress and os.isatty(2):
-        from tqdm import tqdm
-
-        bar = tqdm(total=replications, unit="rep", desc="calibrate", leave=False)
-
     def _done(i, rk):
         ranks[i] = rk
-        if bar is not None:
-            bar.update(1)
 
-    try:
-        run_tasks(_replicate_task, (model, cal_prior, draws, settings), seeds,
-                  scheduler=scheduler, workers=n_workers, on_result=_done)
-    finally:
-        if bar is not None:
-            bar.close()
+    run_tasks(_replicate_task, (model, cal_prior, draws, settings), seeds, scheduler=scheduler,
+              workers=n_workers, on_result=_done, progress="calibrate" if progress else None)
     p = rank_uniformity_pvalues(ranks, draws, n_bins)
     passed = bool(np.all(p > level / model.n_coef))
     kept = {k: v for k, v in settings.items() if k != "parallel"}

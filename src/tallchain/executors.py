@@ -71,7 +71,7 @@ def check_scheduler(scheduler):
 
 
 def run_tasks(fn, shared, tasks, *, scheduler="processes", workers=None, retries=2,
-              on_result=None):
+              on_result=None, progress=None):
     """Run ``fn(shared, task)`` for every task; return the results in task order.
 
     Parameters
@@ -88,15 +88,32 @@ def run_tasks(fn, shared, tasks, *, scheduler="processes", workers=None, retries
         Dask only: how often a task whose worker died is resubmitted.
     on_result : callable, optional
         ``on_result(i, result)`` in this process as each task finishes (e.g. to write it out).
+    progress : str, optional
+        Label of a progress bar over the tasks (shown only on a terminal).
     """
     check_scheduler(scheduler)
     tasks = list(tasks)
+    bar = None
+    if progress and tasks and os.isatty(2):
+        from tqdm import tqdm
+
+        bar = tqdm(total=len(tasks), unit="task", desc=progress, leave=False)
+    try:
+        return _run(fn, shared, tasks, scheduler, workers, retries, on_result, bar)
+    finally:
+        if bar is not None:
+            bar.close()
+
+
+def _run(fn, shared, tasks, scheduler, workers, retries, on_result, bar):
     results = [None] * len(tasks)
 
     def _done(i, r):
         results[i] = r
         if on_result is not None:
             on_result(i, r)
+        if bar is not None:
+            bar.update(1)
 
     n_workers = max(1, min(len(tasks), workers or os.cpu_count() or 1))
     if not tasks:

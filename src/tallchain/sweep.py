@@ -222,26 +222,15 @@ def sweep(model, *, methods=("penalty-mala", "sgld"), step_sizes=None, batch_siz
             rows[i] = known[key]
         else:
             todo.append(i)
-    bar = None
-    if progress and os.isatty(2):
-        from tqdm import tqdm
-
-        bar = tqdm(total=len(todo), unit="point", desc="sweep", leave=False)
-
     def _done(k, row):
         rows[todo[k]] = row
         if on_row is not None:
             on_row(row)
-        if bar is not None:
-            bar.update(1)
 
     tasks = [(grid[i][0], grid[i][1], grid[i][2] or 2, seeds[i]) for i in todo]
-    try:
-        run_tasks(_sweep_task, (model, reference, tolerance, point_settings), tasks,
-                  scheduler=scheduler, workers=n_workers, on_result=_done)
-    finally:
-        if bar is not None:
-            bar.close()
+    run_tasks(_sweep_task, (model, reference, tolerance, point_settings), tasks,
+              scheduler=scheduler, workers=n_workers, on_result=_done,
+              progress="sweep" if progress else None)
 
     ok = [r for r in rows if r["verdict"] == "within noise" and np.isfinite(r["ess_per_second"])]
     best = max(ok, key=lambda r: r["ess_per_second"]) if ok else None
