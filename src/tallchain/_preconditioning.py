@@ -71,11 +71,13 @@ class ControlVariateCache:
 
 def row_cache(family, X, y, offset, noise_sd, intercept, beta_star):
     """aux[i] = (y_i, eta_i, f'(eta_i), f''(eta_i)) at beta_star, for every row."""
-    n = X.shape[0]
-    eta, f1, f2 = np.empty(n), np.empty(n), np.empty(n)
+    aux = np.empty((X.shape[0], 4))
+    aux[:, 0] = y
+    # written straight into the columns: no N-length temporaries beside the cache
     _kernels.full_eta_derivatives(family, X, y, offset, noise_sd, intercept,
-                                  np.ascontiguousarray(beta_star, dtype=float), eta, f1, f2)
-    return np.ascontiguousarray(np.column_stack([y, eta, f1, f2]))
+                                  np.ascontiguousarray(beta_star, dtype=float),
+                                  aux[:, 1], aux[:, 2], aux[:, 3])
+    return aux
 
 
 def control_variate_cache(model, beta_star, order):
