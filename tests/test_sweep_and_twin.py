@@ -56,6 +56,18 @@ def test_sweep_numbers_do_not_depend_on_worker_count(linear):
         assert a["ks_max"] == b["ks_max"] and a["acceptance"] == b["acceptance"]
 
 
+def test_sweep_finds_the_mode_once(linear, monkeypatch):
+    # The mode and row caches are computed once and shared by the tuning run and every point.
+    from tallchain import sampling
+
+    calls = []
+    real = sampling.find_mode
+    monkeypatch.setattr(sampling, "find_mode", lambda m, **kw: calls.append(1) or real(m, **kw))
+    sweep(linear, methods=["penalty-mala", "sgld"], step_sizes=[0.5, 1.0], draws=200,
+          warmup=100, seed=3, scheduler="serial")
+    assert len(calls) == 1
+
+
 def test_twin_check_passes_a_sound_setting_and_fails_a_biased_one():
     rng = np.random.default_rng(5)
     X = rng.standard_normal((4000, 3))

@@ -351,7 +351,12 @@ def main(argv=None):
         The exit code: 0 done, 1 a check failed, 2 bad input or usage.
     """
     parser = make_parser()
-    previous = signal.signal(signal.SIGTERM, _terminate) if _main_thread() else None
+    # SIGTERM, and SIGINT even where the shell started us with it ignored (background jobs),
+    # stop a run the way Ctrl-C does.
+    previous = None
+    if _main_thread():
+        previous = (signal.signal(signal.SIGTERM, _terminate),
+                    signal.signal(signal.SIGINT, signal.default_int_handler))
     try:
         try:
             args = parser.parse_args(argv)
@@ -372,7 +377,8 @@ def main(argv=None):
         return 130
     finally:
         if previous is not None:
-            signal.signal(signal.SIGTERM, previous)
+            signal.signal(signal.SIGTERM, previous[0])
+            signal.signal(signal.SIGINT, previous[1])
 
 
 def _terminate(signum, frame):

@@ -3,6 +3,7 @@
 import math
 import time
 import warnings
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -39,6 +40,49 @@ class SamplingInterrupted(KeyboardInterrupt):
         super().__init__(f"interrupted after {result.completed_draws} draws per chain")
         self.result = result
         self.checkpoint = checkpoint
+
+
+@dataclass
+class Preparation:
+    """What `sample` computes from the full data before it samples, kept for reuse.
+
+    Attributes
+    ----------
+    laplace : LaplaceApproximation
+    caches : dict of int to ControlVariateCache
+        Row caches by control-variate order (0: none).
+    n_rows, n_coef : int
+        Of the model it was made for.
+    """
+
+    laplace: object
+    caches: dict
+    n_rows: int
+    n_coef: int
+
+    def check(self, model):
+        if (model.n_rows, model.n_coef) != (self.n_rows, self.n_coef):
+            fail("preparation", f"was made for {self.n_rows} rows and {self.n_coef} "
+                 f"coefficients, not {model.n_rows} and {model.n_coef}",
+                 "prepare() the model you sample")
+
+
+def prepare(model, *, cv_orders=(2, 0)):
+    """Find the mode and build the row caches of ``model`` once (O(N d^2)).
+
+    Parameters
+    ----------
+    model : LinearRegression, LogisticRegression or PoissonRegression
+    cv_orders : sequence of int, default=(2, 0)
+        Control-variate orders to cache (0 is the cache of runs without control variates).
+
+    Returns
+    -------
+    Preparation
+    """
+    laplace = find_mode(model)
+    caches = {k: control_variate_cache(model, laplace.mode if k else None, k) for k in cv_orders}
+    return Preparation(laplace, caches, model.n_rows, model.n_coef)
 
 
 def _resolve_seed(seed, n_children):
@@ -159,6 +203,7 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
            control_variates=None, cv_order=2, chains=4, draws=2000, warmup=500, seed=None,
            mass_matrix="laplace", init="laplace", noise_variance="same-batch",
            gradient_batch="fresh", checkpoint=None, resume=False, checkpoint_seconds=30.0,
+           preparation=None,
            target_log_ratio_sd=DEFAULT_TARGET_LOG_RATIO_SD, batch_floor=DEFAULT_BATCH_FLOOR,
            batch_ceiling=DEFAULT_BATCH_CEILING, progress=False, parallel=True):
     """Draw from the posterior of a regression model.
@@ -204,6 +249,9 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
     resume : bool, default=False
         Continue from ``checkpoint``; the settings must be those of the interrupted run.
     checkpoint_seconds : float, default=30.0
+    preparation : Preparation, optional
+        The mode, Laplace approximation and row caches of this model from `prepare`, reused
+        instead of recomputed (a sweep prepares once for all its grid points).
     progress : bool, default=False
         Show a progress bar (only on a terminal).
     parallel : bool, default=True
@@ -234,12 +282,19 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
     need_laplace = (cv or (isinstance(mass_matrix, str) and mass_matrix.startswith("laplace"))
                     or (isinstance(init, str) and init in ("laplace", "mode"))
                     or step_size == "auto")
-    laplace = find_mode(model) if need_laplace else None
+    if preparation is not None:
+        preparation.check(model)
+    laplace = None
+    if need_laplace:
+        laplace = preparation.laplace if preparation is not None else find_mode(model)
     pre = make_preconditioner(mass_matrix, model.n_coef, laplace)
-    if spec.minibatch:
-        cache = control_variate_cache(model, laplace.mode if cv else None, cv_order if cv else 0)
-    else:
+    order = cv_order if cv else 0
+    if not spec.minibatch:
         cache = ControlVariateCache.empty(model.n_coef)
+    elif preparation is not None and order in preparation.caches:
+        cache = preparation.caches[order]
+    else:
+        cache = control_variate_cache(model, laplace.mode if cv else None, order)
     starts = _initial_points(init, model, laplace, chains, rngs[0])
     setup_seconds = time.perf_counter() - t_setup
 

@@ -179,13 +179,20 @@ def sweep(model, *, methods=("penalty-mala", "sgld"), step_sizes=None, batch_siz
     for m in methods:
         if m not in METHODS:
             fail("methods", f"unknown method {m!r}", f"choose from {', '.join(METHODS)}")
+    from .sampling import prepare
+
+    # The mode and row caches are computed here once and travel with the model to every
+    # worker; neither the tuning run nor any grid point recomputes them.
+    cv = settings.get("control_variates")
+    orders = (0,) if cv is False else (settings.get("cv_order", 2), 0)
+    preparation = prepare(model, cv_orders=orders)
     tuner = next((m for m in methods if METHODS[m].adjusted), "penalty-mala")
     tune_settings = {k: v for k, v in settings.items() if k not in ("step_size", "batch_size")}
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         tuned = sample(model, method=tuner, chains=2, draws=200, warmup=max(warmup, 200),
                        seed=seed, batch_size=batch_sizes[0] if batch_sizes else "auto",
-                       **tune_settings)
+                       preparation=preparation, **tune_settings)
     h_star = float(np.mean(tuned.settings["step_size"]))
     if step_sizes is None:
         step_sizes = [h_star * f for f in DEFAULT_STEP_FACTORS]
@@ -212,7 +219,8 @@ def sweep(model, *, methods=("penalty-mala", "sgld"), step_sizes=None, batch_siz
     seeds = np.random.SeedSequence(seed).spawn(len(grid))
     n_workers = min(len(grid), workers or os.cpu_count() or 1)
     local = scheduler == "serial" or (scheduler == "processes" and n_workers == 1)
-    point_settings = dict(settings, chains=chains, draws=draws, warmup=warmup, parallel=local)
+    point_settings = dict(settings, chains=chains, draws=draws, warmup=warmup, parallel=local,
+                          preparation=preparation)
     rows = [None] * len(grid)
     known = {(r["method"], r["step_size"], r["batch_size"]): r for r in (done_rows or [])}
     todo = []
