@@ -55,7 +55,8 @@ def test_resolves_paths_defaults_and_given_sampler_keys(folder):
 
 
 def test_sampler_keys_are_the_options_of_sample():
-    runtime = {"progress", "parallel", "checkpoint", "resume", "checkpoint_seconds"}
+    runtime = {"progress", "parallel", "checkpoint", "resume", "checkpoint_seconds",
+               "preparation"}
     options = {name for name, p in inspect.signature(tc.sample).parameters.items()
                if p.kind is inspect.Parameter.KEYWORD_ONLY} - runtime
     assert set(config.SCHEMA["sampler"]) == options

@@ -57,7 +57,8 @@ SCHEMA = {
     "model": {"family": _STR, "noise_sd": _NUMBER, "prior_mean": _NUMBERS, "prior_sd": _NUMBERS,
               "prior_cov": _STR},
     # The keys are the keyword options of tallchain.sample but for the run-time ones
-    # (checkpointing, progress, threads); tests/test_config.py checks it. Defaults live there.
+    # (checkpointing, progress, threads, a preparation); tests/test_config.py checks it.
+    # Defaults live there.
     "sampler": {"method": _STR, "step_size": _STR_OR_NUMBER, "batch_size": _STR_OR_INT,
                 "control_variates": _BOOL, "cv_order": _INT, "chains": _INT, "draws": _INT,
                 "warmup": _INT, "seed": _INT, "mass_matrix": _STR, "init": _STR,
