@@ -266,3 +266,25 @@ def test_load_data_rejects_columns_for_arrays(tmp_path, rng):
     np.save(tmp_path / "X3.npy", np.zeros((2, 2, 2)))
     with pytest.raises(InputError, match=r"^X: must be two-dimensional, got shape \(2, 2, 2\)"):
         io.load_data(tmp_path / "X3.npy", tmp_path / "y.npy")
+
+
+def test_models_on_memory_mapped_files_pickle_as_paths(tmp_path):
+    # Workers of a sweep get the file's path, not a copy of its bytes, and map it again.
+    import pickle
+
+    import tallchain as tc
+
+    rng = np.random.default_rng(0)
+    np.save(tmp_path / "X.npy", rng.standard_normal((50_000, 4)))
+    np.save(tmp_path / "y.npy", (rng.random(50_000) < 0.5).astype(float))
+    X = np.load(tmp_path / "X.npy", mmap_mode="r")
+    y = np.load(tmp_path / "y.npy", mmap_mode="r")
+    model = tc.LogisticRegression(X, y)
+    blob = pickle.dumps(model)
+    assert len(blob) < 20_000  # X alone is 1.6 MB
+    back = pickle.loads(blob)
+    assert np.array_equal(back.X, X) and np.array_equal(back.y, y)
+    assert isinstance(back.X, np.memmap)
+    assert back.log_likelihood(np.full(5, 0.1)) == model.log_likelihood(np.full(5, 0.1))
+    # Power check: an in-memory X is pickled with its bytes.
+    assert len(pickle.dumps(tc.LogisticRegression(np.array(X), np.array(y)))) > 1_600_000

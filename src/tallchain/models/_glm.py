@@ -70,6 +70,24 @@ class _GLM:
         return (f"{type(self).__name__}(n_rows={self.n_rows}, n_coef={self.n_coef}, "
                 f"intercept={self.add_intercept}, prior={self.prior!r})")
 
+    def __getstate__(self):
+        # A memory-mapped array travels as its file, not its bytes: workers of a sweep or a
+        # calibration (local processes, or a Dask cluster on shared storage) map it again.
+        state = self.__dict__.copy()
+        for name in ("X", "y", "offset"):
+            source = _mapped_source(state[name])
+            if source is not None:
+                state[name] = _MappedArray(*source)
+        if isinstance(state["offset"], np.ndarray) and not np.any(state["offset"]):
+            state["offset"] = _ZeroOffset(state["offset"].shape[0])
+        return state
+
+    def __setstate__(self, state):
+        for name in ("X", "y", "offset"):
+            if isinstance(state[name], (_MappedArray, _ZeroOffset)):
+                state[name] = state[name].open()
+        self.__dict__.update(state)
+
     # Arguments shared by every kernel call: (family, X, y, offset, noise_sd, intercept).
     @property
     def kernel_args(self):
@@ -199,6 +217,41 @@ class PoissonRegression(_GLM):
 
 FAMILIES = {"linear": LinearRegression, "logistic": LogisticRegression,
             "poisson": PoissonRegression}
+
+
+class _MappedArray:
+    """A read-only memory map to reopen: file, byte offset, dtype, shape (C order)."""
+
+    def __init__(self, filename, offset, dtype, shape):
+        self.filename, self.offset, self.dtype, self.shape = filename, offset, dtype, shape
+
+    def open(self):
+        return np.memmap(self.filename, mode="r", dtype=np.dtype(self.dtype), shape=self.shape,
+                         offset=self.offset, order="C")
+
+
+class _ZeroOffset:
+    """The all-zero offset of a model without exposure, sent as its length."""
+
+    def __init__(self, n):
+        self.n = n
+
+    def open(self):
+        return np.zeros(self.n)
+
+
+def _mapped_source(a):
+    """(filename, offset, dtype, shape) when ``a`` is exactly a whole read-only file map."""
+    base = a
+    while base is not None and not isinstance(base, np.memmap):
+        base = getattr(base, "base", None)
+    if base is None or getattr(base, "filename", None) is None or base.mode != "r":
+        return None
+    same_start = a.__array_interface__["data"][0] == base.__array_interface__["data"][0]
+    if not (same_start and a.shape == base.shape and a.dtype == base.dtype
+            and a.flags.c_contiguous):
+        return None
+    return base.filename, base.offset, a.dtype.str, a.shape
 
 
 def _as_design(X):
