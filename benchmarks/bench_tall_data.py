@@ -78,6 +78,12 @@ def main():
     rng = np.random.default_rng(7)
     rows = []
     last = None
+    # Compile (or load from cache) every kernel before anything is timed.
+    Xw, yw = make_data(2000, rng)
+    warm = tc.LogisticRegression(Xw, yw)
+    tc.sample(warm, method="penalty-mala", chains=1, draws=50, warmup=50, seed=0, parallel=False)
+    tc.sample(warm, method="mala", chains=1, draws=20, warmup=20, seed=0, parallel=False)
+    _read_rows(Xw, np.random.default_rng(0), 32, 3, 2)
     for n in sizes:
         X, y = make_data(n, rng)
         model = tc.LogisticRegression(X, y, prior=tc.GaussianPrior(sd=10.0))
