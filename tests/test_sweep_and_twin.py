@@ -56,14 +56,18 @@ def test_sweep_numbers_do_not_depend_on_worker_count(linear):
         assert a["ks_max"] == b["ks_max"] and a["acceptance"] == b["acceptance"]
 
 
-def test_sweep_finds_the_mode_once(linear, monkeypatch):
-    # The mode and row caches are computed once and shared by the tuning run and every point.
+@pytest.mark.parametrize("family", ["linear", "logistic"])
+def test_sweep_finds_the_mode_once(linear, monkeypatch, family):
+    # The mode and row caches are computed once and shared by the tuning run, the reference
+    # run (logistic: not conjugate) and every grid point.
     from tallchain import sampling
 
+    model = linear if family == "linear" else tc.LogisticRegression(
+        linear.X, (linear.y > np.median(linear.y)).astype(float))
     calls = []
     real = sampling.find_mode
     monkeypatch.setattr(sampling, "find_mode", lambda m, **kw: calls.append(1) or real(m, **kw))
-    sweep(linear, methods=["penalty-mala", "sgld"], step_sizes=[0.5, 1.0], draws=200,
+    sweep(model, methods=["penalty-mala", "sgld"], step_sizes=[0.5, 1.0], draws=200,
           warmup=100, seed=3, scheduler="serial")
     assert len(calls) == 1
 

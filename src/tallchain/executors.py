@@ -26,8 +26,6 @@ from concurrent.futures import ProcessPoolExecutor, as_completed
 
 from ._validation import fail
 
-SCHEDULERS = ("processes", "serial", "dask-local")
-
 _SHARED = None
 
 

@@ -302,7 +302,8 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
     adapt_step = step_size == "auto"
     states = [_driver.ChainState(starts[c], model.n_coef, math.log(h0), math.log(10.0 * h0),
                                  rngs[c + 1]) for c in range(chains)]
-    needs_full_state = spec.adjusted and spec.ratio == _chain.FULL
+    # A resumed run takes this state from its checkpoint: no full pass per chain for it.
+    needs_full_state = spec.adjusted and spec.ratio == _chain.FULL and not resume
     for st in states if needs_full_state else ():
         _chain.init_full_state(*model.kernel_args, model.prior_mean, model.prior_prec, st.beta,
                                st.cur_grad, st.cur_loglik)

@@ -67,11 +67,12 @@ def model_fingerprint(model):
     return h.hexdigest()[:16]
 
 
-def reference_draws(model, *, cache_dir=None, draws=20_000, seed=0):
+def reference_draws(model, *, cache_dir=None, draws=20_000, seed=0, preparation=None):
     """Long full-data MALA run used as the reference for non-conjugate models.
 
     The draws are thinned to about one per effective sample, so the two-sample KS floor can
     treat them as independent. Cached as ``reference-<fingerprint>.npz`` in ``cache_dir``.
+    A `Preparation` of the model, when given, spares the run its own mode search.
     """
     from .sampling import sample
 
@@ -81,7 +82,8 @@ def reference_draws(model, *, cache_dir=None, draws=20_000, seed=0):
         if path.exists():
             with np.load(path, allow_pickle=False) as z:
                 return z["draws"]
-    r = sample(model, method="mala", chains=4, draws=draws // 4, warmup=1000, seed=seed)
+    r = sample(model, method="mala", chains=4, draws=draws // 4, warmup=1000, seed=seed,
+               preparation=preparation)
     ess = float(np.min(ess_bulk(r.draws)))
     thin = max(1, int(math.floor(r.draws.shape[0] * r.draws.shape[1] / max(ess, 1.0))))
     flat = r.draws[:, ::thin].reshape(-1, r.draws.shape[2])
@@ -210,7 +212,8 @@ def sweep(model, *, methods=("penalty-mala", "sgld"), step_sizes=None, batch_siz
     if model.family_name == "linear":
         reference, ref_kind = conjugate_posterior(model), "exact posterior"
     else:
-        reference, ref_kind = reference_draws(model, cache_dir=cache_dir, seed=seed), \
+        reference, ref_kind = reference_draws(model, cache_dir=cache_dir, seed=seed,
+                                              preparation=preparation), \
             "full-data mala run (cached)"
 
     from .executors import check_scheduler, run_tasks
