@@ -102,13 +102,13 @@ _DA_KAPPA = 0.75
 
 @jit
 def _batch_gradient(family, X, aux, noise_sd, intercept, prior_mean, prior_prec,
-                    cv_order, beta_star, g_star, H_star, beta, delta, idx, tmp, out):
+                    cv_order, beta_star, g_star, H_star, beta, delta, idx, tmp, work, out):
     """Unbiased estimate of grad log pi(beta) from the rows in idx:
     grad log p(beta) + sum_i grad q_i(beta) + (N/n) sum_{i in idx} [grad l_i - grad q_i].
     ``delta`` is beta - beta* (the row cache's reference point)."""
     n_rows = X.shape[0]
     d = beta.shape[0]
-    cv_gradient_rows(family, X, aux, noise_sd, intercept, delta, idx, cv_order, tmp)
+    cv_gradient_rows(family, X, aux, noise_sd, intercept, delta, idx, cv_order, tmp, work)
     scale = n_rows / idx.shape[0]
     if cv_order > 0:
         proxy_gradient_sum(cv_order, g_star, H_star, beta, beta_star, out)
@@ -155,7 +155,8 @@ def init_carried_gradient(family, X, aux, noise_sd, intercept, prior_mean, prior
     draw_batch(rng, X.shape[0], idx)
     delta = beta - beta_star
     _batch_gradient(family, X, aux, noise_sd, intercept, prior_mean, prior_prec, cv_order,
-                    beta_star, g_star, H_star, beta, delta, idx, np.empty(d), cur_grad)
+                    beta_star, g_star, H_star, beta, delta, idx, np.empty(d),
+                    np.empty((3, n_batch)), cur_grad)
 
 
 @jit
@@ -189,6 +190,7 @@ def run_chain(family, X, y, offset, noise_sd, intercept, prior_mean, prior_prec,
     idx_grad = np.empty(n_batch, dtype=np.int64)
     idx_ratio = np.empty(n_batch, dtype=np.int64)
     diffs = np.empty(n_batch)
+    work = np.empty((3, n_batch))
     loglik_prop = 0.0
 
     for k in range(n_iter):
@@ -207,7 +209,7 @@ def run_chain(family, X, y, offset, noise_sd, intercept, prior_mean, prior_prec,
                     delta[a] = beta[a] - beta_star[a]
                 _batch_gradient(family, X, aux, noise_sd, intercept, prior_mean, prior_prec,
                                 cv_order, beta_star, g_star, H_star, beta, delta, idx_grad, tmp,
-                                grad)
+                                work, grad)
                 counters[CT_DATA_EVALS] += n_batch
 
         # --- proposal ----------------------------------------------------------------------
@@ -252,7 +254,7 @@ def run_chain(family, X, y, offset, noise_sd, intercept, prior_mean, prior_prec,
                         draw_batch(rng, n_rows, idx_grad)
                     _batch_gradient(family, X, aux, noise_sd, intercept, prior_mean,
                                     prior_prec, cv_order, beta_star, g_star, H_star, prop,
-                                    delta_prop, idx_grad, tmp, grad_prop)
+                                    delta_prop, idx_grad, tmp, work, grad_prop)
                     counters[CT_DATA_EVALS] += n_batch
                 if proposal == PROPOSAL_LANGEVIN:
                     c = (_langevin_log_density(beta, prop, grad_prop, h, mass, mass_inv, z)
@@ -271,7 +273,7 @@ def run_chain(family, X, y, offset, noise_sd, intercept, prior_mean, prior_prec,
             else:
                 draw_batch(rng, n_rows, idx_ratio)
                 batch_residual_diffs(family, X, aux, noise_sd, intercept, delta_prop, delta,
-                                     idx_ratio, cv_order, diffs)
+                                     idx_ratio, cv_order, diffs, work)
                 counters[CT_DATA_EVALS] += n_batch
                 est, var, skew, kurt = scaled_sum_and_variance(diffs, n_rows)
                 log_ratio = prior_diff + est
@@ -281,7 +283,7 @@ def run_chain(family, X, y, offset, noise_sd, intercept, prior_mean, prior_prec,
                 if var_mode == VAR_INDEPENDENT:
                     draw_batch(rng, n_rows, idx_ratio)
                     batch_residual_diffs(family, X, aux, noise_sd, intercept, delta_prop,
-                                         delta, idx_ratio, cv_order, diffs)
+                                         delta, idx_ratio, cv_order, diffs, work)
                     counters[CT_DATA_EVALS] += n_batch
                     _, var, _, _ = scaled_sum_and_variance(diffs, n_rows)
                 elif var_mode == VAR_POOLED:

@@ -49,37 +49,50 @@ AUX_F1 = 2
 AUX_F2 = 3
 
 
-@jit
-def _eta_from_delta(X, aux, i, delta, intercept):
-    u = row_dot(X, i, delta[intercept:])
-    if intercept:
-        u += delta[0]
-    return aux[i, AUX_ETA] + u, u
+# Batch kernels work in passes: a first pass reads every batch row (its row of X and its row
+# cache record) into small buffers, and later passes compute on the buffers. A row read is a
+# cache miss on tall data; with the exp/log of a row in the same loop, the processor waits for
+# each miss in turn, while a loop that only reads lets the misses overlap. ``work`` holds the
+# buffers: shape (3, n) for a batch of n rows, allocated once per run by the caller.
 
 
 @jit
-def cv_gradient_rows(family, X, aux, noise_sd, intercept, delta, idx, cv_order, out):
+def cv_gradient_rows(family, X, aux, noise_sd, intercept, delta, idx, cv_order, out, work):
     """out = sum over idx of [grad l_i(beta) - grad q_i(beta)] (out overwritten), where
     delta = beta - beta*.
 
     cv_order 0 gives the plain sum of gradients; 1 subtracts f'*_i x_i (Baker et al. 2019);
     2 also subtracts f''*_i (eta_i - eta*_i) x_i, the gradient of the second-order proxy.
     """
+    n = idx.shape[0]
     p = X.shape[1]
+    w = delta[intercept:]
+    d0 = delta[0] if intercept else 0.0
+    eta = work[0]
+    yv = work[1]
+    r = work[2]
+    for k in range(n):
+        i = idx[k]
+        u = d0 + row_dot(X, i, w)
+        eta[k] = aux[i, AUX_ETA] + u
+        yv[k] = aux[i, AUX_Y]
+        c = 0.0
+        if cv_order >= 1:
+            c = aux[i, AUX_F1]
+        if cv_order >= 2:
+            c += aux[i, AUX_F2] * u
+        r[k] = c
+    for k in range(n):
+        r[k] = dloglik_eta(family, eta[k], yv[k], noise_sd) - r[k]
     g = out[intercept:]
     out[:] = 0.0
     g0 = 0.0
-    for k in range(idx.shape[0]):
+    for k in range(n):
         i = idx[k]
-        eta, u = _eta_from_delta(X, aux, i, delta, intercept)
-        r = dloglik_eta(family, eta, aux[i, AUX_Y], noise_sd)
-        if cv_order >= 1:
-            r -= aux[i, AUX_F1]
-        if cv_order >= 2:
-            r -= aux[i, AUX_F2] * u
-        g0 += r
+        rk = r[k]
+        g0 += rk
         for j in range(p):
-            g[j] += r * X[i, j]
+            g[j] += rk * X[i, j]
     if intercept:
         out[0] = g0
 
@@ -115,19 +128,36 @@ def proxy_loglik_diff_sum(cv_order, g_star, H_star, beta_new, beta_old, beta_sta
 
 @jit
 def batch_residual_diffs(family, X, aux, noise_sd, intercept, delta_new, delta_old, idx,
-                         cv_order, out):
+                         cv_order, out, work):
     """out[k] = D_i - [q_i(b') - q_i(b)] for i = idx[k], with D_i = l_i(b') - l_i(b) and
-    delta_new = b' - beta*, delta_old = b - beta*."""
-    for k in range(idx.shape[0]):
+    delta_new = b' - beta*, delta_old = b - beta* (passes and ``work`` as above)."""
+    n = idx.shape[0]
+    p = X.shape[1]
+    w1 = delta_new[intercept:]
+    w0 = delta_old[intercept:]
+    e1 = work[0]
+    e0 = work[1]
+    yv = work[2]
+    for k in range(n):
         i = idx[k]
-        e1, u1 = _eta_from_delta(X, aux, i, delta_new, intercept)
-        e0, u0 = _eta_from_delta(X, aux, i, delta_old, intercept)
-        r = loglik_diff_eta(family, e1, e0, aux[i, AUX_Y], noise_sd)
+        u1 = delta_new[0] if intercept else 0.0
+        u0 = delta_old[0] if intercept else 0.0
+        for j in range(p):
+            x = X[i, j]
+            u1 += x * w1[j]
+            u0 += x * w0[j]
+        eta_star = aux[i, AUX_ETA]
+        e1[k] = eta_star + u1
+        e0[k] = eta_star + u0
+        yv[k] = aux[i, AUX_Y]
+        c = 0.0
         if cv_order >= 1:
-            r -= aux[i, AUX_F1] * (u1 - u0)
+            c = aux[i, AUX_F1] * (u1 - u0)
         if cv_order >= 2:
-            r -= 0.5 * aux[i, AUX_F2] * (u1 * u1 - u0 * u0)
-        out[k] = r
+            c += 0.5 * aux[i, AUX_F2] * (u1 * u1 - u0 * u0)
+        out[k] = c
+    for k in range(n):
+        out[k] = loglik_diff_eta(family, e1[k], e0[k], yv[k], noise_sd) - out[k]
 
 
 @jit

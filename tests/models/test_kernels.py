@@ -416,6 +416,11 @@ def batch_args(args):
     return family, X, noise_sd, intercept
 
 
+def work_for(idx):
+    """Scratch buffers of the batch kernels, filled with NaN so no stale value can pass."""
+    return np.full((3, idx.shape[0]), np.nan)
+
+
 @pytest.mark.parametrize("cv_order", [0, 1, 2])
 def test_batch_residual_diffs(problem, cv_order):
     args, beta, beta_new, beta_star, idx = problem
@@ -423,7 +428,7 @@ def test_batch_residual_diffs(problem, cv_order):
     out = np.full(idx.shape[0], np.nan)
     family, X, noise_sd, intercept = batch_args(args)
     EK.batch_residual_diffs(family, X, aux, noise_sd, intercept, beta_new - beta_star,
-                            beta - beta_star, idx, cv_order, out)
+                            beta - beta_star, idx, cv_order, out, work_for(idx))
     want = R.residual_diffs(*args, beta_new, beta, beta_star, cv_order, idx)
     assert_allclose(out, want, rtol=1e-9, atol=1e-12)
 
@@ -434,7 +439,8 @@ def test_cv_gradient_rows(problem, cv_order):
     aux, _, _ = cv_cache(args, beta_star)
     out = np.full(beta.shape[0], np.nan)
     family, X, noise_sd, intercept = batch_args(args)
-    EK.cv_gradient_rows(family, X, aux, noise_sd, intercept, beta - beta_star, idx, cv_order, out)
+    EK.cv_gradient_rows(family, X, aux, noise_sd, intercept, beta - beta_star, idx, cv_order, out,
+                        work_for(idx))
     want = R.cv_gradient_sum(*args, beta, beta_star, cv_order, idx)
     assert_allclose(out, want, rtol=1e-10, atol=1e-12)
 
@@ -460,7 +466,7 @@ def test_second_order_cv_is_exact_for_linear_family(dtype, intercept):
     diffs = np.full(idx.shape[0], np.nan)
     family, X, noise_sd, intercept_ = batch_args(args)
     EK.batch_residual_diffs(family, X, aux, noise_sd, intercept_, beta_new - beta_star,
-                            beta - beta_star, idx, 2, diffs)
+                            beta - beta_star, idx, 2, diffs, work_for(idx))
     d_scale = np.abs(R.pointwise_loglik_diff(*args, beta_new, beta, idx)).max()
     assert_allclose(diffs, 0.0, rtol=0, atol=1e-13 * d_scale)
     # so the estimate of sum_i D_i is the proxy sum alone, and it is exact
@@ -469,7 +475,8 @@ def test_second_order_cv_is_exact_for_linear_family(dtype, intercept):
     # CV gradient = sum_i grad q_i(beta) + (N/n) sum_{idx} [grad l_i - grad q_i] = full gradient
     proxy, batch = np.empty(beta.shape[0]), np.empty(beta.shape[0])
     EK.proxy_gradient_sum(2, g, H, beta, beta_star, proxy)
-    EK.cv_gradient_rows(family, X, aux, noise_sd, intercept_, beta - beta_star, idx, 2, batch)
+    EK.cv_gradient_rows(family, X, aux, noise_sd, intercept_, beta - beta_star, idx, 2, batch,
+                        work_for(idx))
     full = np.empty(beta.shape[0])
     K.full_loglik_grad(*args, beta, full)
     assert_allclose(proxy + N_ROWS / idx.shape[0] * batch, full, rtol=1e-12,

@@ -102,7 +102,12 @@ def loglik_diff_eta(family, eta_new, eta_old, y, noise_sd):
         # -(1/2s^2)[(y-e')^2 - (y-e)^2] = -(1/2s^2)(e'-e)(e'+e-2y)
         return -0.5 * de * (eta_new + eta_old - 2.0 * y) / (noise_sd * noise_sd)
     if family == LOGISTIC:
-        return y * de - (softplus(eta_new) - softplus(eta_old))
+        # softplus(a) - softplus(b) = max(a,0) - max(b,0) + log[(1 + e^-|a|) / (1 + e^-|b|)],
+        # one log instead of two: log1p((e^-|a| - e^-|b|) / (1 + e^-|b|)).
+        ea = math.exp(-abs(eta_new))
+        eb = math.exp(-abs(eta_old))
+        soft = (max(eta_new, 0.0) - max(eta_old, 0.0)) + math.log1p((ea - eb) / (1.0 + eb))
+        return y * de - soft
     # y de - (e^{eta'} - e^{eta}), with |e^{eta'} - e^{eta}| = e^{hi} (1 - e^{-|de|}) and hi the
     # larger predictor: no 0 * inf when the smaller e^eta underflows, and past exp's range the
     # product is formed in log space, so it is inf only when the true value is beyond float range.
