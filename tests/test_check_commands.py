@@ -73,3 +73,5 @@ def test_unknown_scheduler_is_bad_input(folder, capsys):
     cfg = _config(folder, "s", "draws = 100")
     assert main(["sweep", cfg, "--scheduler", "cluster-please", "--quiet"]) == 2
     assert "scheduler: unknown scheduler 'cluster-please'" in capsys.readouterr().err
+    assert main(["sweep", cfg, "--workers", "0", "--quiet"]) == 2
+    assert "workers: must be a whole number >= 1, got 0" in capsys.readouterr().err

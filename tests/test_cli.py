@@ -99,6 +99,18 @@ def test_run_writes_the_contract_files(tmp_path, rng, capsys):
     assert any("smallest ESS" in line for line in lines)
 
 
+@pytest.mark.slow
+def test_run_on_worker_processes_writes_the_draws_of_a_run_in_threads(tmp_path, rng, capsys):
+    path = _setup(tmp_path, *_logistic_data(rng))
+    assert _run(capsys, "run", path, "--out", tmp_path / "threads", "--quiet")[0] == 0
+    code = _run(capsys, "run", path, "--out", tmp_path / "procs", "--quiet",
+                "--scheduler", "processes", "--workers", "2")[0]
+    assert code == 0
+    a = az.from_netcdf(tmp_path / "threads" / "posterior.nc")["posterior"]["beta"].values
+    b = az.from_netcdf(tmp_path / "procs" / "posterior.nc")["posterior"]["beta"].values
+    assert np.array_equal(a, b)
+
+
 def test_options_override_the_config(tmp_path, rng, capsys):
     path = _setup(tmp_path, *_logistic_data(rng))
     code, out, _ = _run(capsys, "run", path, "--out", tmp_path / "o", "--method", "penalty-rwm",
@@ -234,6 +246,10 @@ def test_pickled_array_exits_2(tmp_path, rng, capsys):
      r"model\.prior_mean: has 2 entries, expected 1 or 3; give a scalar or one value per"),
     ([], 'prior_cov = "cov.npy"\n', FAST, r"model\.prior_cov: is not positive definite"),
     ([], "", FAST.replace("[sampler]", "[sampler]\ndraws ="), r"run\.toml: malformed TOML at line"),
+    (["--scheduler", "gpu"], "", FAST,
+     r"scheduler: unknown scheduler 'gpu'; use \"threads\", \"processes\", \"serial\""),
+    (["--workers", "0"], "", FAST, r"workers: must be a whole number >= 1, got 0"),
+    ([], "", FAST + '[compute]\nscheduler = "gpu"\n', r"compute\.scheduler: unknown scheduler"),
 ])
 def test_bad_settings_exit_2(tmp_path, rng, capsys, argv, model_extra, rest, pattern):
     np.save(tmp_path / "cov.npy", -np.eye(3))

@@ -57,9 +57,11 @@ def test_resolves_paths_defaults_and_given_sampler_keys(folder):
 def test_sampler_keys_are_the_options_of_sample():
     runtime = {"progress", "parallel", "checkpoint", "resume", "checkpoint_seconds",
                "preparation"}
+    where = {"scheduler", "workers"}   # the [compute] section
     options = {name for name, p in inspect.signature(tc.sample).parameters.items()
-               if p.kind is inspect.Parameter.KEYWORD_ONLY} - runtime
+               if p.kind is inspect.Parameter.KEYWORD_ONLY} - runtime - where
     assert set(config.SCHEMA["sampler"]) == options
+    assert set(config.SCHEMA["compute"]) == where
 
 
 def test_prior_settings_build_the_prior(folder):

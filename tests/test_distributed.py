@@ -54,18 +54,13 @@ def client():
     cluster.close()
 
 
-def test_dask_local_with_one_or_two_workers_equals_local_processes(model, local, tmp_path):
-    for workers in (1, 2):
-        res = sweep(model, scheduler="dask-local", workers=workers, cache_dir=tmp_path, **GRID)
-        assert _numbers(res) == _numbers(local)
-
-
-def test_a_worker_killed_mid_sweep_is_replaced_and_the_table_completes(model, local, client,
-                                                                        tmp_path):
+def _start_killing_one_busy_worker(client, seconds=120):
+    """A thread that SIGKILLs the first worker seen running a task; ``lost["keys"]`` names the
+    tasks it was running."""
     lost = {}
 
-    def kill_one_busy_worker():
-        deadline = time.time() + 60
+    def kill():
+        deadline = time.time() + seconds
         while time.time() < deadline and not lost:
             busy = {w: keys for w, keys in client.processing().items() if keys}
             if busy:
@@ -76,8 +71,20 @@ def test_a_worker_killed_mid_sweep_is_replaced_and_the_table_completes(model, lo
                 return
             time.sleep(0.05)
 
-    killer = threading.Thread(target=kill_one_busy_worker)
+    killer = threading.Thread(target=kill)
     killer.start()
+    return lost, killer
+
+
+def test_dask_local_with_one_or_two_workers_equals_local_processes(model, local, tmp_path):
+    for workers in (1, 2):
+        res = sweep(model, scheduler="dask-local", workers=workers, cache_dir=tmp_path, **GRID)
+        assert _numbers(res) == _numbers(local)
+
+
+def test_a_worker_killed_mid_sweep_is_replaced_and_the_table_completes(model, local, client,
+                                                                        tmp_path):
+    lost, killer = _start_killing_one_busy_worker(client)
     res = sweep(model, scheduler=client, cache_dir=tmp_path, **GRID)
     killer.join()
     assert lost, "no worker was busy to kill"
@@ -116,3 +123,70 @@ def test_missing_dask_is_a_clear_error(monkeypatch, model):
     monkeypatch.setattr(builtins, "__import__", no_distributed)
     with pytest.raises(tc.InputError, match=r"scheduler: .* pip install 'tallchain\[distributed\]'"):
         sweep(model, scheduler="dask-local", **GRID)
+
+
+# --- the chains of one run as Dask tasks ---------------------------------------------------------
+
+RUN = dict(method="penalty-mala", chains=2, draws=1500, warmup=600, seed=17)
+
+
+def _same_run(a, b):
+    assert np.array_equal(a.draws, b.draws)
+    for key in a.stats:
+        assert np.array_equal(a.stats[key], b.stats[key], equal_nan=True), key
+    assert a.data_evaluations == b.data_evaluations
+    assert a.settings == b.settings
+
+
+@pytest.fixture(scope="module")
+def threads_run(model):
+    return tc.sample(model, **RUN)
+
+
+def test_chains_on_a_cluster_or_processes_equal_chains_in_threads(model, threads_run, client):
+    _same_run(tc.sample(model, scheduler=client, **RUN), threads_run)
+    _same_run(tc.sample(model, scheduler="processes", workers=2, **RUN), threads_run)
+
+
+def test_a_worker_killed_mid_run_is_replaced_and_its_chain_rerun(client):
+    # Full-data MALA on 30k rows: a chain's rounds last long enough for a busy worker to be caught.
+    rng = np.random.default_rng(4)
+    X = rng.standard_normal((30_000, 3))
+    y = (rng.random(30_000) < 1 / (1 + np.exp(-(X @ [0.3, -0.2, 0.1])))).astype(float)
+    big = tc.LogisticRegression(X, y)
+    settings = dict(method="mala", chains=2, draws=3000, warmup=500, seed=3)
+    lost, killer = _start_killing_one_busy_worker(client)
+    on_cluster = tc.sample(big, scheduler=client, **settings)
+    killer.join()
+    assert lost, "no worker was busy to kill"
+    print(f"killed a worker while it ran {lost['keys']}; the chain rounds were run again")
+    _same_run(on_cluster, tc.sample(big, **settings))
+
+
+def test_a_run_on_a_cluster_interrupted_and_resumed_in_threads_equals_the_whole_run(
+        model, threads_run, client, tmp_path, monkeypatch):
+    from tallchain import _driver
+    from tallchain.sampling import SamplingInterrupted
+
+    original = _driver.TaskRunner.run
+    rounds = {"n": 0}
+
+    def run(self, states, until, n_batch, pool):
+        rounds["n"] += 1
+        if rounds["n"] == 3:
+            raise _driver.Interrupted()
+        return original(self, states, until, n_batch, pool)
+
+    monkeypatch.setattr(_driver.TaskRunner, "run", run)
+    ckpt = tmp_path / "run.ckpt.npz"
+    with pytest.raises(SamplingInterrupted) as stop:
+        tc.sample(model, scheduler=client, checkpoint=ckpt, **RUN)
+    assert stop.value.result.completed_draws < RUN["draws"] and ckpt.exists()
+    _same_run(tc.sample(model, checkpoint=ckpt, resume=True, **RUN), threads_run)
+
+
+def test_an_unknown_chain_scheduler_is_a_clear_error(model):
+    with pytest.raises(tc.InputError, match=r"scheduler: unknown scheduler 'gpu'; use \"threads\""):
+        tc.sample(model, scheduler="gpu", **RUN)
+    with pytest.raises(tc.InputError, match=r"workers: must be a whole number >= 1"):
+        tc.sample(model, scheduler="processes", workers=0, **RUN)

@@ -11,6 +11,7 @@ from .cli import (
     build_model,
     command,
     config_from_args,
+    option_or,
     warnings_as_lines,
 )
 from .outputs import write_json
@@ -106,8 +107,8 @@ def _sweep(args):
     for key in ("method", "step_size", "batch_size"):
         settings.pop(key, None)
     compute = config.compute
-    scheduler = args.scheduler or compute.get("scheduler", "processes")
-    workers = args.workers or compute.get("workers")
+    scheduler = option_or(args.scheduler, compute.get("scheduler", "processes"))
+    workers = option_or(args.workers, compute.get("workers"))
     t = time.perf_counter()
     with warnings_as_lines(), config.named_fields():
         res = sweep(model, methods=args.methods or ("penalty-mala", "sgld"),
@@ -161,8 +162,8 @@ def _calibrate(args):
     with warnings_as_lines(), config.named_fields():
         res = calibrate(model, replications=args.replications, thinned_draws=args.rank_draws,
                         prior=args.prior, level=args.level, seed=seed,
-                        scheduler=args.scheduler or compute.get("scheduler", "processes"),
-                        workers=args.workers or compute.get("workers"),
+                        scheduler=option_or(args.scheduler, compute.get("scheduler", "processes")),
+                        workers=option_or(args.workers, compute.get("workers")),
                         progress=not args.quiet, **settings)
     seconds = time.perf_counter() - t
     record = res.as_dict()

@@ -6,6 +6,9 @@ and restart the step tuning. Chains advance in rounds of ``ROUND`` iterations, a
 checkpoint may be written. Kernel calls always run in worker threads and the main thread only
 waits, so Ctrl-C (or SIGTERM turned into KeyboardInterrupt) never lands between a kernel call
 and the bookkeeping that follows it: every state a checkpoint sees is a chunk boundary.
+
+`Runner` runs the chains in threads of this process; `TaskRunner` makes each chain's round one
+task on worker processes or a Dask cluster (`executors.TaskPool`), with the same draws.
 """
 
 import json
@@ -22,6 +25,9 @@ from ._validation import fail
 
 CHUNK = 256
 ROUND = 4 * CHUNK
+# Chains as tasks: rounds sized to about this many seconds, at most this many ROUNDs.
+TASK_SECONDS = 2.0
+MAX_TASK_ROUNDS = 256
 CHECKPOINT_VERSION = 1
 
 
@@ -46,20 +52,23 @@ class Interrupted(Exception):
     """Raised inside the driver when the user interrupts; sample() turns it into a result."""
 
 
-class Runner:
-    """Calls the kernel chunk by chunk for every chain."""
+class ChainJob:
+    """What every chain of a run shares: the model, the method's codes, the row cache, the
+    preconditioner and the tuning settings. When chains run as tasks it travels once per worker.
+    """
 
     def __init__(self, model, spec, grad_code, var_code, noise_cap, cache, pre, warmup,
-                 adapt_step, all_draws, all_stats, progress, parallel):
+                 adapt_step):
         self.model, self.spec, self.cache, self.pre = model, spec, cache, pre
         self.grad_code, self.var_code, self.noise_cap = grad_code, var_code, noise_cap
         self.warmup, self.adapt_step = warmup, adapt_step
-        self.all_draws, self.all_stats = all_draws, all_stats
-        self.progress, self.parallel = progress, parallel
-        self.stop = threading.Event()
-        self.bar = None
 
-    def _advance(self, st, chain, until, n_batch):
+    def advance(self, st, draws_out, stats_out, base, until, n_batch, stop=None, on_chunk=None):
+        """Run chain state ``st`` up to iteration ``until``, chunk by chunk, in place.
+
+        ``draws_out[k]`` and ``stats_out[k]`` receive iteration ``base + k``. The kernel keeps
+        its whole state in ``st``, so how a stretch is cut into chunks or calls changes nothing.
+        """
         m, s, c, p = self.model, self.spec, self.cache, self.pre
         if self.grad_code == _chain.CARRIED and not st.carried_ready:
             _chain.init_carried_gradient(m.family, m.X, c.aux, m.noise_sd, int(m.add_intercept),
@@ -67,9 +76,10 @@ class Runner:
                                          c.g_star, c.H_star, int(n_batch), st.rng, st.beta,
                                          st.cur_grad)
             st.carried_ready = True
-        while st.iteration < until and not self.stop.is_set():
+        while st.iteration < until and not (stop is not None and stop.is_set()):
             n = min(CHUNK, until - st.iteration)
             i0 = st.iteration
+            k0 = i0 - base
             _chain.run_chain(
                 *m.kernel_args, m.prior_mean, m.prior_prec,
                 s.proposal, self.grad_code, s.ratio, s.rule, self.var_code, c.order,
@@ -77,10 +87,40 @@ class Runner:
                 p.mass, p.mass_inv, p.mass_inv_chol, int(n_batch), st.rng,
                 st.beta, st.cur_grad, st.cur_loglik, st.adapt, st.pooled, st.counters,
                 i0, n, self.warmup, self.adapt_step, s.target_accept, self.noise_cap,
-                self.all_draws[chain, i0:i0 + n], self.all_stats[chain, i0:i0 + n])
+                draws_out[k0:k0 + n], stats_out[k0:k0 + n])
             st.iteration += n
-            if self.bar is not None:
-                self.bar.update(n)
+            if on_chunk is not None:
+                on_chunk(n)
+
+
+class Runner:
+    """Advances every chain round by round in threads of this process (the kernel releases
+    the GIL), writing into the run's draw and statistics arrays."""
+
+    def __init__(self, job, all_draws, all_stats, progress, parallel):
+        self.job = job
+        self.spec, self.warmup = job.spec, job.warmup
+        self.all_draws, self.all_stats = all_draws, all_stats
+        self.progress, self.parallel = progress, parallel
+        self.stop = threading.Event()
+        self.bar = None
+
+    def open_pool(self, n_chains):
+        """The workers of the run (a context manager)."""
+        workers = min(n_chains, os.cpu_count() or 1) if self.parallel else 1
+        return ThreadPoolExecutor(max_workers=workers)
+
+    def round_length(self):
+        """Iterations per chain between two checkpoint opportunities."""
+        return ROUND
+
+    def _tick(self, n):
+        if self.bar is not None:
+            self.bar.update(n)
+
+    def _advance(self, st, chain, until, n_batch):
+        self.job.advance(st, self.all_draws[chain], self.all_stats[chain], 0, until, n_batch,
+                         stop=self.stop, on_chunk=self._tick)
 
     def run(self, states, until, n_batch, pool):
         """Advance every chain to ``until``; raise Interrupted on Ctrl-C after the threads stop."""
@@ -97,6 +137,67 @@ class Runner:
         except BaseException:
             self.stop.set()
             raise
+
+
+def _advance_task(job, task):
+    """One chain's stretch of iterations as a task: returns the advanced state and its draws."""
+    st, until, n_batch = task
+    base = st.iteration
+    draws = np.zeros((until - base, job.model.n_coef))
+    stats = np.full((until - base, _chain.N_STATS), np.nan)
+    job.advance(st, draws, stats, base, until, n_batch)
+    return st, draws, stats
+
+
+class TaskRunner(Runner):
+    """Advances each chain as one task per round on worker processes or a Dask cluster.
+
+    A task carries the chain's state (a few vectors and the generator state) and returns it
+    advanced, with the round's draws; the job (model, row cache) is sent once per worker.
+    Chains give the same draws as in threads, bit for bit: the kernel's state travels whole.
+    A task whose worker dies is run again from the same state (Dask's retries). Rounds grow
+    to about ``TASK_SECONDS`` of work, so that task overhead stays small and an interrupt
+    loses at most one round.
+    """
+
+    def __init__(self, job, all_draws, all_stats, progress, scheduler, workers):
+        super().__init__(job, all_draws, all_stats, progress, parallel=True)
+        self.scheduler, self.workers = scheduler, workers
+        self._round = ROUND
+
+    def open_pool(self, n_chains):
+        from .executors import TaskPool
+
+        return TaskPool(_advance_task, self.job, self.scheduler, min(self.workers, n_chains))
+
+    def round_length(self):
+        return self._round
+
+    def run(self, states, until, n_batch, pool):
+        import time
+
+        t0 = time.monotonic()
+        start = {c: st.iteration for c, st in enumerate(states) if st.iteration < until}
+        futures = [pool.submit(c, (states[c], until, n_batch), label=f"chain{c}-to{until}")
+                   for c in start]
+        try:
+            for f in pool.as_completed(futures):
+                c, (new, draws, stats) = f.result()
+                self.all_draws[c, start[c]:until] = draws
+                self.all_stats[c, start[c]:until] = stats
+                states[c].__dict__.update(new.__dict__)
+                self._tick(until - start[c])
+        except KeyboardInterrupt:
+            pool.cancel(futures)
+            raise Interrupted() from None
+        except BaseException:
+            pool.cancel(futures)
+            raise
+        done = max((until - i for i in start.values()), default=0)
+        if done:
+            per_iteration = (time.monotonic() - t0) / done
+            self._round = int(np.clip(TASK_SECONDS / max(per_iteration, 1e-9), ROUND,
+                                      MAX_TASK_ROUNDS * ROUND))
 
 
 def batch_for_target(sd, n, n_rows, target_sd, floor, ceiling):
@@ -177,15 +278,15 @@ def drive(runner, states, schedule, *, checkpoint=None, checkpoint_seconds=30.0,
         from tqdm import tqdm
 
         runner.bar = tqdm(total=todo, unit="it", desc=runner.spec.name, leave=False)
-    workers = min(len(states), os.cpu_count() or 1) if runner.parallel else 1
     last_write = time.monotonic()
     try:
-        with ThreadPoolExecutor(max_workers=workers) as pool:
+        with runner.open_pool(len(states)) as pool:
             while schedule.segment < len(schedule.segments):
                 end = schedule.segments[schedule.segment][0]
                 start = min(st.iteration for st in states)
                 while min(st.iteration for st in states) < end:
-                    target = min(end, min(st.iteration for st in states) + ROUND)
+                    target = min(end, min(st.iteration for st in states)
+                                 + runner.round_length())
                     try:
                         runner.run(states, target, schedule.n_batch, pool)
                     except Interrupted:

@@ -179,9 +179,10 @@ def calibrate(model, *, replications=100, thinned_draws=99, prior="laplace", lev
         cal_prior = model.prior
     else:
         fail("prior", f"unknown calibration prior {prior!r}", 'use "laplace" or "model"')
-    from .executors import check_scheduler, run_tasks
+    from .executors import check_scheduler, check_workers, run_tasks
 
     check_scheduler(scheduler)
+    check_workers(workers)
     seeds = np.random.SeedSequence(seed).spawn(replications)
     n_workers = min(replications, workers or os.cpu_count() or 1)
     settings = dict(settings)

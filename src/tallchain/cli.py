@@ -152,8 +152,11 @@ def build_model(config):
     return model, dataset
 
 
-def run_config(config, *, progress=False, resume=False):
+def run_config(config, *, progress=False, resume=False, scheduler=None, workers=None):
     """Build the model, sample, map back to the original scale and write the output files.
+
+    ``scheduler`` and ``workers`` (where the chains run) override the config's ``[compute]``
+    section; without either, the chains run in threads of this process.
 
     Returns
     -------
@@ -172,7 +175,9 @@ def run_config(config, *, progress=False, resume=False):
     try:
         with config.named_fields():
             result = sample(model, **config.sampler, progress=progress, checkpoint=checkpoint,
-                            resume=resume)
+                            resume=resume,
+                            scheduler=option_or(scheduler, config.compute.get("scheduler", "threads")),
+                            workers=option_or(workers, config.compute.get("workers")))
     except SamplingInterrupted as stop:
         partial = _to_original_scale(stop.result, dataset, load_seconds)
         save_result(partial, config.output_dir)
@@ -195,6 +200,11 @@ def run_config(config, *, progress=False, resume=False):
 
 
 CHECKPOINT_NAME = "checkpoint.npz"
+
+
+def option_or(option, fallback):
+    """A command-line option when it was given (even 0, which is then refused), else the fallback."""
+    return fallback if option is None else option
 
 
 def _to_original_scale(result, dataset, load_seconds):
@@ -272,6 +282,13 @@ def _add_run_arguments(parser):
                              "folder (same config and options)")
     parser.add_argument("--plots", action="store_true",
                         help="also write trace.png, rank.png and log_ratio_sd.png")
+    parser.add_argument("--scheduler", default=None, metavar="WHERE",
+                        help='where the chains run: "threads" of this process (default), '
+                             '"processes", "dask-local", or a Dask scheduler address such as '
+                             "tcp://host:8786 (overrides compute.scheduler)")
+    parser.add_argument("--workers", type=int, default=None, metavar="N",
+                        help="worker processes for processes or dask-local (overrides "
+                             "compute.workers)")
 
 
 @command("run", "sample the posterior of a configured model", _add_run_arguments)
@@ -279,7 +296,8 @@ def _run(args):
     config = config_from_args(args)
     with warnings_as_lines():
         result, summary, dataset = run_config(config, progress=not args.quiet,
-                                              resume=args.resume)
+                                              resume=args.resume, scheduler=args.scheduler,
+                                              workers=args.workers)
     for msg in summary.warnings:
         warning_line(msg)
     if args.plots:

@@ -65,7 +65,8 @@ SCHEMA = {
                 "noise_variance": _STR, "gradient_batch": _STR, "target_log_ratio_sd": _NUMBER,
                 "batch_floor": _INT, "batch_ceiling": _INT},
     "output": {"dir": _STR},
-    # Where sweeps and calibrations run (tallchain.executors); --scheduler/--workers override.
+    # Where the chains of a run, and the runs of sweeps and calibrations, execute
+    # (tallchain.executors); --scheduler/--workers override.
     "compute": {"scheduler": _STR, "workers": _INT},
 }
 REQUIRED = (("data", "x"), ("model", "family"))
@@ -153,8 +154,9 @@ class RunConfig:
         (the rest take that function's defaults).
     output_dir : pathlib.Path
     compute : mapping
-        The ``[compute]`` keys given: ``scheduler`` ("processes", "dask-local" or a Dask
-        scheduler address) and ``workers``.
+        The ``[compute]`` keys given: ``scheduler`` ("threads", "processes", "dask-local" or
+        a Dask scheduler address) and ``workers``. ``run`` defaults to "threads", sweeps and
+        calibrations to "processes" (they refuse "threads").
     overridden : frozenset of str
         ``section.key`` names set on the command line rather than in the file.
     """
@@ -282,7 +284,7 @@ def _check_compute(compute):
 
     if "scheduler" in compute:
         try:
-            check_scheduler(compute["scheduler"])
+            check_scheduler(compute["scheduler"], threads=True)
         except InputError as exc:
             raise InputError(str(exc).replace("scheduler:", "compute.scheduler:", 1)) from None
     if "workers" in compute and compute["workers"] < 1:

@@ -15,6 +15,9 @@ Schedulers:
   worker process; tasks whose worker dies are retried (``retries``).
 * ``"tcp://host:port"``: an existing Dask scheduler; or a ``distributed.Client`` object.
 
+The chains of one run use `TaskPool` directly (see ``_driver``): each chain's next stretch of
+iterations is one task, and ``"threads"`` (the default there) keeps them in this process.
+
 Dask is optional: ``pip install 'tallchain[distributed]'``.
 """
 
@@ -23,6 +26,8 @@ import os
 import uuid
 import warnings
 from concurrent.futures import ProcessPoolExecutor, as_completed
+
+import numpy as np
 
 from ._validation import fail
 
@@ -55,17 +60,113 @@ def _import_distributed(what):
     return distributed
 
 
-def check_scheduler(scheduler):
-    """Validate a scheduler setting early (before any work), with the one-line message shape."""
-    if scheduler in ("processes", "serial"):
+def check_scheduler(scheduler, *, threads=False):
+    """Validate a scheduler setting early (before any work), with the one-line message shape.
+
+    ``threads=True`` also admits ``"threads"`` (the chains of one run, in this process).
+    """
+    if scheduler in ("processes", "serial") or (threads and scheduler == "threads"):
         return
     if scheduler == "dask-local" or (isinstance(scheduler, str) and "://" in scheduler):
         _import_distributed(repr(scheduler))
         return
     if type(scheduler).__name__ == "Client":
         return
+    local = '"threads", "processes"' if threads else '"processes"'
     fail("scheduler", f"unknown scheduler {scheduler!r}",
-         'use "processes", "serial", "dask-local" or a scheduler address like tcp://host:8786')
+         f'use {local}, "serial", "dask-local" or a scheduler address like tcp://host:8786')
+
+
+def check_workers(workers):
+    """Refuse a worker count that is not a whole number >= 1 (None means the default)."""
+    if workers is not None and (isinstance(workers, bool)
+                                or not isinstance(workers, (int, np.integer)) or workers < 1):
+        fail("workers", f"must be a whole number >= 1, got {workers!r}",
+             "give the number of worker processes, or leave it out")
+
+
+class TaskPool:
+    """Workers that run ``fn(shared, task)``, with ``shared`` sent once per worker.
+
+    A context manager over local worker processes (``"processes"``) or a Dask cluster
+    (``"dask-local"``, an address, or a Client); `submit` returns a future whose ``result()``
+    is ``(i, fn(shared, task))``.
+
+    Parameters
+    ----------
+    fn : callable
+        A module-level function (it is pickled to the workers).
+    shared : object
+    scheduler : str or distributed.Client
+    workers : int
+        Worker processes for "processes" and "dask-local".
+    retries : int, default=2
+        Dask only: how often a task whose worker died is resubmitted.
+    """
+
+    def __init__(self, fn, shared, scheduler, workers, retries=2):
+        check_scheduler(scheduler)
+        if scheduler == "serial":
+            fail("scheduler", '"serial" has no worker pool', "call the function directly")
+        self.fn, self.shared, self.scheduler = fn, shared, scheduler
+        self.workers, self.retries = max(1, int(workers)), retries
+        self._pool = self._client = self._cluster = self._shared_f = None
+        self._run = uuid.uuid4().hex[:8]
+        self._distributed = None
+
+    def __enter__(self):
+        if self.scheduler == "processes":
+            ctx = multiprocessing.get_context("forkserver")
+            self._pool = ProcessPoolExecutor(self.workers, mp_context=ctx,
+                                             initializer=_set_shared,
+                                             initargs=(self.fn, self.shared))
+            return self
+        distributed = self._distributed = _import_distributed(repr(self.scheduler))
+        if self.scheduler == "dask-local":
+            self._cluster = distributed.LocalCluster(n_workers=self.workers, threads_per_worker=1,
+                                                     processes=True, dashboard_address=None)
+            self._client = distributed.Client(self._cluster)
+        elif isinstance(self.scheduler, str):
+            self._client = distributed.Client(self.scheduler)
+        else:
+            self._client = self.scheduler
+        try:
+            self._shared_f = self._client.scatter(self.shared, broadcast=True)
+        except BaseException:
+            self.__exit__(None, None, None)
+            raise
+        return self
+
+    def submit(self, i, task, label=None):
+        """Run task number ``i``; ``label`` names the Dask task (default: its number)."""
+        if self._pool is not None:
+            return self._pool.submit(_call_local, i, task)
+        key = f"tallchain-{self._run}-{i if label is None else label}"
+        return self._client.submit(_call_dask, self.fn, self._shared_f, i, task, key=key,
+                                   retries=self.retries, pure=False)
+
+    def as_completed(self, futures):
+        """The futures in the order they finish."""
+        if self._pool is not None:
+            return as_completed(futures)
+        return self._distributed.as_completed(futures)
+
+    def cancel(self, futures):
+        """Drop the tasks not yet finished (a local task already running runs to its end)."""
+        for f in futures:
+            f.cancel()
+
+    def __exit__(self, *exc):
+        if self._pool is not None:
+            self._pool.shutdown(wait=True, cancel_futures=True)
+            self._pool = None
+        if self._cluster is not None:
+            self._client.close()
+            self._cluster.close()
+        elif isinstance(self.scheduler, str) and self._client is not None:
+            self._client.close()
+        self._client = self._cluster = None
+        return False
 
 
 def run_tasks(fn, shared, tasks, *, scheduler="processes", workers=None, retries=2,
@@ -90,20 +191,13 @@ def run_tasks(fn, shared, tasks, *, scheduler="processes", workers=None, retries
         Label of a progress bar over the tasks (shown only on a terminal).
     """
     check_scheduler(scheduler)
+    check_workers(workers)
     tasks = list(tasks)
     bar = None
     if progress and tasks and os.isatty(2):
         from tqdm import tqdm
 
         bar = tqdm(total=len(tasks), unit="task", desc=progress, leave=False)
-    try:
-        return _run(fn, shared, tasks, scheduler, workers, retries, on_result, bar)
-    finally:
-        if bar is not None:
-            bar.close()
-
-
-def _run(fn, shared, tasks, scheduler, workers, retries, on_result, bar):
     results = [None] * len(tasks)
 
     def _done(i, r):
@@ -114,42 +208,18 @@ def _run(fn, shared, tasks, scheduler, workers, retries, on_result, bar):
             bar.update(1)
 
     n_workers = max(1, min(len(tasks), workers or os.cpu_count() or 1))
-    if not tasks:
-        return results
-    if scheduler == "serial" or (scheduler == "processes" and n_workers == 1):
-        for i, t in enumerate(tasks):
-            _done(i, fn(shared, t))
-        return results
-    if scheduler == "processes":
-        ctx = multiprocessing.get_context("forkserver")
-        with ProcessPoolExecutor(n_workers, mp_context=ctx, initializer=_set_shared,
-                                 initargs=(fn, shared)) as pool:
-            futures = [pool.submit(_call_local, i, t) for i, t in enumerate(tasks)]
-            for f in as_completed(futures):
+    try:
+        if not tasks:
+            return results
+        if scheduler == "serial" or (scheduler == "processes" and n_workers == 1):
+            for i, t in enumerate(tasks):
+                _done(i, fn(shared, t))
+            return results
+        with TaskPool(fn, shared, scheduler, n_workers, retries) as pool:
+            futures = [pool.submit(i, t) for i, t in enumerate(tasks)]
+            for f in pool.as_completed(futures):
                 _done(*f.result())
         return results
-
-    distributed = _import_distributed(repr(scheduler))
-    cluster = None
-    if scheduler == "dask-local":
-        cluster = distributed.LocalCluster(n_workers=n_workers, threads_per_worker=1,
-                                           processes=True, dashboard_address=None)
-        client = distributed.Client(cluster)
-    elif isinstance(scheduler, str):
-        client = distributed.Client(scheduler)
-    else:
-        client = scheduler
-    try:
-        shared_f = client.scatter(shared, broadcast=True)
-        run = uuid.uuid4().hex[:8]
-        futures = [client.submit(_call_dask, fn, shared_f, i, t, key=f"tallchain-{run}-{i}",
-                                 retries=retries, pure=False) for i, t in enumerate(tasks)]
-        for f in distributed.as_completed(futures):
-            _done(*f.result())
     finally:
-        if cluster is not None:
-            client.close()
-            cluster.close()
-        elif isinstance(scheduler, str):
-            client.close()
-    return results
+        if bar is not None:
+            bar.close()

@@ -1,6 +1,7 @@
 """The public entry point `sample`: validation, set-up, warmup, many chains."""
 
 import math
+import os
 import time
 import warnings
 from dataclasses import dataclass
@@ -13,6 +14,7 @@ from . import _driver
 from ._methods import BROKEN_METHODS, METHODS, NOISE_VARIANCE
 from ._preconditioning import ControlVariateCache, control_variate_cache, make_preconditioner
 from ._validation import fail, positive_int
+from .executors import check_scheduler, check_workers
 from .mode import find_mode
 from .result import SampleResult
 
@@ -205,7 +207,8 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
            gradient_batch="fresh", checkpoint=None, resume=False, checkpoint_seconds=30.0,
            preparation=None,
            target_log_ratio_sd=DEFAULT_TARGET_LOG_RATIO_SD, batch_floor=DEFAULT_BATCH_FLOOR,
-           batch_ceiling=DEFAULT_BATCH_CEILING, progress=False, parallel=True):
+           batch_ceiling=DEFAULT_BATCH_CEILING, progress=False, parallel=True,
+           scheduler="threads", workers=None):
     """Draw from the posterior of a regression model.
 
     Parameters
@@ -256,6 +259,15 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
         Show a progress bar (only on a terminal).
     parallel : bool, default=True
         Run chains in threads (the kernel releases the GIL); results do not depend on it.
+    scheduler : str or distributed.Client, default="threads"
+        Where the chains run. "threads": threads of this process; "serial": one after another
+        here; "processes": local worker processes; "dask-local" (a LocalCluster started and
+        closed here), a Dask scheduler address ("tcp://host:8786") or a Client: each chain's
+        next stretch of iterations is one Dask task, retried if its worker dies. The draws
+        are the same, bit for bit, wherever the chains run.
+    workers : int, optional
+        Worker processes for "processes" and "dask-local" (default: one per chain, at most the
+        number of cores).
 
     Returns
     -------
@@ -274,6 +286,8 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
     Welling & Teh (2011), ICML (SGLD).
     """
     t_setup = time.perf_counter()
+    check_scheduler(scheduler, threads=True)
+    check_workers(workers)
     spec, chains, draws, warmup, cv = _check_settings(
         model, method, step_size, batch_size, chains, draws, warmup, noise_variance,
         control_variates, cv_order, target_log_ratio_sd, gradient_batch, batch_floor,
@@ -315,9 +329,14 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
     # Penalty methods aim at the exact-method rate times the share that the noise lets through
     # (see run_chain); target_log_ratio_sd caps the noise level used for that share.
     noise_cap = target_log_ratio_sd if spec.rule in (_acc.PENALTY, _acc.PENALTY_CD) else 0.0
-    runner = _driver.Runner(model, spec, _chain.CARRIED if carried else spec.gradient, var_code,
-                            noise_cap, cache, pre, warmup, adapt_step, all_draws, all_stats,
-                            progress, parallel)
+    job = _driver.ChainJob(model, spec, _chain.CARRIED if carried else spec.gradient, var_code,
+                           noise_cap, cache, pre, warmup, adapt_step)
+    if scheduler in ("threads", "serial"):
+        runner = _driver.Runner(job, all_draws, all_stats, progress,
+                                parallel and scheduler == "threads")
+    else:
+        runner = _driver.TaskRunner(job, all_draws, all_stats, progress, scheduler,
+                                    workers or min(chains, os.cpu_count() or 1))
     schedule = _driver.Schedule(spec, batch_size, model.n_rows, warmup, draws,
                                 target_log_ratio_sd, batch_floor, batch_ceiling, _PILOT_BATCH)
     ckpt = None

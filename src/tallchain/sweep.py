@@ -216,9 +216,10 @@ def sweep(model, *, methods=("penalty-mala", "sgld"), step_sizes=None, batch_siz
                                               preparation=preparation), \
             "full-data mala run (cached)"
 
-    from .executors import check_scheduler, run_tasks
+    from .executors import check_scheduler, check_workers, run_tasks
 
     check_scheduler(scheduler)
+    check_workers(workers)
     seeds = np.random.SeedSequence(seed).spawn(len(grid))
     n_workers = min(len(grid), workers or os.cpu_count() or 1)
     local = scheduler == "serial" or (scheduler == "processes" and n_workers == 1)
