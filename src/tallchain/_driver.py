@@ -28,7 +28,7 @@ ROUND = 4 * CHUNK
 # Chains as tasks: rounds sized to about this many seconds, at most this many ROUNDs.
 TASK_SECONDS = 2.0
 MAX_TASK_ROUNDS = 256
-CHECKPOINT_VERSION = 1
+CHECKPOINT_VERSION = 2
 
 
 class ChainState:
