@@ -18,9 +18,9 @@ from .executors import check_scheduler, check_workers
 from .mode import find_mode
 from .result import SampleResult
 
-# Default target sd of the minibatch log-ratio for batch_size="auto"; see README ("choosing
-# the batch size") for the measurement behind it.
-DEFAULT_TARGET_LOG_RATIO_SD = 1.0
+# Default target sd of the minibatch log-ratio for batch_size="auto"; the measurement behind it
+# (benchmarks/bench_noise_target.py) is in the README, under "Batch size".
+DEFAULT_TARGET_LOG_RATIO_SD = 1.5
 DEFAULT_BATCH_FLOOR = 32
 DEFAULT_BATCH_CEILING = 100_000
 _PILOT_BATCH = 64
