@@ -123,3 +123,27 @@ def test_collinear_constant_column_is_not_mistaken_for_separation():
     y = (rng.random(400) < 0.4).astype(float)
     lap = tc.find_mode(tc.LogisticRegression(X, y, prior=tc.GaussianPrior(sd=10.0)))
     assert np.all(np.isfinite(lap.mode))
+
+
+@pytest.mark.parametrize("family", ["logistic", "poisson"])
+def test_parallel_passes_give_the_serial_mode(rng, monkeypatch, family):
+    # Three row blocks: the parallel passes differ from the serial ones in rounding only, which
+    # L-BFGS may turn into a different stop within its tolerance.
+    from tallchain import _full_passes
+    from tallchain.models._kernels import BLOCK_ROWS
+
+    n = 3 * BLOCK_ROWS
+    X = rng.normal(0.0, 0.8, size=(n, 3))
+    eta = 0.4 + X @ np.array([1.0, -0.5, 0.3])
+    if family == "logistic":
+        model = tc.LogisticRegression(X, (rng.random(n) < special.expit(eta)).astype(float))
+    else:
+        model = tc.PoissonRegression(X, rng.poisson(np.exp(eta)).astype(float))
+    laps = []
+    for threshold in (n + 1, n):
+        monkeypatch.setattr(_full_passes, "PARALLEL_MIN_ROWS", threshold)
+        laps.append(tc.find_mode(model))
+    serial, parallel = laps
+    sd = np.sqrt(np.diag(serial.cov))
+    assert_allclose((parallel.mode - serial.mode) / sd, 0.0, rtol=0, atol=1e-6)
+    assert_allclose(parallel.precision, serial.precision, rtol=1e-6)

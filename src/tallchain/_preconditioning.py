@@ -4,8 +4,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from . import _full_passes
 from ._validation import fail, spd_matrix_and_inverse
-from .models import _kernels
 
 
 @dataclass
@@ -74,9 +74,8 @@ def row_cache(family, X, y, offset, noise_sd, intercept, beta_star):
     aux = np.empty((X.shape[0], 4))
     aux[:, 0] = y
     # written straight into the columns: no N-length temporaries beside the cache
-    _kernels.full_eta_derivatives(family, X, y, offset, noise_sd, intercept,
-                                  np.ascontiguousarray(beta_star, dtype=float),
-                                  aux[:, 1], aux[:, 2], aux[:, 3])
+    _full_passes.eta_derivatives((family, X, y, offset, noise_sd, intercept), beta_star,
+                                 aux[:, 1], aux[:, 2], aux[:, 3])
     return aux
 
 
@@ -88,6 +87,6 @@ def control_variate_cache(model, beta_star, order):
     aux = row_cache(*model.kernel_args, beta_star)
     if order == 0:
         return ControlVariateCache(0, beta_star, aux, np.zeros(d), np.zeros((d, d)))
-    _, g_star = model.log_likelihood_grad(beta_star)
-    H_star = model.log_likelihood_hessian(beta_star) if order >= 2 else np.zeros((d, d))
+    _, g_star = _full_passes.loglik_grad(model.kernel_args, beta_star)
+    H_star = _full_passes.hessian(model.kernel_args, beta_star) if order >= 2 else np.zeros((d, d))
     return ControlVariateCache(order, beta_star, aux, g_star, H_star)

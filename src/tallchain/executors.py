@@ -34,10 +34,19 @@ from ._validation import fail
 _SHARED = None
 
 
+def _one_numba_thread():
+    # Workers run side by side, one per core: the parallel set-up passes of a task (mode
+    # finding in a calibration replication) would only oversubscribe the cores.
+    import numba
+
+    numba.set_num_threads(1)
+
+
 def _set_shared(fn, shared):
     global _SHARED
     _SHARED = (fn, shared)
     warnings.simplefilter("ignore")
+    _one_numba_thread()
 
 
 def _call_local(i, task):
@@ -46,6 +55,7 @@ def _call_local(i, task):
 
 
 def _call_dask(fn, shared, i, task):
+    _one_numba_thread()
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         return i, fn(shared, task)

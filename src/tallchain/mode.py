@@ -5,6 +5,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import optimize
 
+from . import _full_passes
+
 
 class ModeNotFoundError(RuntimeError):
     """L-BFGS did not converge to the posterior mode."""
@@ -39,8 +41,8 @@ def find_mode(model, *, start=None, tol=1e-9, max_iter=1000):
     """Maximise the log posterior by L-BFGS (scipy.optimize, method "L-BFGS-B").
 
     One objective evaluation is one pass over the rows computing the log-likelihood and its
-    gradient together (numba kernel). The Hessian at the mode is computed exactly in one more
-    pass.
+    gradient together (numba kernel, parallel over rows on tall data). The Hessian at the mode
+    is computed exactly in one more pass.
 
     Parameters
     ----------
@@ -66,7 +68,7 @@ def find_mode(model, *, start=None, tol=1e-9, max_iter=1000):
     def neg_log_post(beta):
         nonlocal n_eval
         n_eval += 1
-        ll, g = model.log_likelihood_grad(beta)
+        ll, g = _full_passes.loglik_grad(model.kernel_args, beta)
         r = beta - model.prior_mean
         pg = model.prior_prec @ r
         val = -(ll - 0.5 * r @ pg)
@@ -87,7 +89,7 @@ def find_mode(model, *, start=None, tol=1e-9, max_iter=1000):
             f"mode finding: L-BFGS stopped after {res.nit} iterations with gradient "
             f"{grad_norm:.3g} ({res.message}); check the data for separation (logistic) or "
             "huge counts (Poisson), or use a tighter prior")
-    info = -model.log_likelihood_hessian(res.x)
+    info = -_full_passes.hessian(model.kernel_args, res.x)
     if model.family_name == "logistic":
         _check_separation(model, res.x, info)
     precision = info + model.prior_prec
@@ -112,7 +114,7 @@ def _check_separation(model, mode, info):
     the optimiser travelled. With an informative prior the posterior is proper and the mode is
     kept: sampling then works, and no error is raised.
     """
-    info0 = -model.log_likelihood_hessian(model.prior_mean)
+    info0 = -_full_passes.hessian(model.kernel_args, model.prior_mean)
     evals, evecs = np.linalg.eigh(0.5 * (info0 + info0.T))
     for lam0, v in zip(evals, evecs.T):
         # A direction without information even at the prior mean is collinearity (e.g. a

@@ -27,7 +27,12 @@ _HALF_LOG_2PI = 0.5 * math.log(2.0 * math.pi)
 
 # Reassociation and contraction let LLVM vectorise the row dot products and sums; NaN and inf
 # keep their IEEE meaning (no "nnan"/"ninf"), which the overflow handling relies on.
-jit = numba.njit(cache=True, nogil=True, fastmath={"reassoc", "contract", "arcp"}, error_model="numpy")
+_OPTIONS = dict(cache=True, nogil=True, fastmath={"reassoc", "contract", "arcp"}, error_model="numpy")
+jit = numba.njit(**_OPTIONS)
+pjit = numba.njit(parallel=True, **_OPTIONS)
+
+# The parallel set-up passes split the rows into blocks of this size, whatever the thread count.
+BLOCK_ROWS = 4096
 
 
 @jit
@@ -293,3 +298,70 @@ def full_eta_derivatives(family, X, y, offset, noise_sd, intercept, beta, eta, f
         eta[i] = e
         f1[i] = dloglik_eta(family, e, y[i], noise_sd)
         f2[i] = d2loglik_eta(family, e, y[i], noise_sd)
+
+
+# ---------------------------------------------------------------------------------------------
+# Parallel full-data kernels (set-up passes: mode finding, Hessian, row cache)
+#
+# Each fixed block of BLOCK_ROWS rows is summed serially by the serial kernel above, and the
+# block sums are added in block order: the result does not depend on the number of threads.
+# Callers must not launch these from two Python threads at once (see tallchain._full_passes).
+# ---------------------------------------------------------------------------------------------
+
+
+@jit
+def _block_bounds(b, n):
+    """Rows [lo, hi) of block b of n rows."""
+    lo = b * BLOCK_ROWS
+    return lo, min(lo + BLOCK_ROWS, n)
+
+
+@pjit
+def par_loglik_grad_shifted(family, X, y, offset, noise_sd, intercept, beta, grad, with_const):
+    """As `full_loglik_grad_shifted`, parallel over blocks of rows."""
+    n = X.shape[0]
+    d = grad.shape[0]
+    nb = (n + BLOCK_ROWS - 1) // BLOCK_ROWS
+    part = np.empty((nb, d + 1))
+    for b in numba.prange(nb):
+        lo, hi = _block_bounds(b, n)
+        part[b, 0] = full_loglik_grad_shifted(family, X[lo:hi], y[lo:hi], offset[lo:hi], noise_sd,
+                                              intercept, beta, part[b, 1:], with_const)
+    acc = 0.0
+    for j in range(d):
+        grad[j] = 0.0
+    for b in range(nb):
+        acc += part[b, 0]
+        for j in range(d):
+            grad[j] += part[b, j + 1]
+    return acc
+
+
+@pjit
+def par_hessian(family, X, y, offset, noise_sd, intercept, beta, hess):
+    """As `full_hessian`, parallel over blocks of rows (hess is overwritten)."""
+    n = X.shape[0]
+    d = hess.shape[0]
+    nb = (n + BLOCK_ROWS - 1) // BLOCK_ROWS
+    part = np.empty((nb, d, d))
+    for b in numba.prange(nb):
+        lo, hi = _block_bounds(b, n)
+        full_hessian(family, X[lo:hi], y[lo:hi], offset[lo:hi], noise_sd, intercept, beta,
+                     part[b])
+    for a in range(d):
+        for c in range(d):
+            acc = 0.0
+            for b in range(nb):
+                acc += part[b, a, c]
+            hess[a, c] = acc
+
+
+@pjit
+def par_eta_derivatives(family, X, y, offset, noise_sd, intercept, beta, eta, f1, f2):
+    """As `full_eta_derivatives`, parallel over blocks of rows (each row is independent)."""
+    n = X.shape[0]
+    nb = (n + BLOCK_ROWS - 1) // BLOCK_ROWS
+    for b in numba.prange(nb):
+        lo, hi = _block_bounds(b, n)
+        full_eta_derivatives(family, X[lo:hi], y[lo:hi], offset[lo:hi], noise_sd, intercept, beta,
+                             eta[lo:hi], f1[lo:hi], f2[lo:hi])
