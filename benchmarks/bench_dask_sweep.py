@@ -4,6 +4,10 @@ Logistic regression (invented data, N = 20,000, d = 4), penalty-mala and sgld at
 each (24 grid points), each point 2 chains x (300 warmup + 1500 draws). The reference run is
 made once and cached before timing. Prints both wall times and their ratio; the sweep tables
 of both runs must be equal (timings aside), which the script checks.
+
+Then the chains of one run as tasks: full-data MALA, 2 chains, N = 200,000 (the same kind of
+data), in threads of this process and on dask-local with 1 and 2 workers (cluster start-up
+included); the draws must be equal bit for bit, which the script checks.
 Run:  .venv/bin/python benchmarks/bench_dask_sweep.py [--quick]
 """
 
@@ -46,7 +50,29 @@ def main():
     print(f"24-point sweep, dask-local: 1 worker {walls[1]:.1f} s, 2 workers {walls[2]:.1f} s")
     print(f"check: tables equal with 1 and 2 workers: {'ok' if same else 'FAILED'}")
     print(f"ratio (wall 1 worker / wall 2 workers): {walls[1] / walls[2]:.2f}")
-    if not same:
+
+    n_big = 200_000
+    Xb = rng.standard_normal((n_big, 3))
+    yb = (rng.random(n_big) < 1 / (1 + np.exp(-(Xb @ [0.6, -0.3, 0.2])))).astype(float)
+    big = tc.LogisticRegression(Xb, yb)
+    run = dict(method="mala", chains=2, draws=800 if args.quick else 2500, warmup=300, seed=5)
+    tc.sample(big, **dict(run, draws=30, warmup=30))   # compile before timing
+    chain_walls, chain_draws = {}, {}
+    for where, workers in (("threads", None), ("dask-local", 1), ("dask-local", 2)):
+        t = time.perf_counter()
+        r = tc.sample(big, scheduler=where, workers=workers, **run)
+        chain_walls[(where, workers)] = time.perf_counter() - t
+        chain_draws[(where, workers)] = r.draws
+    same_chains = all(np.array_equal(d, chain_draws[("threads", None)])
+                      for d in chain_draws.values())
+    t_thr, t1, t2 = (chain_walls[k] for k in (("threads", None), ("dask-local", 1),
+                                               ("dask-local", 2)))
+    print(f"2-chain MALA run, N = {n_big:,d}: threads {t_thr:.1f} s, dask-local 1 worker "
+          f"{t1:.1f} s, 2 workers {t2:.1f} s")
+    print(f"check: draws equal in threads and on 1 and 2 workers: "
+          f"{'ok' if same_chains else 'FAILED'}")
+    print(f"ratio (1 worker / 2 workers): {t1 / t2:.2f}; (2 workers / threads): {t2 / t_thr:.2f}")
+    if not (same and same_chains):
         raise SystemExit(1)
 
 
