@@ -135,6 +135,8 @@ def test_overrides_replace_keys_and_are_named_as_such(folder, tmp_path, monkeypa
     ("[sampler]\nbatch_size = \"big\"\n", r'^sampler\.batch_size: must be an integer or "auto"'),
     ("[sampler]\nchains = 0\n", r"^sampler\.chains: must be >= 1, got 0"),
     ("[sampler]\ndraws = 0\n", r"^sampler\.draws: must be >= 1, got 0"),
+    ("[compute]\nworkers = 0\n", r"^compute\.workers: must be a whole number >= 1, got 0"),
+    ("[compute]\nscheduler = \"gpu\"\n", r"^compute\.scheduler: unknown scheduler 'gpu'"),
     ("[sampler]\nwarmup = -1\n", r"^sampler\.warmup: must be >= 0, got -1"),
     ("[sampler]\nwarmup = 10\n", r'^sampler\.warmup: is 10, too short to tune step_size="auto"'),
     ("[sampler]\nseed = -3\n", r"^sampler\.seed: must be a non-negative integer, got -3"),

@@ -15,6 +15,7 @@ import json
 import math
 import os
 import threading
+import time
 from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
@@ -174,8 +175,6 @@ class TaskRunner(Runner):
         return self._round
 
     def run(self, states, until, n_batch, pool):
-        import time
-
         t0 = time.monotonic()
         start = {c: st.iteration for c, st in enumerate(states) if st.iteration < until}
         futures = [pool.submit(c, (states[c], until, n_batch), label=f"chain{c}-to{until}")
@@ -270,8 +269,6 @@ def drive(runner, states, schedule, *, checkpoint=None, checkpoint_seconds=30.0,
 
     Raises Interrupted (after writing the checkpoint) when the user interrupts.
     """
-    import time
-
     total = schedule.segments[-1][0]
     todo = sum(max(0, total - st.iteration) for st in states)
     if runner.progress and todo and os.isatty(2):

@@ -135,13 +135,15 @@ def batch_residual_diffs(family, X, aux, noise_sd, intercept, delta_new, delta_o
     p = X.shape[1]
     w1 = delta_new[intercept:]
     w0 = delta_old[intercept:]
+    d1 = delta_new[0] if intercept else 0.0
+    d0 = delta_old[0] if intercept else 0.0
     e1 = work[0]
     e0 = work[1]
     yv = work[2]
     for k in range(n):
         i = idx[k]
-        u1 = delta_new[0] if intercept else 0.0
-        u0 = delta_old[0] if intercept else 0.0
+        u1 = d1
+        u0 = d0
         for j in range(p):
             x = X[i, j]
             u1 += x * w1[j]

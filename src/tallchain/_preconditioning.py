@@ -87,6 +87,6 @@ def control_variate_cache(model, beta_star, order):
     aux = row_cache(*model.kernel_args, beta_star)
     if order == 0:
         return ControlVariateCache(0, beta_star, aux, np.zeros(d), np.zeros((d, d)))
-    _, g_star = _full_passes.loglik_grad(model.kernel_args, beta_star)
-    H_star = _full_passes.hessian(model.kernel_args, beta_star) if order >= 2 else np.zeros((d, d))
+    _, g_star = model.log_likelihood_grad(beta_star)
+    H_star = model.log_likelihood_hessian(beta_star) if order >= 2 else np.zeros((d, d))
     return ControlVariateCache(order, beta_star, aux, g_star, H_star)

@@ -280,16 +280,15 @@ def config_from_dict(raw, *, base_dir=".", stem="run", overrides=None, path=None
 
 
 def _check_compute(compute):
-    from .executors import check_scheduler
+    from .executors import check_scheduler, check_workers
 
-    if "scheduler" in compute:
-        try:
-            check_scheduler(compute["scheduler"], threads=True)
-        except InputError as exc:
-            raise InputError(str(exc).replace("scheduler:", "compute.scheduler:", 1)) from None
-    if "workers" in compute and compute["workers"] < 1:
-        fail("compute.workers", f"must be >= 1, got {compute['workers']}",
-             "give the number of worker processes")
+    for key, check in (("scheduler", lambda v: check_scheduler(v, threads=True)),
+                       ("workers", check_workers)):
+        if key in compute:
+            try:
+                check(compute[key])
+            except InputError as exc:
+                raise InputError(str(exc).replace(f"{key}:", f"compute.{key}:", 1)) from None
 
 
 def _check_shape(raw):

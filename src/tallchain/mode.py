@@ -5,8 +5,6 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import optimize
 
-from . import _full_passes
-
 
 class ModeNotFoundError(RuntimeError):
     """L-BFGS did not converge to the posterior mode."""
@@ -68,7 +66,7 @@ def find_mode(model, *, start=None, tol=1e-9, max_iter=1000):
     def neg_log_post(beta):
         nonlocal n_eval
         n_eval += 1
-        ll, g = _full_passes.loglik_grad(model.kernel_args, beta)
+        ll, g = model.log_likelihood_grad(beta)
         r = beta - model.prior_mean
         pg = model.prior_prec @ r
         val = -(ll - 0.5 * r @ pg)
@@ -89,7 +87,7 @@ def find_mode(model, *, start=None, tol=1e-9, max_iter=1000):
             f"mode finding: L-BFGS stopped after {res.nit} iterations with gradient "
             f"{grad_norm:.3g} ({res.message}); check the data for separation (logistic) or "
             "huge counts (Poisson), or use a tighter prior")
-    info = -_full_passes.hessian(model.kernel_args, res.x)
+    info = -model.log_likelihood_hessian(res.x)
     if model.family_name == "logistic":
         _check_separation(model, res.x, info)
     precision = info + model.prior_prec
@@ -114,7 +112,7 @@ def _check_separation(model, mode, info):
     the optimiser travelled. With an informative prior the posterior is proper and the mode is
     kept: sampling then works, and no error is raised.
     """
-    info0 = -_full_passes.hessian(model.kernel_args, model.prior_mean)
+    info0 = -model.log_likelihood_hessian(model.prior_mean)
     evals, evecs = np.linalg.eigh(0.5 * (info0 + info0.T))
     for lam0, v in zip(evals, evecs.T):
         # A direction without information even at the prior mean is collinearity (e.g. a

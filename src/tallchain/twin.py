@@ -4,10 +4,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from . import _full_passes
 from .conjugate import conjugate_posterior
 from .diagnostics import ks_check
 from .models import LinearRegression
-from .models import _kernels
 
 
 @dataclass
@@ -65,7 +65,7 @@ def conjugate_twin(model, *, seed=None):
     lap = find_mode(model)
     n = model.n_rows
     eta, f1, f2 = np.empty(n), np.empty(n), np.empty(n)
-    _kernels.full_eta_derivatives(*model.kernel_args, lap.mode, eta, f1, f2)
+    _full_passes.eta_derivatives(model.kernel_args, lap.mode, eta, f1, f2)
     noise_sd = 1.0 / np.sqrt(max(float(np.mean(-f2)), 1e-12))
     rng = np.random.default_rng(seed)
     beta = lap.mode + 0.1 * rng.multivariate_normal(np.zeros(model.n_coef), model.prior_cov)

@@ -98,16 +98,18 @@ class _GLM:
         return _kernels.full_loglik(*self.kernel_args, _coef(beta, self.n_coef))
 
     def log_likelihood_grad(self, beta):
-        """Full-data log-likelihood and its gradient, in one pass over the rows."""
-        grad = np.empty(self.n_coef)
-        val = _kernels.full_loglik_grad(*self.kernel_args, _coef(beta, self.n_coef), grad)
-        return val, grad
+        """Full-data log-likelihood and its gradient, in one pass over the rows (parallel over
+        rows on tall data)."""
+        from .._full_passes import loglik_grad  # imported here: it imports this module
+
+        return loglik_grad(self.kernel_args, beta)
 
     def log_likelihood_hessian(self, beta):
-        """Full-data log-likelihood Hessian sum_i f''(eta_i) x_i x_i^T."""
-        hess = np.empty((self.n_coef, self.n_coef))
-        _kernels.full_hessian(*self.kernel_args, _coef(beta, self.n_coef), hess)
-        return hess
+        """Full-data log-likelihood Hessian sum_i f''(eta_i) x_i x_i^T (parallel over rows on
+        tall data)."""
+        from .._full_passes import hessian
+
+        return hessian(self.kernel_args, beta)
 
     def log_prior(self, beta):
         """Log prior density up to its normalising constant."""
