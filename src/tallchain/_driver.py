@@ -23,6 +23,7 @@ import numpy as np
 
 from . import _chain
 from ._validation import fail
+from .executors import worker_count
 
 CHUNK = 256
 ROUND = 4 * CHUNK
@@ -108,7 +109,7 @@ class Runner:
 
     def open_pool(self, n_chains):
         """The workers of the run (a context manager)."""
-        workers = min(n_chains, os.cpu_count() or 1) if self.parallel else 1
+        workers = worker_count(None, n_chains) if self.parallel else 1
         return ThreadPoolExecutor(max_workers=workers)
 
     def round_length(self):

@@ -7,7 +7,6 @@ calibrated the ranks are uniform on {0, ..., L} (Talts, Betancourt, Simpson, Veh
 "Validating Bayesian inference algorithms with simulation-based calibration", 2018).
 """
 
-import os
 import warnings
 from dataclasses import dataclass
 
@@ -179,12 +178,12 @@ def calibrate(model, *, replications=100, thinned_draws=99, prior="laplace", lev
         cal_prior = model.prior
     else:
         fail("prior", f"unknown calibration prior {prior!r}", 'use "laplace" or "model"')
-    from .executors import check_scheduler, check_workers, run_tasks
+    from .executors import check_scheduler, check_workers, run_tasks, worker_count
 
     check_scheduler(scheduler)
     check_workers(workers)
     seeds = np.random.SeedSequence(seed).spawn(replications)
-    n_workers = min(replications, workers or os.cpu_count() or 1)
+    n_workers = worker_count(workers, replications)
     settings = dict(settings)
     settings.setdefault("chains", 2)
     settings.setdefault("draws", 500)

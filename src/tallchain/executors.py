@@ -95,6 +95,12 @@ def check_workers(workers):
              "give the number of worker processes, or leave it out")
 
 
+def worker_count(workers, n_tasks):
+    """The workers to start for ``n_tasks`` tasks: ``workers`` (default: the number of cores),
+    never more than the tasks, at least one."""
+    return max(1, min(n_tasks, workers or os.cpu_count() or 1))
+
+
 class TaskPool:
     """Workers that run ``fn(shared, task)``, with ``shared`` sent once per worker.
 
@@ -217,7 +223,7 @@ def run_tasks(fn, shared, tasks, *, scheduler="processes", workers=None, retries
         if bar is not None:
             bar.update(1)
 
-    n_workers = max(1, min(len(tasks), workers or os.cpu_count() or 1))
+    n_workers = worker_count(workers, len(tasks))
     try:
         if not tasks:
             return results

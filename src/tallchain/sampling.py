@@ -1,7 +1,6 @@
 """The public entry point `sample`: validation, set-up, warmup, many chains."""
 
 import math
-import os
 import time
 import warnings
 from dataclasses import dataclass
@@ -14,7 +13,7 @@ from . import _driver
 from ._methods import BROKEN_METHODS, METHODS, NOISE_VARIANCE
 from ._preconditioning import ControlVariateCache, control_variate_cache, make_preconditioner
 from ._validation import fail, positive_int
-from .executors import check_scheduler, check_workers
+from .executors import check_scheduler, check_workers, worker_count
 from .mode import find_mode
 from .result import SampleResult
 
@@ -336,7 +335,7 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
                                 parallel and scheduler == "threads")
     else:
         runner = _driver.TaskRunner(job, all_draws, all_stats, progress, scheduler,
-                                    workers or min(chains, os.cpu_count() or 1))
+                                    worker_count(workers, chains))
     schedule = _driver.Schedule(spec, batch_size, model.n_rows, warmup, draws,
                                 target_log_ratio_sd, batch_floor, batch_ceiling, _PILOT_BATCH)
     ckpt = None

@@ -216,12 +216,12 @@ def sweep(model, *, methods=("penalty-mala", "sgld"), step_sizes=None, batch_siz
                                               preparation=preparation), \
             "full-data mala run (cached)"
 
-    from .executors import check_scheduler, check_workers, run_tasks
+    from .executors import check_scheduler, check_workers, run_tasks, worker_count
 
     check_scheduler(scheduler)
     check_workers(workers)
     seeds = np.random.SeedSequence(seed).spawn(len(grid))
-    n_workers = min(len(grid), workers or os.cpu_count() or 1)
+    n_workers = worker_count(workers, len(grid))
     local = scheduler == "serial" or (scheduler == "processes" and n_workers == 1)
     point_settings = dict(settings, chains=chains, draws=draws, warmup=warmup, parallel=local,
                           preparation=preparation)
