@@ -54,26 +54,62 @@ def client():
     cluster.close()
 
 
-def _start_killing_one_busy_worker(client, seconds=120):
-    """A thread that SIGKILLs the first worker seen running a task; ``lost["keys"]`` names the
-    tasks it was running."""
+def _start_killing(client, victims, seconds=120):
+    """A thread that polls ``victims(client)`` until it names workers, then SIGKILLs them;
+    ``lost`` gets what ``victims`` returned beside them."""
     lost = {}
 
     def kill():
         deadline = time.time() + seconds
         while time.time() < deadline and not lost:
-            busy = {w: keys for w, keys in client.processing().items() if keys}
-            if busy:
-                worker, keys = next(iter(busy.items()))
-                pid = client.run(os.getpid, workers=[worker])[worker]
-                lost["keys"] = list(keys)
-                os.kill(pid, signal.SIGKILL)
+            found = victims(client)
+            if found:
+                workers, record = found
+                pids = client.run(os.getpid, workers=list(workers))
+                lost.update(record, workers=len(pids))
+                for pid in pids.values():
+                    os.kill(pid, signal.SIGKILL)
                 return
             time.sleep(0.05)
 
     killer = threading.Thread(target=kill)
     killer.start()
     return lost, killer
+
+
+def _start_killing_one_busy_worker(client):
+    """Kill the first worker seen running a task; ``lost["keys"]`` names its tasks."""
+    def busy(client):
+        for worker, keys in client.processing().items():
+            if keys:
+                return [worker], {"keys": list(keys)}
+    return _start_killing(client, busy)
+
+
+def _start_killing_the_holders_of(client, prefix):
+    """Once a task runs, kill every worker holding data whose key starts with ``prefix``, so
+    that the cluster loses its every copy."""
+    def holders(client):
+        if any(client.processing().values()):
+            found = {w for key, ws in client.who_has().items()
+                     if str(key).startswith(prefix) for w in ws}
+            if found:
+                return found, {}
+    return _start_killing(client, holders)
+
+
+def _count_scatters(monkeypatch):
+    from tallchain.executors import TaskPool
+
+    calls = {"n": 0}
+    original = TaskPool._scatter_shared
+
+    def counted(self):
+        calls["n"] += 1
+        return original(self)
+
+    monkeypatch.setattr(TaskPool, "_scatter_shared", counted)
+    return calls
 
 
 def test_dask_local_with_one_or_two_workers_equals_local_processes(model, local, tmp_path):
@@ -160,6 +196,24 @@ def test_a_worker_killed_mid_run_is_replaced_and_its_chain_rerun(client):
     killer.join()
     assert lost, "no worker was busy to kill"
     print(f"killed a worker while it ran {lost['keys']}; the chain rounds were run again")
+    _same_run(on_cluster, tc.sample(big, **settings))
+
+
+def test_a_run_whose_job_is_lost_with_its_workers_scatters_it_again(client, monkeypatch):
+    # Every worker holding the scattered job is killed while a round runs: Dask cannot recover
+    # scattered data, so the pool must scatter the job again and resend the cancelled rounds.
+    rng = np.random.default_rng(4)
+    X = rng.standard_normal((30_000, 3))
+    y = (rng.random(30_000) < 1 / (1 + np.exp(-(X @ [0.3, -0.2, 0.1])))).astype(float)
+    big = tc.LogisticRegression(X, y)
+    settings = dict(method="mala", chains=2, draws=1500, warmup=500, seed=3)
+    scatters = _count_scatters(monkeypatch)
+    lost, killer = _start_killing_the_holders_of(client, "ChainJob-")
+    on_cluster = tc.sample(big, scheduler=client, **settings)
+    killer.join()
+    assert lost, "no worker held the job while a round ran"
+    assert scatters["n"] >= 2, "the job was never scattered again"
+    print(f"killed {lost['workers']} workers holding the job; scattered {scatters['n']} times")
     _same_run(on_cluster, tc.sample(big, **settings))
 
 

@@ -157,9 +157,10 @@ class TaskRunner(Runner):
     A task carries the chain's state (a few vectors and the generator state) and returns it
     advanced, with the round's draws; the job (model, row cache) is sent once per worker.
     Chains give the same draws as in threads, bit for bit: the kernel's state travels whole.
-    A task whose worker dies is run again from the same state (Dask's retries). Rounds grow
-    to about ``TASK_SECONDS`` of work, so that task overhead stays small and an interrupt
-    loses at most one round.
+    A task whose worker dies is run again from the same state (Dask's retries), and so is one
+    whose worker held the cluster's last copy of the job (`executors.TaskPool.results`).
+    Rounds grow to about ``TASK_SECONDS`` of work, so that task overhead stays small and an
+    interrupt loses at most one round.
     """
 
     def __init__(self, job, all_draws, all_stats, progress, scheduler, workers):
@@ -181,17 +182,16 @@ class TaskRunner(Runner):
         futures = [pool.submit(c, (states[c], until, n_batch), label=f"chain{c}-to{until}")
                    for c in start]
         try:
-            for f in pool.as_completed(futures):
-                c, (new, draws, stats) = f.result()
+            for c, (new, draws, stats) in pool.results(futures):
                 self.all_draws[c, start[c]:until] = draws
                 self.all_stats[c, start[c]:until] = stats
                 states[c].__dict__.update(new.__dict__)
                 self._tick(until - start[c])
         except KeyboardInterrupt:
-            pool.cancel(futures)
+            pool.cancel()
             raise Interrupted() from None
         except BaseException:
-            pool.cancel(futures)
+            pool.cancel()
             raise
         done = max((until - i for i in start.values()), default=0)
         if done:

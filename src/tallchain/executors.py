@@ -12,7 +12,10 @@ Schedulers:
 * ``"processes"`` (default): local worker processes (``concurrent.futures``, forkserver).
 * ``"serial"``: in this process, one task after another.
 * ``"dask-local"``: a ``distributed.LocalCluster`` started and closed here, one thread per
-  worker process; tasks whose worker dies are retried (``retries``).
+  worker process; tasks whose worker dies are retried (``retries``). If the cluster loses every
+  copy of ``shared`` (the worker holding the last one died: Dask's memory manager may drop the
+  other copies of scattered data), it is scattered again and the tasks that needed it are
+  sent again, also up to ``retries`` times.
 * ``"tcp://host:port"``: an existing Dask scheduler; or a ``distributed.Client`` object.
 
 The chains of one run use `TaskPool` directly (see ``_driver``): each chain's next stretch of
@@ -25,7 +28,7 @@ import multiprocessing
 import os
 import uuid
 import warnings
-from concurrent.futures import ProcessPoolExecutor, as_completed
+from concurrent.futures import CancelledError, ProcessPoolExecutor, as_completed
 
 import numpy as np
 
@@ -105,8 +108,8 @@ class TaskPool:
     """Workers that run ``fn(shared, task)``, with ``shared`` sent once per worker.
 
     A context manager over local worker processes (``"processes"``) or a Dask cluster
-    (``"dask-local"``, an address, or a Client); `submit` returns a future whose ``result()``
-    is ``(i, fn(shared, task))``.
+    (``"dask-local"``, an address, or a Client). `submit` sends a task; `results` hands back
+    ``(i, fn(shared, task))`` for each task as it finishes.
 
     Parameters
     ----------
@@ -117,7 +120,8 @@ class TaskPool:
     workers : int
         Worker processes for "processes" and "dask-local".
     retries : int, default=2
-        Dask only: how often a task whose worker died is resubmitted.
+        Dask only: how often a task whose worker died is resubmitted, and how often a task is
+        sent again after the cluster lost every copy of ``shared``.
     """
 
     def __init__(self, fn, shared, scheduler, workers, retries=2):
@@ -129,6 +133,8 @@ class TaskPool:
         self._pool = self._client = self._cluster = self._shared_f = None
         self._run = uuid.uuid4().hex[:8]
         self._distributed = None
+        self._sent = {}     # future -> (i, task, label, attempt, the shared copy it was sent with)
+        self.resent = 0     # tasks sent again after the cluster lost ``shared``
 
     def __enter__(self):
         if self.scheduler == "processes":
@@ -147,30 +153,63 @@ class TaskPool:
         else:
             self._client = self.scheduler
         try:
-            self._shared_f = self._client.scatter(self.shared, broadcast=True)
+            self._scatter_shared()
         except BaseException:
             self.__exit__(None, None, None)
             raise
         return self
 
+    def _scatter_shared(self):
+        # hash=False: a fresh key each time, and no hashing of a large model.
+        self._shared_f = self._client.scatter(self.shared, broadcast=True, hash=False)
+
     def submit(self, i, task, label=None):
-        """Run task number ``i``; ``label`` names the Dask task (default: its number)."""
-        if self._pool is not None:
-            return self._pool.submit(_call_local, i, task)
-        key = f"tallchain-{self._run}-{i if label is None else label}"
-        return self._client.submit(_call_dask, self.fn, self._shared_f, i, task, key=key,
-                                   retries=self.retries, pure=False)
+        """Send task number ``i``; ``label`` names the Dask task (default: its number)."""
+        if self._pool is None:
+            return self._send(i, task, label, 0)
+        f = self._pool.submit(_call_local, i, task)
+        self._sent[f] = (i, task, label, 0, None)
+        return f
 
-    def as_completed(self, futures):
-        """The futures in the order they finish."""
-        if self._pool is not None:
-            return as_completed(futures)
-        return self._distributed.as_completed(futures)
+    def _send(self, i, task, label, attempt):
+        name = i if label is None else label
+        key = f"tallchain-{self._run}-{name}" + (f"-again{attempt}" if attempt else "")
+        f = self._client.submit(_call_dask, self.fn, self._shared_f, i, task, key=key,
+                                retries=self.retries, pure=False)
+        self._sent[f] = (i, task, label, attempt, self._shared_f)
+        return f
 
-    def cancel(self, futures):
-        """Drop the tasks not yet finished (a local task already running runs to its end)."""
-        for f in futures:
+    def results(self, futures):
+        """Yield ``(i, fn(shared, task))`` for each of ``futures`` as it finishes.
+
+        On Dask, a task cancelled because the cluster lost its copy of ``shared`` is sent again
+        with a fresh copy (the same input gives the same result), at most ``retries`` times.
+        """
+        if self._pool is not None:
+            for f in as_completed(futures):
+                self._sent.pop(f, None)
+                yield f.result()
+            return
+        pending = self._distributed.as_completed(futures)
+        for f in pending:
+            i, task, label, attempt, shared_f = self._sent.pop(f)
+            try:
+                out = f.result()
+            except CancelledError:
+                if attempt >= self.retries:
+                    raise
+                if shared_f is self._shared_f:    # the first of its tasks to notice the loss
+                    self._scatter_shared()
+                self.resent += 1
+                pending.add(self._send(i, task, label, attempt + 1))
+                continue
+            yield out
+
+    def cancel(self):
+        """Drop every task not yet finished (a local task already running runs to its end)."""
+        for f in list(self._sent):
             f.cancel()
+        self._sent.clear()
 
     def __exit__(self, *exc):
         if self._pool is not None:
@@ -233,8 +272,8 @@ def run_tasks(fn, shared, tasks, *, scheduler="processes", workers=None, retries
             return results
         with TaskPool(fn, shared, scheduler, n_workers, retries) as pool:
             futures = [pool.submit(i, t) for i, t in enumerate(tasks)]
-            for f in pool.as_completed(futures):
-                _done(*f.result())
+            for i, r in pool.results(futures):
+                _done(i, r)
         return results
     finally:
         if bar is not None:
