@@ -13,6 +13,7 @@ from .models import GaussianPrior, LinearRegression, LogisticRegression, Poisson
 from .result import SampleResult
 from .sampling import NoisyLogRatioWarning, SamplingInterrupted, sample
 from ._validation import InputError
+from .executors import WorkerLostError
 
 try:
     __version__ = version("tallchain")
@@ -38,4 +39,5 @@ __all__ = [
     "ModeNotFoundError",
     # errors
     "InputError",
+    "WorkerLostError",
 ]

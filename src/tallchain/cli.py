@@ -32,6 +32,7 @@ from typing import Callable
 from . import __version__
 from ._validation import InputError
 from .config import load_config
+from .executors import WorkerLostError
 from .io import load_data
 from .mode import ModeNotFoundError
 from .models import FAMILIES
@@ -384,7 +385,7 @@ def main(argv=None):
             parser.print_help(sys.stderr)
             return EXIT_BAD_INPUT
         return COMMANDS[args.command].run(args)
-    except (InputError, ModeNotFoundError, UsageError) as exc:
+    except (InputError, ModeNotFoundError, UsageError, WorkerLostError) as exc:
         return _error(exc)
     except OSError as exc:
         where = f"{exc.filename}: " if exc.filename else ""

@@ -29,12 +29,24 @@ import os
 import uuid
 import warnings
 from concurrent.futures import CancelledError, ProcessPoolExecutor, as_completed
+from concurrent.futures.process import BrokenProcessPool
 
 import numpy as np
 
 from ._validation import fail
 
 _SHARED = None
+
+
+class WorkerLostError(RuntimeError):
+    """A local worker process died before returning its task."""
+
+
+_WORKER_LOST = (
+    "workers: a worker process died before returning its task (it was killed, ran out of "
+    "memory, or re-ran a script whose calls are not under `if __name__ == \"__main__\":`, "
+    "which worker processes import); guard the script's top-level calls, give fewer workers, "
+    'or use scheduler="serial"')
 
 
 def _one_numba_thread():
@@ -167,7 +179,10 @@ class TaskPool:
         """Send task number ``i``; ``label`` names the Dask task (default: its number)."""
         if self._pool is None:
             return self._send(i, task, label, 0)
-        f = self._pool.submit(_call_local, i, task)
+        try:
+            f = self._pool.submit(_call_local, i, task)
+        except BrokenProcessPool as exc:
+            raise WorkerLostError(_WORKER_LOST) from exc
         self._sent[f] = (i, task, label, 0, None)
         return f
 
@@ -186,9 +201,12 @@ class TaskPool:
         with a fresh copy (the same input gives the same result), at most ``retries`` times.
         """
         if self._pool is not None:
-            for f in as_completed(futures):
-                self._sent.pop(f, None)
-                yield f.result()
+            try:
+                for f in as_completed(futures):
+                    self._sent.pop(f, None)
+                    yield f.result()
+            except BrokenProcessPool as exc:
+                raise WorkerLostError(_WORKER_LOST) from exc
             return
         pending = self._distributed.as_completed(futures)
         for f in pending:
