@@ -9,6 +9,7 @@ import os
 import signal
 import subprocess
 import sys
+import textwrap
 
 import pytest
 
@@ -34,29 +35,48 @@ def test_a_killed_worker_is_a_worker_lost_error():
 
 
 SCRIPT = """\
+import operator, sys
+import numpy as np
+import tallchain as tc
 from tallchain.executors import run_tasks
+
+def work():
+    rng = np.random.default_rng(0)
+    X = rng.standard_normal((2000, 2))
+    model = tc.LogisticRegression(X, (rng.random(2000) < 0.5).astype(float))
+    r = tc.sample(model, scheduler="processes", workers=2, chains=2, draws=100, warmup=100)
+    return run_tasks(operator.mul, 2, [1, 2, 3], workers=2), r.draws.shape
+
 {call}
+"""
+CALL = """\
+try:
+    print(work())
+except tc.WorkerLostError as exc:
+    print(exc, file=sys.stderr)
+    sys.exit(3)
 """
 
 
 @pytest.mark.parametrize("guarded", [True, False])
 def test_a_script_runs_workers_under_the_main_guard_and_is_told_so_without_it(tmp_path,
                                                                                 guarded):
-    call = "print(run_tasks(operator.mul, 2, [1, 2, 3], workers=2))"
-    if guarded:
-        call = 'if __name__ == "__main__":\n    ' + call
+    call = 'if __name__ == "__main__":\n' + textwrap.indent(CALL, "    ") if guarded else CALL
     script = tmp_path / "job.py"
     script.write_text(SCRIPT.format(call=call))
     done = subprocess.run([sys.executable, str(script)], capture_output=True, text=True,
-                          timeout=120, cwd=tmp_path)
+                          timeout=300, cwd=tmp_path)
     if guarded:
         assert done.returncode == 0, done.stderr
-        assert done.stdout.strip() == "[2, 4, 6]"
+        assert done.stdout.strip() == "([2, 4, 6], (2, 100, 3))"
     else:
-        assert done.returncode != 0
-        last = done.stderr.strip().splitlines()[-1]
-        assert last.startswith("tallchain.executors.WorkerLostError: workers: a worker"), last
-        assert 'if __name__ == "__main__":' in last
+        assert done.returncode == 3, done.stderr
+        lines = done.stderr.strip().splitlines()
+        assert "Traceback" not in done.stderr, done.stderr
+        assert lines[-1].startswith("workers: a worker process died"), lines
+        # each worker that started says in one line why it stopped
+        assert all(line.startswith("tallchain: a worker process re-ran the main script")
+                   for line in lines[:-1]), lines
 
 
 def test_the_cli_reports_a_lost_worker_on_one_line(tmp_path, capsys, monkeypatch):

@@ -26,6 +26,7 @@ Dask is optional: ``pip install 'tallchain[distributed]'``.
 
 import multiprocessing
 import os
+import sys
 import uuid
 import warnings
 from concurrent.futures import CancelledError, ProcessPoolExecutor, as_completed
@@ -47,6 +48,20 @@ _WORKER_LOST = (
     "memory, or re-ran a script whose calls are not under `if __name__ == \"__main__\":`, "
     "which worker processes import); guard the script's top-level calls, give fewer workers, "
     'or use scheduler="serial"')
+
+
+def _refuse_in_a_starting_worker():
+    # A forkserver worker imports the main script before its first task; a script without the
+    # __main__ guard reaches its pool again here. multiprocessing marks that phase with the
+    # process attribute ``_inheriting`` (its own check, spawn._check_not_importing_main, reads
+    # it too). Leave with one line instead of that check's traceback; the parent then raises
+    # WorkerLostError.
+    if getattr(multiprocessing.current_process(), "_inheriting", False):
+        sys.stderr.write("tallchain: a worker process re-ran the main script and reached a call "
+                         "that starts workers; put the script's calls under "
+                         '`if __name__ == "__main__":`\n')
+        sys.stderr.flush()
+        raise SystemExit(1)
 
 
 def _one_numba_thread():
@@ -149,6 +164,7 @@ class TaskPool:
         self.resent = 0     # tasks sent again after the cluster lost ``shared``
 
     def __enter__(self):
+        _refuse_in_a_starting_worker()
         if self.scheduler == "processes":
             ctx = multiprocessing.get_context("forkserver")
             self._pool = ProcessPoolExecutor(self.workers, mp_context=ctx,
@@ -181,8 +197,8 @@ class TaskPool:
             return self._send(i, task, label, 0)
         try:
             f = self._pool.submit(_call_local, i, task)
-        except BrokenProcessPool as exc:
-            raise WorkerLostError(_WORKER_LOST) from exc
+        except (BrokenProcessPool, ConnectionError) as exc:   # a worker gone before its start
+            raise WorkerLostError(_WORKER_LOST) from None
         self._sent[f] = (i, task, label, 0, None)
         return f
 
@@ -206,7 +222,7 @@ class TaskPool:
                     self._sent.pop(f, None)
                     yield f.result()
             except BrokenProcessPool as exc:
-                raise WorkerLostError(_WORKER_LOST) from exc
+                raise WorkerLostError(_WORKER_LOST) from None
             return
         pending = self._distributed.as_completed(futures)
         for f in pending:
