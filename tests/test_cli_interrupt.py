@@ -74,3 +74,40 @@ def test_signal_keeps_draws_and_resume_is_bitwise_identical(tmp_path, sig):
     b = az.from_netcdf(tmp_path / "cut" / "posterior.nc")["posterior"]["beta"].values
     assert np.array_equal(a, b)
     assert not ckpt.exists()
+
+
+def test_an_interrupt_while_writing_the_outputs_keeps_every_draw_for_resume(tmp_path, capsys,
+                                                                           monkeypatch):
+    from tallchain import cli, outputs
+
+    rng = np.random.default_rng(1)
+    X = rng.standard_normal((2000, 3))
+    np.save(tmp_path / "X.npy", X)
+    np.save(tmp_path / "y.npy", (rng.random(2000) < 1 / (1 + np.exp(-X @ [1, -1, 0.5])))
+            .astype(float))
+    small = CONFIG.replace("draws = 8000", "draws = 500")
+    for name in ("full", "cut"):
+        (tmp_path / f"{name}.toml").write_text(small.format(out=tmp_path / name))
+    assert cli.main(["run", str(tmp_path / "full.toml"), "--quiet"]) == 0
+
+    real = outputs.save_result
+    calls = {"n": 0}
+
+    def interrupted_once(*args, **kwargs):
+        calls["n"] += 1
+        if calls["n"] == 1:
+            raise KeyboardInterrupt
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(outputs, "save_result", interrupted_once)
+    capsys.readouterr()
+    assert cli.main(["run", str(tmp_path / "cut.toml"), "--quiet"]) == 130
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "interrupted: while writing the outputs" in err[0], err
+    assert "--resume" in err[0] and (tmp_path / "cut" / "checkpoint.npz").exists()
+
+    assert cli.main(["run", str(tmp_path / "cut.toml"), "--resume", "--quiet"]) == 0
+    a = az.from_netcdf(tmp_path / "full" / "posterior.nc")["posterior"]["beta"].values
+    b = az.from_netcdf(tmp_path / "cut" / "posterior.nc")["posterior"]["beta"].values
+    assert np.array_equal(a, b)
+    assert not (tmp_path / "cut" / "checkpoint.npz").exists()

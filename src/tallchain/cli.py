@@ -186,7 +186,6 @@ def run_config(config, *, progress=False, resume=False, scheduler=None, workers=
             f"{partial.completed_draws} draws per chain kept in "
             f"{Path(config.output_dir) / 'posterior.nc'}; continue with: tallchain run "
             f"{config.path or 'CONFIG'} --resume (with the same options)") from None
-    checkpoint.unlink(missing_ok=True)
     result = _to_original_scale(result, dataset, load_seconds)
     scaling = dataset.standardization
     extra = {"config": None if config.path is None else str(config.path.absolute()),
@@ -195,8 +194,15 @@ def run_config(config, *, progress=False, resume=False, scheduler=None, workers=
                       "offset": None if config.data.offset is None else str(config.data.offset),
                       "add_intercept": config.data.add_intercept,
                       "standardization": None if scaling is None else scaling.as_dict()}}
-    summary = save_result(result, config.output_dir, wall_seconds=time.perf_counter() - t0,
-                          extra=extra)
+    try:
+        summary = save_result(result, config.output_dir, wall_seconds=time.perf_counter() - t0,
+                              extra=extra)
+    except KeyboardInterrupt:
+        # The checkpoint holds every draw (the driver writes it at the end): keep it.
+        raise KeyboardInterrupt(
+            f"while writing the outputs; every draw is kept in {checkpoint}; write them with: "
+            f"tallchain run {config.path or 'CONFIG'} --resume (with the same options)") from None
+    checkpoint.unlink(missing_ok=True)   # only once the outputs are safely written
     return result, summary, dataset
 
 
