@@ -78,3 +78,28 @@ def test_ks_floor_and_verdict_follow_ess():
     a = ks_check(draws, ref)
     b = ks_check(draws, ref, reference_weights=np.ones(5000))
     assert b.ks[0] == pytest.approx(a.ks[0], abs=1e-12)
+
+
+def test_starting_and_stopping_the_workers_is_set_up_not_sampling(small_run, monkeypatch):
+    # A cluster takes seconds to start: counted in sampling_seconds it deflated ESS per second.
+    import contextlib
+    import time
+
+    from tallchain import _driver
+
+    model, _ = small_run
+    opened = _driver.Runner.open_pool
+
+    @contextlib.contextmanager
+    def slow_pool(self, n_chains):
+        time.sleep(0.5)
+        with opened(self, n_chains) as pool:
+            yield pool
+        time.sleep(0.5)
+
+    monkeypatch.setattr(_driver.Runner, "open_pool", slow_pool)
+    t0 = time.perf_counter()
+    r = tc.sample(model, method="mala", chains=2, draws=200, warmup=100, seed=4)
+    wall = time.perf_counter() - t0
+    assert r.setup_seconds >= 1.0
+    assert r.sampling_seconds < wall - 1.0

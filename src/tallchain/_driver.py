@@ -17,6 +17,7 @@ import os
 import threading
 import time
 from concurrent.futures import ThreadPoolExecutor
+from contextlib import contextmanager
 from pathlib import Path
 
 import numpy as np
@@ -106,6 +107,7 @@ class Runner:
         self.progress, self.parallel = progress, parallel
         self.stop = threading.Event()
         self.bar = None
+        self.pool_seconds = 0.0   # starting and stopping the workers (a cluster takes seconds)
 
     def open_pool(self, n_chains):
         """The workers of the run (a context manager)."""
@@ -278,7 +280,7 @@ def drive(runner, states, schedule, *, checkpoint=None, checkpoint_seconds=30.0,
         runner.bar = tqdm(total=todo, unit="it", desc=runner.spec.name, leave=False)
     last_write = time.monotonic()
     try:
-        with runner.open_pool(len(states)) as pool:
+        with _timed_pool(runner, len(states)) as pool:
             while schedule.segment < len(schedule.segments):
                 end = schedule.segments[schedule.segment][0]
                 start = min(st.iteration for st in states)
@@ -313,6 +315,21 @@ def drive(runner, states, schedule, *, checkpoint=None, checkpoint_seconds=30.0,
     if checkpoint is not None:
         checkpoint.write(states, schedule, runner, after_warmup)
     return after_warmup
+
+
+@contextmanager
+def _timed_pool(runner, n_chains):
+    """The runner's pool; the time to start and to stop it is added to ``runner.pool_seconds``."""
+    t0 = time.perf_counter()
+    try:
+        with runner.open_pool(n_chains) as pool:
+            runner.pool_seconds += time.perf_counter() - t0
+            try:
+                yield pool
+            finally:
+                t0 = time.perf_counter()
+    finally:
+        runner.pool_seconds += time.perf_counter() - t0
 
 
 def _show_progress(runner, states):

@@ -36,7 +36,7 @@ class SampleResult:
     warmup_counts : dict
         The same two counts during warmup (``nonfinite``, ``cd_fallback``).
     setup_seconds, sampling_seconds : float
-        Data checks and mode finding; warmup and draws.
+        Data checks, mode finding, and starting and stopping the workers; warmup and draws.
     completed_draws : int
         Draws completed per chain (less than requested when the run was interrupted).
     warnings : list of str

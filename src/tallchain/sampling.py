@@ -365,7 +365,10 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
     if after_warmup is None:
         after_warmup = np.zeros(_chain.N_COUNTERS, dtype=np.int64)
     chosen_batch = schedule.n_batch
-    sampling_seconds = time.perf_counter() - t_sample
+    # Starting and stopping workers (seconds for a cluster) is set-up, not sampling: the
+    # ESS per second of the draws does not depend on where they ran.
+    sampling_seconds = time.perf_counter() - t_sample - runner.pool_seconds
+    setup_seconds += runner.pool_seconds
 
     done = min(st.iteration for st in states)
     n_done = max(0, done - warmup)
