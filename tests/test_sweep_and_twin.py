@@ -84,3 +84,24 @@ def test_twin_check_passes_a_sound_setting_and_fails_a_biased_one():
         bad = check_on_twin(model, seed=1, method="naive-mh", control_variates=False,
                             batch_size=50, step_size=2.0, draws=2000)
     assert not bad.passed
+
+
+@pytest.mark.parametrize("sgld_speed", [10.0, 1.0])
+def test_a_biased_baseline_within_noise_is_never_recommended(sgld_speed):
+    from tallchain.sweep import recommend
+
+    def row(method, h, ess_s, verdict="within noise"):
+        return {"method": method, "step_size": h, "batch_size": 32, "ess_per_second": ess_s,
+                "verdict": verdict}
+
+    rows = [row("penalty-mala", 0.5, 2.0), row("penalty-mala", 1.0, 5.0),
+            row("penalty-mala", 2.0, 9.0, "biased"), row("sgld", 0.3, sgld_speed)]
+    best, notes = recommend(rows)
+    assert (best["method"], best["step_size"]) == ("penalty-mala", 1.0)
+    if sgld_speed > 5.0:      # faster than the recommendation: the user is told why not
+        assert len(notes) == 1 and notes[0].startswith("sgld at step 0.3 was within the noise")
+    else:
+        assert notes == []
+    best, notes = recommend([row("sgld", 0.3, 10.0), row("mala", 1.0, 1.0, "biased")])
+    assert best is None
+    assert notes[0].startswith("no setting of a method that targets the posterior")

@@ -125,12 +125,12 @@ def _sweep(args):
                   f"{r['ks_ratio_max']:>10.2f}{r['ess_per_second']:>10.4g}"
                   f"{r['acceptance']:>8.3f}  {r['verdict']}")
         best = res.recommended
-        if best is None:
-            print("no setting was within the noise floor: " + "; ".join(res.notes))
-        else:
+        if best is not None:
             print(f"recommended: method = {best['method']}, step_size = {best['step_size']:.4g}"
                   + (f", batch_size = {best['batch_size']}" if best["batch_size"] else "")
                   + f" ({best['ess_per_second']:.4g} ESS/s, reference: {res.reference})")
+        for note in res.notes:
+            print(f"note: {note}")
         print(f"wrote sweep.csv, sweep.json, sweep.png to {out} in {time.perf_counter() - t:.0f} s")
     return EXIT_OK
 

@@ -24,6 +24,12 @@ class MethodSpec:
     def adjusted(self):
         return self.rule != acc.NONE
 
+    @property
+    def targets_posterior(self):
+        """Exact, or exact in the limit of Gaussian log-ratio noise (the penalty methods);
+        sgld and naive-mh are biased by construction."""
+        return self.rule in (acc.EXACT, acc.PENALTY, acc.PENALTY_CD)
+
 
 _RW, _LANG = _chain.PROPOSAL_RW, _chain.PROPOSAL_LANGEVIN
 _F, _B = _chain.FULL, _chain.BATCH
