@@ -268,6 +268,28 @@ def test_unknown_family_and_missing_files_exit_2(tmp_path, rng, capsys):
     _assert_one_error(*_run(capsys, "run", path)[::2], r'data\.y: file ".*y\.npy" does not exist')
 
 
+def test_a_folder_for_a_file_and_a_file_for_a_folder_exit_2(tmp_path, rng, capsys):
+    path = _setup(tmp_path, *_logistic_data(rng))
+    (tmp_path / "sub").mkdir()
+    path.write_text(path.read_text().replace('x = "X.npy"', 'x = "sub"'))
+    _assert_one_error(*_run(capsys, "run", path)[::2],
+                      r'data\.x: ".*sub" is a folder, not a file; give a \.npy, \.npz or \.csv')
+    path = _setup(tmp_path, *_logistic_data(rng))
+    (tmp_path / "afile").write_text("")
+    _assert_one_error(*_run(capsys, "run", path, "--out", tmp_path / "afile")[::2],
+                      r'output\.dir \(from the command line\): ".*afile" is a file, not a folder')
+
+
+@pytest.mark.parametrize("argv, pattern", [
+    (["--draws", "0"], r"--draws: must be >= 1, got 0"),
+    (["--replications", "1"], r"--replications: must be >= 2, got 1"),
+    (["--level", "2"], r"--level: must be a probability between 0 and 1, got 2\.0"),
+])
+def test_bad_calibrate_options_name_the_option(tmp_path, rng, capsys, argv, pattern):
+    path = _setup(tmp_path, *_logistic_data(rng))
+    _assert_one_error(*_run(capsys, "calibrate", path, *argv)[::2], pattern)
+
+
 def test_mode_not_found_exits_2(tmp_path, capsys):
     X = np.linspace(-1.0, 1.0, 200).reshape(-1, 1)
     y = (X[:, 0] > 0).astype(float)  # completely separated
@@ -282,6 +304,10 @@ def test_mode_not_found_exits_2(tmp_path, capsys):
      r"argument --step-size: must be a number or \"auto\", got 'abc'"),
     (["run", "c.toml", "--draws", "1.5"], r"argument --draws: invalid int value: '1\.5'"),
     (["sample"], r"argument COMMAND: invalid choice: 'sample'"),
+    (["sweep", "c.toml", "--step-sizes", "1,abc"],
+     r"argument --step-sizes: must be numbers separated by commas, like 0\.5,1,2; got '1,abc'"),
+    (["sweep", "c.toml", "--batch-sizes", "32,1.5"],
+     r"argument --batch-sizes: must be whole numbers separated by commas"),
 ])
 def test_usage_errors_exit_2_in_one_line(capsys, argv, pattern):
     _assert_one_error(*_run(capsys, *argv)[::2], pattern)

@@ -1,5 +1,6 @@
 """The checking commands: ``validate``, ``sweep`` and ``calibrate`` (registered with the CLI)."""
 
+import argparse
 import json
 import time
 from pathlib import Path
@@ -14,6 +15,7 @@ from .cli import (
     option_or,
     warnings_as_lines,
 )
+from .config import named_fields
 from .outputs import write_json
 
 
@@ -56,21 +58,30 @@ def _validate(args):
         k = check.ks
         print(f"conjugate twin ({check.response} response, noise sd {check.noise_sd:.4g}), "
               f"method {check.result.method}")
-        print(f"{'coef':<14}{'KS':>9}{'floor':>9}{'KS/floor':>10}  verdict")
+        w = max(14, *(len(name) + 1 for name in k.coef_names))
+        print(f"{'coef':<{w}}{'KS':>9}{'floor':>9}{'KS/floor':>10}  verdict")
         for name, ks, fl, ratio, v in zip(k.coef_names, k.ks, k.floor, k.ratio, k.verdicts):
-            print(f"{name:<14}{ks:>9.4f}{fl:>9.4f}{ratio:>10.2f}  {v}")
+            print(f"{name:<{w}}{ks:>9.4f}{fl:>9.4f}{ratio:>10.2f}  {v}")
         for note in check.notes:
             print(f"note: {note}")
         print(f"{'passed' if check.passed else 'FAILED'}: wrote validate.json to {out}")
     return EXIT_OK if check.passed else EXIT_CHECK_FAILED
 
 
-def _float_list(text):
-    return [float(v) for v in text.split(",") if v.strip()]
+def _number_list(kind, example):
+    def convert(text):
+        try:
+            return [kind(v) for v in text.split(",") if v.strip()]
+        except ValueError:
+            what = "whole numbers" if kind is int else "numbers"
+            raise argparse.ArgumentTypeError(
+                f"must be {what} separated by commas, like {example}; got {text!r}") from None
+
+    return convert
 
 
-def _int_list(text):
-    return [int(v) for v in text.split(",") if v.strip()]
+_float_list = _number_list(float, "0.5,1,2")
+_int_list = _number_list(int, "32,100,300")
 
 
 def _add_sweep_arguments(parser):
@@ -149,6 +160,11 @@ def _add_calibrate_arguments(parser):
     _scheduler_argument(parser)
 
 
+# calibrate()'s own arguments, named as the options that set them.
+_CALIBRATE_OPTIONS = {"thinned_draws": "--draws", "replications": "--replications",
+                      "level": "--level"}
+
+
 @command("calibrate", "simulation-based calibration of the configured sampler on this X",
          _add_calibrate_arguments)
 def _calibrate(args):
@@ -159,7 +175,7 @@ def _calibrate(args):
     seed = settings.pop("seed", None) or 1
     compute = config.compute
     t = time.perf_counter()
-    with warnings_as_lines(), config.named_fields():
+    with warnings_as_lines(), config.named_fields(), named_fields(_CALIBRATE_OPTIONS):
         res = calibrate(model, replications=args.replications, thinned_draws=args.rank_draws,
                         prior=args.prior, level=args.level, seed=seed,
                         scheduler=option_or(args.scheduler, compute.get("scheduler", "processes")),
@@ -174,8 +190,9 @@ def _calibrate(args):
         per = res.level / len(res.coef_names)
         print(f"simulation-based calibration: R = {args.replications}, L = {args.rank_draws}, "
               f"prior {args.prior}, level {res.level} (per coefficient {per:.3g})")
+        w = max(14, *(len(name) for name in res.coef_names))
         for name, p in zip(res.coef_names, res.p_values):
-            print(f"  {name:<14} p = {p:.4f}  {'calibrated' if p > per else 'MISCALIBRATED'}")
+            print(f"  {name:<{w}} p = {p:.4f}  {'calibrated' if p > per else 'MISCALIBRATED'}")
         print(f"{'passed' if res.passed else 'FAILED'} in {seconds:.0f} s: wrote calibrate.json, "
               f"calibrate.png to {out}")
     return EXIT_OK if res.passed else EXIT_CHECK_FAILED

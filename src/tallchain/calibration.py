@@ -169,6 +169,9 @@ def calibrate(model, *, replications=100, thinned_draws=99, prior="laplace", lev
     """
     replications = positive_int("replications", replications, minimum=2)
     draws = positive_int("thinned_draws", thinned_draws, minimum=1)
+    if isinstance(level, bool) or not isinstance(level, (int, float)) or not 0 < level < 1:
+        fail("level", f"must be a probability between 0 and 1, got {level!r}",
+             "give e.g. 0.05 (the family-wise false-alarm rate)")
     if prior == "laplace":
         from .mode import find_mode
 

@@ -10,6 +10,7 @@ argument (``step_size: ...``); `named_fields` renames it to the config key
 
 import difflib
 import inspect
+import os
 import re
 import tomllib
 import warnings
@@ -274,6 +275,10 @@ def config_from_dict(raw, *, base_dir=".", stem="run", overrides=None, path=None
         output_dir = Path(out).expanduser()
         if not output_dir.is_absolute():
             output_dir = (Path.cwd() if "output.dir" in overridden else base_dir) / output_dir
+    output_dir = Path(os.path.normpath(output_dir))
+    if output_dir.exists() and not output_dir.is_dir():
+        fail(_label("output.dir", overridden), f'"{output_dir}" is a file, not a folder',
+             "give a folder (it is created when missing)")
     return RunConfig(path=path, data=data, model=model, sampler=MappingProxyType(sampler),
                      output_dir=output_dir, overridden=overridden,
                      compute=MappingProxyType(compute))
@@ -415,6 +420,8 @@ def _check_exists(source, field):
     if not source.path.exists():
         fail(field, f'file "{source.path}" does not exist',
              "check the path (relative paths are relative to the folder of the config file)")
+    if not source.path.is_file():
+        fail(field, f'"{source.path}" is a folder, not a file', "give a .npy, .npz or .csv file")
 
 
 def _dry_check_sampler(settings):

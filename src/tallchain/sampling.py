@@ -436,7 +436,8 @@ def _noise_advice(result, spec):
                     f"{skew:.2f}, excess kurtosis {kurt:.2f}; error term {err:.3f}); the penalty "
                     "correction may be biased: use a larger batch_size or control_variates=True")
     if result.cd_fallback_count:
-        msgs.append(f"{result.cd_fallback_count} iterations were beyond the Ceperley-Dewing "
+        k = result.cd_fallback_count
+        msgs.append(f"{k} iteration{'s were' if k > 1 else ' was'} beyond the Ceperley-Dewing "
                     "validity bound and used the plug-in correction; use a larger batch_size")
     if msgs:
         result.warnings.extend(msgs)
