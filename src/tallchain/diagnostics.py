@@ -126,6 +126,20 @@ def summarize(result, *, warn=True):
 
 @dataclass
 class Summary:
+    """What `summarize` returns.
+
+    Attributes
+    ----------
+    table : dict of str to list
+        One entry per coefficient: coef, mean, sd, q5, q50, q95, ess_bulk, ess_tail, r_hat,
+        mcse_mean.
+    run : dict
+        acceptance_rate, log_ratio_sd_mean, data_passes, sampling_seconds, ess_bulk_min,
+        ess_per_second, ess_per_data_pass.
+    warnings : list of str
+        Convergence advice (R-hat, ESS).
+    """
+
     table: dict
     run: dict
     warnings: list

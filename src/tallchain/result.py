@@ -41,6 +41,8 @@ class SampleResult:
         Draws completed per chain (less than requested when the run was interrupted).
     warnings : list of str
         Advice raised during the run (noise level, Gaussianity of the log-ratio).
+    laplace_mode : ndarray of shape (n_coef,) or None
+        The posterior mode found for the run (None when the method needed none).
     """
 
     draws: np.ndarray
@@ -78,19 +80,48 @@ class SampleResult:
         return float(np.mean(self.stats["accepted"])) if self.n_draws else float("nan")
 
     def to_arviz(self):
-        """ArviZ 1.x data (xarray DataTree) with groups ``posterior`` and ``sample_stats``."""
+        """The draws as ArviZ 1.x data.
+
+        Returns
+        -------
+        xarray.DataTree
+            Group ``posterior`` with ``beta`` over (chain, draw, coef), and group
+            ``sample_stats`` with every per-iteration statistic of `stats`.
+        """
         from .diagnostics import to_arviz
 
         return to_arviz(self)
 
     def summary(self):
-        """Per-coefficient summary table (see `tallchain.diagnostics.summarize`)."""
+        """Per-coefficient summary (ESS, R-hat and MCSE by ArviZ) and the run's cost figures.
+
+        Returns
+        -------
+        tallchain.diagnostics.Summary
+            See `tallchain.diagnostics.summarize`.
+
+        Warns
+        -----
+        tallchain.diagnostics.ConvergenceWarning
+            R-hat above 1.01 or a bulk/tail ESS below 400 for some coefficient.
+        """
         from .diagnostics import summarize
 
         return summarize(self)
 
     def save(self, directory):
-        """Write posterior.nc, summary.csv and run.json into ``directory``."""
+        """Write posterior.nc, summary.csv and run.json into ``directory``, atomically.
+
+        Parameters
+        ----------
+        directory : path-like
+            Created when missing.
+
+        Returns
+        -------
+        tallchain.diagnostics.Summary
+            The summary written to summary.csv.
+        """
         from .outputs import save_result
 
         return save_result(self, directory)

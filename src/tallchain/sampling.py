@@ -86,24 +86,27 @@ def prepare(model, *, cv_orders=(2, 0)):
     return Preparation(laplace, caches, model.n_rows, model.n_coef)
 
 
+def _check_seed(seed):
+    if isinstance(seed, (np.random.Generator, np.random.SeedSequence)) or seed is None:
+        return
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
+        fail("seed", f"must be a non-negative integer, got {seed!r}",
+             "give an integer such as 1, or a numpy Generator")
+
+
 def _resolve_seed(seed, n_children):
+    # Spawning advances a Generator or SeedSequence: done once, by sample itself.
+    _check_seed(seed)
     if isinstance(seed, np.random.Generator):
         return seed.spawn(n_children)
-    if isinstance(seed, np.random.SeedSequence):
-        ss = seed
-    else:
-        if seed is not None and (isinstance(seed, bool) or not isinstance(seed, (int, np.integer))
-                                 or seed < 0):
-            fail("seed", f"must be a non-negative integer, got {seed!r}",
-                 "give an integer such as 1, or a numpy Generator")
-        ss = np.random.SeedSequence(seed)
+    ss = seed if isinstance(seed, np.random.SeedSequence) else np.random.SeedSequence(seed)
     return [np.random.Generator(np.random.PCG64(s)) for s in ss.spawn(n_children)]
 
 
 def _check_settings(model, method, step_size, batch_size, chains, draws, warmup, noise_variance,
                     control_variates, cv_order, target_log_ratio_sd, gradient_batch="fresh",
                     batch_floor=DEFAULT_BATCH_FLOOR, batch_ceiling=DEFAULT_BATCH_CEILING):
-    if method not in METHODS and method not in BROKEN_METHODS:
+    if not isinstance(method, str) or (method not in METHODS and method not in BROKEN_METHODS):
         from difflib import get_close_matches
 
         near = get_close_matches(str(method), METHODS, n=1)
@@ -117,8 +120,7 @@ def _check_settings(model, method, step_size, batch_size, chains, draws, warmup,
         if not spec.adjusted:
             fail("step_size", f'"auto" is not available for {method} (it has no accept step to '
                  "tune against)", "give a number, e.g. the step size tuned by penalty-mala")
-    elif isinstance(step_size, bool) or not isinstance(step_size, (int, float, np.floating)) \
-            or not math.isfinite(step_size) or step_size <= 0:
+    elif not _is_number(step_size) or not math.isfinite(step_size) or step_size <= 0:
         fail("step_size", f"must be > 0, got {step_size!r}", 'give a positive number or "auto"')
     chains = positive_int("chains", chains)
     draws = positive_int("draws", draws)
@@ -147,8 +149,8 @@ def _check_settings(model, method, step_size, batch_size, chains, draws, warmup,
     if cv_order not in (1, 2):
         fail("cv_order", f"must be 1 or 2, got {cv_order!r}",
              "use 2 (second-order Taylor proxies) or 1 (first-order)")
-    if not (isinstance(target_log_ratio_sd, (int, float)) and not isinstance(target_log_ratio_sd, bool)
-            and math.isfinite(target_log_ratio_sd) and target_log_ratio_sd > 0):
+    if not (_is_number(target_log_ratio_sd) and math.isfinite(target_log_ratio_sd)
+            and target_log_ratio_sd > 0):
         fail("target_log_ratio_sd", f"must be a finite number > 0, got {target_log_ratio_sd!r}",
              "give a positive number such as 1.0")
     floor = positive_int("batch_floor", batch_floor, minimum=2)
@@ -161,12 +163,108 @@ def _check_settings(model, method, step_size, batch_size, chains, draws, warmup,
     if gradient_batch == "carried" and not (spec.gradient == _chain.BATCH and spec.adjusted):
         fail("gradient_batch", f'"carried" applies to penalty-mala, not {method}',
              'use gradient_batch="fresh" or method="penalty-mala"')
+    if control_variates is not None and not isinstance(control_variates, (bool, np.bool_)):
+        fail("control_variates", f"must be True, False or None, got {control_variates!r}",
+             "give a bool (None: on for minibatch methods)")
     cv = bool(spec.minibatch if control_variates is None else control_variates)
     if control_variates and not spec.minibatch:
         warnings.warn(f"control_variates is ignored by the full-data method {method}",
                       UserWarning, stacklevel=3)
         cv = False
     return spec, chains, draws, warmup, cv
+
+
+def _is_number(x):
+    return isinstance(x, (int, float, np.integer, np.floating)) and not isinstance(x, (bool,
+                                                                                      np.bool_))
+
+
+def check_model(model):
+    """Refuse anything but a tallchain regression model, in the one-line message shape."""
+    from .models import FAMILIES
+
+    if not isinstance(model, tuple(FAMILIES.values())):
+        fail("model", f"must be a LinearRegression, LogisticRegression or PoissonRegression, "
+             f"got {type(model).__name__}", "build one, e.g. tc.LogisticRegression(X, y)")
+
+
+def _check_flags(**flags):
+    for name, value in flags.items():
+        if not isinstance(value, (bool, np.bool_)):
+            fail(name, f"must be True or False, got {value!r}", "give a bool")
+
+
+def _check_up_front(model, *, method, step_size, batch_size, control_variates, cv_order,
+                    chains, draws, warmup, seed, mass_matrix, init, noise_variance,
+                    gradient_batch, checkpoint, resume, checkpoint_seconds, preparation,
+                    target_log_ratio_sd, batch_floor, batch_ceiling, progress, parallel,
+                    scheduler, workers):
+    """Every check of `sample` that needs no pass over the data; returns what sample uses."""
+    check_model(model)
+    check_scheduler(scheduler, threads=True)
+    check_workers(workers)
+    _check_flags(resume=resume, progress=progress, parallel=parallel)
+    spec, chains, draws, warmup, cv = _check_settings(
+        model, method, step_size, batch_size, chains, draws, warmup, noise_variance,
+        control_variates, cv_order, target_log_ratio_sd, gradient_batch, batch_floor,
+        batch_ceiling)
+    _check_seed(seed)
+    if isinstance(mass_matrix, str) or mass_matrix is None:
+        if mass_matrix not in ("laplace", "laplace-diagonal", "identity"):
+            fail("mass_matrix", f"unknown value {mass_matrix!r}",
+                 'use "laplace", "laplace-diagonal", "identity" or an array')
+    else:
+        make_preconditioner(mass_matrix, model.n_coef, None)
+    if isinstance(init, str) or init is None:
+        if init not in ("laplace", "mode", "prior-mean"):
+            fail("init", f"unknown value {init!r}",
+                 'use "laplace", "mode", "prior-mean" or an array of starting points')
+    else:
+        _initial_points(init, model, None, chains, None)
+    if resume and checkpoint is None:
+        fail("resume", "needs a checkpoint path", "pass checkpoint=<file> (the CLI does this)")
+    if not _is_number(checkpoint_seconds) or not checkpoint_seconds > 0:
+        fail("checkpoint_seconds", f"must be a number > 0, got {checkpoint_seconds!r}",
+             "give the seconds between checkpoint writes, e.g. 30")
+    if preparation is not None:
+        if not isinstance(preparation, Preparation):
+            fail("preparation", f"must come from tallchain.sampling.prepare, got "
+                 f"{type(preparation).__name__}", "pass prepare(model), or leave it out")
+        preparation.check(model)
+    return spec, chains, draws, warmup, cv
+
+
+def check_sample_settings(model, **settings):
+    """Run every check of `sample` on these settings without touching the data.
+
+    For callers that run `sample` later, after costly work of their own (a sweep's reference
+    run, a calibration's mode): bad settings are refused first, with sample's messages.
+
+    Parameters
+    ----------
+    model : LinearRegression, LogisticRegression or PoissonRegression
+    **settings
+        Keyword arguments of `sample`.
+
+    Raises
+    ------
+    InputError
+        For the first bad setting, or a keyword that `sample` does not take.
+    """
+    import inspect
+
+    params = inspect.signature(sample).parameters
+    for name in settings:
+        if name not in params or name == "model":
+            from difflib import get_close_matches
+
+            near = get_close_matches(name, params, n=1)
+            hint = f'did you mean "{near[0]}"? ' if near else ""
+            fail(name, "is not a setting of sample()", f"{hint}see help(tallchain.sample)")
+    bound = inspect.signature(sample).bind(model, **settings)
+    bound.apply_defaults()
+    args = dict(bound.arguments)
+    _check_up_front(args.pop("model"), **args)
 
 
 def _initial_points(init, model, laplace, n_chains, rng):
@@ -243,8 +341,12 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
         penalty-mala only. "fresh": a new gradient batch each step, used at both ends of the
         proposal. "carried": the batch is part of the chain's state and the gradient at the
         current point is reused (two batches per step instead of three); both are exact.
-    target_log_ratio_sd, batch_floor, batch_ceiling : float, int, int
-        Control of ``batch_size="auto"``.
+    target_log_ratio_sd : float, default=1.5
+        The log-ratio sd that ``batch_size="auto"`` aims at (measured default, see
+        benchmarks/bench_noise_target.py); also caps the noise level that the step tuning
+        of penalty methods allows for.
+    batch_floor, batch_ceiling : int, default=32, 100000
+        Bounds of ``batch_size="auto"``.
     checkpoint : path, optional
         File (.npz) to which the run's state is written every ``checkpoint_seconds``, at the
         end, and when the run is interrupted.
@@ -274,8 +376,21 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
 
     Raises
     ------
+    InputError
+        A bad setting, refused before any pass over the data (see `check_sample_settings`).
+    ModeNotFoundError
+        The posterior mode, needed for control variates, the Laplace mass matrix or starting
+        points, was not found (e.g. separated logistic data under a flat prior).
     SamplingInterrupted
         On Ctrl-C: carries the result with every completed draw (and the checkpoint written).
+    WorkerLostError
+        A worker process died (scheduler="processes").
+
+    Warns
+    -----
+    NoisyLogRatioWarning
+        The minibatch log-ratio is too noisy or too far from Gaussian for the penalty
+        correction to be trusted; the advice is also kept in ``result.warnings``.
 
     References
     ----------
@@ -285,18 +400,19 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
     Welling & Teh (2011), ICML (SGLD).
     """
     t_setup = time.perf_counter()
-    check_scheduler(scheduler, threads=True)
-    check_workers(workers)
-    spec, chains, draws, warmup, cv = _check_settings(
-        model, method, step_size, batch_size, chains, draws, warmup, noise_variance,
-        control_variates, cv_order, target_log_ratio_sd, gradient_batch, batch_floor,
-        batch_ceiling)
+    spec, chains, draws, warmup, cv = _check_up_front(
+        model, method=method, step_size=step_size, batch_size=batch_size,
+        control_variates=control_variates, cv_order=cv_order, chains=chains, draws=draws,
+        warmup=warmup, seed=seed, mass_matrix=mass_matrix, init=init,
+        noise_variance=noise_variance, gradient_batch=gradient_batch, checkpoint=checkpoint,
+        resume=resume, checkpoint_seconds=checkpoint_seconds, preparation=preparation,
+        target_log_ratio_sd=target_log_ratio_sd, batch_floor=batch_floor,
+        batch_ceiling=batch_ceiling, progress=progress, parallel=parallel,
+        scheduler=scheduler, workers=workers)
     rngs = _resolve_seed(seed, chains + 1)
     need_laplace = (cv or (isinstance(mass_matrix, str) and mass_matrix.startswith("laplace"))
                     or (isinstance(init, str) and init in ("laplace", "mode"))
                     or step_size == "auto")
-    if preparation is not None:
-        preparation.check(model)
     laplace = None
     if need_laplace:
         laplace = preparation.laplace if preparation is not None else find_mode(model)
@@ -351,8 +467,6 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
         ckpt = _driver.Checkpoint(checkpoint, identity)
         if resume:
             after_warmup = ckpt.restore(states, schedule, runner)
-    elif resume:
-        fail("resume", "needs a checkpoint path", "pass checkpoint=<file> (the CLI does this)")
 
     t_sample = time.perf_counter()
     interrupted = False
