@@ -54,3 +54,12 @@ def spd_matrix_and_inverse(field, value, n, fix_shape):
     inv_chol = np.linalg.inv(chol)
     inv = inv_chol.T @ inv_chol
     return 0.5 * (m + m.T), 0.5 * (inv + inv.T)
+
+
+def check_seed(seed):
+    """The seeds `tallchain.sample` takes: an integer >= 0, None, a Generator or SeedSequence."""
+    if seed is None or isinstance(seed, (np.random.Generator, np.random.SeedSequence)):
+        return
+    if isinstance(seed, (bool, np.bool_)) or not isinstance(seed, (int, np.integer)) or seed < 0:
+        fail("seed", f"must be a non-negative integer, got {seed!r}",
+             "give an integer such as 1, or a numpy Generator")

@@ -13,7 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
-from ._validation import fail, positive_int
+from ._validation import check_seed, fail, positive_int
 from .models import FAMILIES, GaussianPrior
 
 
@@ -29,12 +29,18 @@ class CalibrationResult:
         L.
     p_values : ndarray of shape (n_coef,)
         Chi-square test of rank uniformity over ``n_bins`` equal bins.
+    n_bins : int
+        Bins of the ranks in that test (2 <= n_bins <= L + 1).
     level : float
         Family-wise level; each coefficient is tested at level / n_coef (Bonferroni).
     passed : bool
+        Every coefficient's p-value is above level / n_coef.
     coef_names : list of str
     prior : str
         "laplace" or "model".
+    settings : dict
+        The `tallchain.sample` settings of every replication, with the injected defaults
+        (``chains=2, draws=500, warmup=300`` unless given).
     """
 
     ranks: np.ndarray
@@ -134,6 +140,24 @@ def _replicate_task(shared, seed):
     return _replicate(model, prior, n_draws, seed, settings)
 
 
+# sample() settings that calibrate() sets itself for every replication, or that make no sense
+# across replications (each one samples its own simulated data set).
+_CALIBRATE_OWNS = {
+    "parallel": "calibrate() sets it from scheduler and workers",
+    "preparation": "each replication has its own simulated y, so its own mode",
+    "checkpoint": "replications would overwrite one checkpoint file",
+    "resume": "replications are not checkpointed",
+}
+
+
+def _spawn_seeds(seed, n):
+    """n independent child seeds of ``seed`` (checked by `check_seed`)."""
+    if isinstance(seed, np.random.Generator):
+        return seed.spawn(n)
+    root = seed if isinstance(seed, np.random.SeedSequence) else np.random.SeedSequence(seed)
+    return root.spawn(n)
+
+
 def calibrate(model, *, replications=100, thinned_draws=99, prior="laplace", level=0.05, n_bins=10,
               seed=1, workers=None, scheduler="processes", progress=False, **settings):
     """Simulation-based calibration of a sampler setting on the model's X.
@@ -143,10 +167,11 @@ def calibrate(model, *, replications=100, thinned_draws=99, prior="laplace", lev
     model : LinearRegression, LogisticRegression or PoissonRegression
         Its X (and offset, noise sd) are used; its y only to build the Laplace prior.
     replications : int, default=100
-        R.
+        R, an integer >= 2.
     thinned_draws : int, default=99
-        L, thinned posterior draws per replication (ranks take L + 1 values); the sampler's
-        own ``draws`` setting (per chain, default 500) goes in ``settings``.
+        L, thinned posterior draws per replication (ranks take L + 1 values): equally spaced
+        over the ``chains * draws`` draws a replication keeps after warmup, so at most that
+        many. The sampler's own ``chains`` and ``draws`` go in ``settings``.
     prior : {"laplace", "model"}, default="laplace"
         Calibration prior: the Laplace approximation of the user's posterior (proper and near
         the region that matters) or the model's own prior. SBC holds for any prior used
@@ -154,43 +179,88 @@ def calibrate(model, *, replications=100, thinned_draws=99, prior="laplace", lev
     level : float, default=0.05
         Family-wise level of the rank-uniformity tests (Bonferroni over coefficients).
     n_bins : int, default=10
-    seed : int, default=1
-        Replication r gets child r of SeedSequence(seed): results do not depend on workers.
+        Equal-width bins of the ranks in the chi-square test; an integer with
+        2 <= n_bins <= thinned_draws + 1 (the number of rank values).
+    seed : int, numpy.random.Generator or SeedSequence, default=1
+        Replication r gets child r of ``SeedSequence(seed)`` (of a Generator: its r-th spawned
+        child): results do not depend on workers.
     workers : int, optional
-        Worker processes (default: the number of cores).
+        Worker processes (default: the number of cores, at most ``replications``).
     scheduler : str or distributed.Client, default="processes"
         Where replications run: see `tallchain.executors`.
+    progress : bool, default=False
+        Show a progress line as replications finish.
     **settings
-        `tallchain.sample` settings (method, step_size, batch_size, chains, ...).
+        `tallchain.sample` settings of every replication (method, step_size, batch_size,
+        control_variates, ...), with the defaults of `tallchain.sample` except
+        ``chains=2, draws=500, warmup=300``. ``parallel``, ``preparation``, ``checkpoint`` and
+        ``resume`` are not accepted (calibrate sets or cannot honour them).
 
     Returns
     -------
     CalibrationResult
+
+    Raises
+    ------
+    InputError
+        For a bad argument or sampler setting (an unknown method or keyword, ``chains=0``,
+        ``thinned_draws`` above ``chains * draws``, ``n_bins`` out of range, a bad seed,
+        scheduler or worker count, ...). Every check runs before the mode is found and before
+        any worker starts.
+    ModeNotFoundError
+        When ``prior="laplace"`` and the mode of the user's posterior cannot be found.
     """
+    from .executors import check_scheduler, check_workers, run_tasks, worker_count
+    from .sampling import check_model
+
+    check_model(model)
     replications = positive_int("replications", replications, minimum=2)
     draws = positive_int("thinned_draws", thinned_draws, minimum=1)
-    if isinstance(level, bool) or not isinstance(level, (int, float)) or not 0 < level < 1:
+    if isinstance(n_bins, (bool, np.bool_)) or not isinstance(n_bins, (int, np.integer)) \
+            or not 2 <= n_bins <= draws + 1:
+        fail("n_bins", f"must be an integer from 2 to thinned_draws + 1 = {draws + 1}, "
+             f"got {n_bins!r}", "give e.g. 10 (ranks take thinned_draws + 1 values)")
+    n_bins = int(n_bins)
+    if isinstance(level, (bool, np.bool_)) or not isinstance(level, (int, float, np.integer,
+                                                                     np.floating)) \
+            or not 0 < level < 1:
         fail("level", f"must be a probability between 0 and 1, got {level!r}",
              "give e.g. 0.05 (the family-wise false-alarm rate)")
+    if not isinstance(prior, str) or prior not in ("laplace", "model"):
+        fail("prior", f"unknown calibration prior {prior!r}", 'use "laplace" or "model"')
+    check_seed(seed)
+    check_scheduler(scheduler)
+    check_workers(workers)
+    if not isinstance(progress, (bool, np.bool_)):
+        fail("progress", f"must be True or False, got {progress!r}", "give a bool")
+    for name, why in _CALIBRATE_OWNS.items():
+        if name in settings:
+            fail(name, f"cannot be passed to calibrate(): {why}", f"leave {name} out")
+    settings = dict(settings)
+    settings.setdefault("chains", 2)
+    settings.setdefault("draws", 500)
+    settings.setdefault("warmup", 300)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # as in the replications themselves
+        from .sampling import check_sample_settings
+
+        check_sample_settings(model, **settings)
+    available = int(settings["chains"]) * int(settings["draws"])
+    if draws > available:
+        fail("thinned_draws", f"is {draws}, more than the {available} draws of a replication "
+             f"({settings['chains']} chains x {settings['draws']} draws after warmup), so draws "
+             "would be ranked twice", f"raise draws (or chains), or give thinned_draws <= "
+             f"{available}")
+
     if prior == "laplace":
         from .mode import find_mode
 
         lap = find_mode(model)
         cal_prior = GaussianPrior(mean=lap.mode, cov=lap.cov)
-    elif prior == "model":
-        cal_prior = model.prior
     else:
-        fail("prior", f"unknown calibration prior {prior!r}", 'use "laplace" or "model"')
-    from .executors import check_scheduler, check_workers, run_tasks, worker_count
-
-    check_scheduler(scheduler)
-    check_workers(workers)
-    seeds = np.random.SeedSequence(seed).spawn(replications)
+        cal_prior = model.prior
+    seeds = _spawn_seeds(seed, replications)
     n_workers = worker_count(workers, replications)
-    settings = dict(settings)
-    settings.setdefault("chains", 2)
-    settings.setdefault("draws", 500)
-    settings.setdefault("warmup", 300)
     settings["parallel"] = scheduler == "serial" or (scheduler == "processes" and n_workers == 1)
     ranks = np.zeros((replications, model.n_coef), dtype=np.int64)
     def _done(i, rk):

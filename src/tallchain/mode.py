@@ -2,8 +2,12 @@
 
 from dataclasses import dataclass
 
+import math
+
 import numpy as np
 from scipy import optimize
+
+from ._validation import fail, positive_int
 
 
 class ModeNotFoundError(RuntimeError):
@@ -46,10 +50,11 @@ def find_mode(model, *, start=None, tol=1e-9, max_iter=1000):
     ----------
     model : LinearRegression, LogisticRegression or PoissonRegression
     start : array-like of shape (n_coef,), optional
-        Starting point (default: the prior mean).
+        Finite starting point (default: the prior mean).
     tol : float, default=1e-9
-        Gradient tolerance, relative to the gradient size at the start.
+        Gradient tolerance (finite, > 0), relative to the gradient size at the start.
     max_iter : int, default=1000
+        Most L-BFGS iterations (an integer >= 1).
 
     Returns
     -------
@@ -57,10 +62,14 @@ def find_mode(model, *, start=None, tol=1e-9, max_iter=1000):
 
     Raises
     ------
+    InputError
+        When ``model`` is not a regression model, ``tol`` is not a finite number > 0,
+        ``max_iter`` not an integer >= 1, or ``start`` not a finite array of shape (n_coef,);
+        raised before any pass over the data.
     ModeNotFoundError
         When L-BFGS stops without meeting the tolerance.
     """
-    x0 = np.array(model.prior_mean if start is None else start, dtype=float)
+    x0 = _check_arguments(model, start, tol, max_iter)
     n_eval = 0
 
     def neg_log_post(beta):
@@ -101,6 +110,33 @@ def find_mode(model, *, start=None, tol=1e-9, max_iter=1000):
     cov = inv_chol.T @ inv_chol
     return LaplaceApproximation(mode=res.x, precision=precision, cov=0.5 * (cov + cov.T),
                                 n_evaluations=n_eval + 1, converged=True, message=str(res.message))
+
+
+def _check_arguments(model, start, tol, max_iter):
+    """The up-front checks of `find_mode`; returns the starting point as a float array."""
+    from .sampling import check_model
+
+    check_model(model)
+    if isinstance(tol, (bool, np.bool_)) or not isinstance(tol, (int, float, np.integer,
+                                                                 np.floating)) \
+            or not math.isfinite(tol) or tol <= 0:
+        fail("tol", f"must be a finite number > 0, got {tol!r}",
+             "give a small positive number such as 1e-9")
+    positive_int("max_iter", max_iter, minimum=1)
+    if start is None:
+        return np.array(model.prior_mean, dtype=float)
+    try:
+        x0 = np.array(start, dtype=float)
+    except (TypeError, ValueError):
+        fail("start", f"must be an array of {model.n_coef} numbers, got {repr(start)[:60]}",
+             f"give one starting value per coefficient ({model.n_coef}), or leave it out")
+    if x0.shape != (model.n_coef,):
+        fail("start", f"has shape {x0.shape}, expected ({model.n_coef},)",
+             f"give one starting value per coefficient ({', '.join(model.coef_names)})")
+    if not np.all(np.isfinite(x0)):
+        fail("start", f"contains NaN or inf at position {int(np.argmin(np.isfinite(x0)))}",
+             "give finite starting values, or leave it out (the prior mean)")
+    return x0
 
 
 def _check_separation(model, mode, info):

@@ -12,7 +12,7 @@ from . import _chain
 from . import _driver
 from ._methods import BROKEN_METHODS, METHODS, NOISE_VARIANCE
 from ._preconditioning import ControlVariateCache, control_variate_cache, make_preconditioner
-from ._validation import fail, positive_int
+from ._validation import check_seed, fail, positive_int
 from .executors import check_scheduler, check_workers, worker_count
 from .mode import find_mode
 from .result import SampleResult
@@ -86,17 +86,9 @@ def prepare(model, *, cv_orders=(2, 0)):
     return Preparation(laplace, caches, model.n_rows, model.n_coef)
 
 
-def _check_seed(seed):
-    if isinstance(seed, (np.random.Generator, np.random.SeedSequence)) or seed is None:
-        return
-    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
-        fail("seed", f"must be a non-negative integer, got {seed!r}",
-             "give an integer such as 1, or a numpy Generator")
-
-
 def _resolve_seed(seed, n_children):
     # Spawning advances a Generator or SeedSequence: done once, by sample itself.
-    _check_seed(seed)
+    check_seed(seed)
     if isinstance(seed, np.random.Generator):
         return seed.spawn(n_children)
     ss = seed if isinstance(seed, np.random.SeedSequence) else np.random.SeedSequence(seed)
@@ -208,7 +200,7 @@ def _check_up_front(model, *, method, step_size, batch_size, control_variates, c
         model, method, step_size, batch_size, chains, draws, warmup, noise_variance,
         control_variates, cv_order, target_log_ratio_sd, gradient_batch, batch_floor,
         batch_ceiling)
-    _check_seed(seed)
+    check_seed(seed)
     if isinstance(mass_matrix, str) or mass_matrix is None:
         if mass_matrix not in ("laplace", "laplace-diagonal", "identity"):
             fail("mass_matrix", f"unknown value {mass_matrix!r}",

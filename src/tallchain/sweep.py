@@ -138,6 +138,61 @@ def _sweep_task(shared, task):
     return _run_point(model, reference, tolerance, method, step, batch, seed, settings)
 
 
+# sample() settings that sweep() sets itself, and what to use instead.
+_SWEEP_OWNS = {
+    "method": "use methods=[...] (the methods of the grid)",
+    "step_size": "use step_sizes=[...] (the step sizes of the grid)",
+    "batch_size": "use batch_sizes=[...] (the batch sizes of the grid)",
+    "preparation": "leave it out (sweep prepares the model once itself)",
+    "parallel": "leave it out (sweep sets it from scheduler and workers)",
+    "checkpoint": "leave it out (grid points are not checkpointed; see done_rows)",
+    "resume": "leave it out (pass done_rows to skip finished grid points)",
+}
+
+
+def _grid_values(field, values, what, example):
+    """``values`` as a non-empty list (not a string or a scalar), or InputError."""
+    if isinstance(values, (str, bytes, dict)):
+        fail(field, f"must be a list of {what}, got the {type(values).__name__} {values!r}",
+             f"give a list, e.g. {field}={example}")
+    try:
+        out = list(values)
+    except TypeError:
+        fail(field, f"must be a list of {what}, got {values!r}",
+             f"give a list, e.g. {field}={example}")
+    if not out:
+        fail(field, "is empty, so the grid has no points", f"give at least one, e.g. "
+             f"{field}={example}, or leave it out for the default")
+    return out
+
+
+def _check_grid(model, methods, step_sizes, batch_sizes):
+    from difflib import get_close_matches
+
+    methods = _grid_values("methods", methods, "method names", '["penalty-mala", "sgld"]')
+    for m in methods:
+        if not isinstance(m, str) or m not in METHODS:
+            near = get_close_matches(str(m), METHODS, n=1)
+            hint = f'did you mean "{near[0]}"? ' if near else ""
+            fail("methods", f"unknown method {m!r}", f"{hint}choose from {', '.join(METHODS)}")
+    if step_sizes is not None:
+        step_sizes = _grid_values("step_sizes", step_sizes, "numbers > 0", "[0.05, 0.1, 0.2]")
+        for h in step_sizes:
+            if isinstance(h, (bool, np.bool_)) or not isinstance(
+                    h, (int, float, np.integer, np.floating)) or not math.isfinite(h) or h <= 0:
+                fail("step_sizes", f"must be finite numbers > 0, got {h!r}",
+                     "give positive step sizes, or leave step_sizes out (the tuned step x "
+                     "1/8 ... 8)")
+    if batch_sizes is not None:
+        batch_sizes = _grid_values("batch_sizes", batch_sizes, "integers >= 2", "[100, 300]")
+        for n in batch_sizes:
+            if isinstance(n, (bool, np.bool_)) or not isinstance(n, (int, np.integer)) \
+                    or not 2 <= n <= model.n_rows:
+                fail("batch_sizes", f"must be integers from 2 to {model.n_rows} (N), got {n!r}",
+                     "give whole numbers of rows, or leave batch_sizes out (the tuned size)")
+    return methods, step_sizes, batch_sizes
+
+
 def sweep(model, *, methods=("penalty-mala", "sgld"), step_sizes=None, batch_sizes=None,
           chains=4, draws=2000, warmup=500, seed=1, tolerance=1.5, workers=None,
           scheduler="processes", cache_dir=None, progress=False, on_row=None, done_rows=None,
@@ -148,69 +203,110 @@ def sweep(model, *, methods=("penalty-mala", "sgld"), step_sizes=None, batch_siz
     ----------
     model : LinearRegression, LogisticRegression or PoissonRegression
     methods : sequence of str, default=("penalty-mala", "sgld")
+        A non-empty list of method names (not a single string).
     step_sizes : sequence of float, optional
-        Default: the step size that ``penalty-mala`` (or the first adjusted method) tunes,
-        times 1/8, 1/4, ..., 8 - wide enough to show where each method breaks.
+        Finite step sizes > 0. Default: the step size that ``penalty-mala`` (or the first
+        adjusted method) tunes, times 1/8, 1/4, ..., 8 - wide enough to show where each
+        method breaks.
     batch_sizes : sequence of int, optional
-        Default: the batch size chosen by that tuning run (``batch_size="auto"``).
-    chains, draws, warmup : int
-        Per grid point.
-    seed : int, default=1
+        Batch sizes of the minibatch methods, integers in [2, N]. Default: the batch size
+        chosen by that tuning run (``batch_size="auto"``).
+    chains, draws, warmup : int, default=4, 2000, 500
+        Per grid point. The tuning run uses 2 chains, 200 draws and ``max(warmup, 200)``
+        warmup iterations.
+    seed : int, numpy.random.Generator or SeedSequence, default=1
         Grid point k gets child k of ``SeedSequence(seed)``: results do not depend on the
         number of workers or the order of completion.
     tolerance : float, default=1.5
         A point is "within noise" when every coefficient's KS distance to the reference is at
-        most ``tolerance`` times its floor.
+        most ``tolerance`` times its floor; a finite number > 0.
     workers : int, optional
         Worker processes (default: the number of cores, at most the number of points).
     scheduler : str or distributed.Client, default="processes"
         Where grid points run: see `tallchain.executors`.
     cache_dir : path, optional
         Where the reference run of a non-conjugate model is cached.
+    progress : bool, default=False
+        Show a progress line as grid points finish.
     on_row : callable, optional
         Called with each finished row (e.g. to write it out at once).
     done_rows : list of dict, optional
         Rows of an interrupted sweep over the same grid: those points are not run again.
     **settings
-        Further `tallchain.sample` settings held fixed across the grid.
+        Further `tallchain.sample` settings held fixed across the grid (``control_variates``,
+        ``mass_matrix``, ...). Not ``method``, ``step_size`` or ``batch_size`` (use
+        ``methods``, ``step_sizes``, ``batch_sizes``), nor ``preparation``, ``parallel``,
+        ``checkpoint`` or ``resume``.
 
     Returns
     -------
     SweepResult
-    """
-    from .sampling import sample
 
-    methods = list(methods)
-    for m in methods:
-        if m not in METHODS:
-            fail("methods", f"unknown method {m!r}", f"choose from {', '.join(METHODS)}")
-    from .sampling import prepare
+    Raises
+    ------
+    InputError
+        For a bad grid (an empty or scalar ``methods``/``step_sizes``/``batch_sizes``, an
+        unknown method, a step size that is not finite and > 0, a batch size outside
+        [2, N]), a bad ``tolerance``, ``seed``, ``scheduler`` or ``workers``, or a setting
+        `tallchain.sample` would refuse for any method of the grid (``chains=0``, an unknown
+        keyword, ...). Every check runs before the mode is found, the tuning run, the
+        reference run and any worker.
+    ModeNotFoundError
+        When the posterior mode cannot be found.
+    """
+    from ._validation import check_seed
+    from .calibration import _spawn_seeds
+    from .executors import check_scheduler, check_workers, run_tasks, worker_count
+    from .sampling import check_model, check_sample_settings, prepare, sample
+    from .twin import _check_tolerance
+
+    check_model(model)
+    methods, step_sizes, batch_sizes = _check_grid(model, methods, step_sizes, batch_sizes)
+    tolerance = _check_tolerance(tolerance)
+    check_seed(seed)
+    check_scheduler(scheduler)
+    check_workers(workers)
+    if not isinstance(progress, (bool, np.bool_)):
+        fail("progress", f"must be True or False, got {progress!r}", "give a bool")
+    if on_row is not None and not callable(on_row):
+        fail("on_row", f"must be callable, got {type(on_row).__name__}",
+             "give a function of one row (a dict), or leave it out")
+    for name, fix in _SWEEP_OWNS.items():
+        if name in settings:
+            fail(name, "is set by sweep() for each grid point", fix)
+    tuner = next((m for m in methods if METHODS[m].adjusted), "penalty-mala")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # as in the runs themselves
+        # The grid points: numeric step and batch sizes (a tuned size when not given).
+        for m in methods:
+            check_sample_settings(model, method=m, step_size=(step_sizes or [1.0])[0],
+                                  batch_size=(batch_sizes or [2])[0], chains=chains,
+                                  draws=draws, warmup=warmup, seed=seed, **settings)
+        # The tuning run.
+        check_sample_settings(model, method=tuner, chains=2, draws=200,
+                              warmup=max(warmup, 200), seed=seed,
+                              batch_size=batch_sizes[0] if batch_sizes else "auto", **settings)
 
     # The mode and row caches are computed here once and travel with the model to every
     # worker; neither the tuning run nor any grid point recomputes them.
     cv = settings.get("control_variates")
     orders = (0,) if cv is False else (settings.get("cv_order", 2), 0)
     preparation = prepare(model, cv_orders=orders)
-    tuner = next((m for m in methods if METHODS[m].adjusted), "penalty-mala")
-    tune_settings = {k: v for k, v in settings.items() if k not in ("step_size", "batch_size")}
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         tuned = sample(model, method=tuner, chains=2, draws=200, warmup=max(warmup, 200),
                        seed=seed, batch_size=batch_sizes[0] if batch_sizes else "auto",
-                       preparation=preparation, **tune_settings)
+                       preparation=preparation, **settings)
     h_star = float(np.mean(tuned.settings["step_size"]))
     if step_sizes is None:
         step_sizes = [h_star * f for f in DEFAULT_STEP_FACTORS]
     if batch_sizes is None:
         batch_sizes = [tuned.settings["batch_size"] or 100]
-    for h in step_sizes:
-        if not (isinstance(h, (int, float)) and h > 0):
-            fail("step_sizes", f"must be numbers > 0, got {h!r}", "give positive step sizes")
     grid = []
     for m in methods:
         for n in (batch_sizes if METHODS[m].minibatch else [None]):
             for h in step_sizes:
-                grid.append((m, float(h), n))
+                grid.append((m, float(h), None if n is None else int(n)))
 
     if model.family_name == "linear":
         reference, ref_kind = conjugate_posterior(model), "exact posterior"
@@ -219,11 +315,7 @@ def sweep(model, *, methods=("penalty-mala", "sgld"), step_sizes=None, batch_siz
                                               preparation=preparation), \
             "full-data mala run (cached)"
 
-    from .executors import check_scheduler, check_workers, run_tasks, worker_count
-
-    check_scheduler(scheduler)
-    check_workers(workers)
-    seeds = np.random.SeedSequence(seed).spawn(len(grid))
+    seeds = _spawn_seeds(seed, len(grid))
     n_workers = worker_count(workers, len(grid))
     local = scheduler == "serial" or (scheduler == "processes" and n_workers == 1)
     point_settings = dict(settings, chains=chains, draws=draws, warmup=warmup, parallel=local,

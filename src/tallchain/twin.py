@@ -1,10 +1,13 @@
 """The conjugate twin of a user's problem, and the check of a sampler setting against it."""
 
+import math
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
 
 from . import _full_passes
+from ._validation import fail
 from .conjugate import conjugate_posterior
 from .diagnostics import ks_check
 from .models import LinearRegression
@@ -57,7 +60,14 @@ def conjugate_twin(model, *, seed=None):
     -------
     twin : LinearRegression
     response : {"user", "prior-predictive"}
+
+    Raises
+    ------
+    InputError
+        When ``model`` is not a regression model or ``seed`` is not a valid seed (an integer
+        >= 0, None, a numpy Generator or SeedSequence); raised before the mode is found.
     """
+    _check_sample_settings(model, seed=seed)
     if model.family_name == "linear":
         return model, "user"
     from .mode import find_mode
@@ -74,6 +84,25 @@ def conjugate_twin(model, *, seed=None):
     twin = LinearRegression(model.X, y, noise_sd=noise_sd, prior=model.prior,
                             add_intercept=model.add_intercept, coef_names=names, check=False)
     return twin, "prior-predictive"
+
+
+def _check_sample_settings(model, **settings):
+    """`tallchain.sampling.check_sample_settings`, quiet: sample() itself warns later."""
+    from .sampling import check_sample_settings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        check_sample_settings(model, **settings)
+
+
+def _check_tolerance(tolerance):
+    """Refuse a KS tolerance that is not a finite number > 0."""
+    if isinstance(tolerance, (bool, np.bool_)) \
+            or not isinstance(tolerance, (int, float, np.integer, np.floating)) \
+            or not math.isfinite(tolerance) or tolerance <= 0:
+        fail("tolerance", f"must be a finite number > 0, got {tolerance!r}",
+             "give the KS distance allowed in multiples of its noise floor, e.g. 1.5")
+    return float(tolerance)
 
 
 def _linear_predictor(model, beta):
@@ -94,17 +123,30 @@ def check_on_twin(model, *, tolerance=1.5, seed=None, **settings):
     ----------
     model : LinearRegression, LogisticRegression or PoissonRegression
     tolerance : float, default=1.5
-        KS distance allowed, in multiples of the noise floor 1.358/sqrt(ESS).
-    seed : int, optional
+        KS distance allowed, in multiples of the noise floor 1.358/sqrt(ESS); finite, > 0.
+    seed : int, numpy.random.Generator or SeedSequence, optional
+        Seeds the twin's simulated response (GLMs) and the sampler.
     **settings
         Passed to `tallchain.sample` (method, step_size, batch_size, ...).
 
     Returns
     -------
     TwinCheck
+
+    Raises
+    ------
+    InputError
+        When ``model`` is not a regression model, ``tolerance`` is not a finite number > 0,
+        ``seed`` is not a valid seed, or a setting would be refused by `tallchain.sample`
+        (an unknown method or keyword, ``chains=0``, ...); raised before the mode is found or
+        any sampling starts.
+    ModeNotFoundError
+        When the mode of a GLM cannot be found (see `tallchain.find_mode`).
     """
     from .sampling import sample
 
+    _check_sample_settings(model, seed=seed, **settings)
+    tolerance = _check_tolerance(tolerance)
     twin, response = conjugate_twin(model, seed=seed)
     post = conjugate_posterior(twin)
     result = sample(twin, seed=seed, **settings)
