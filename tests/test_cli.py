@@ -198,7 +198,7 @@ def _object_x(X, y):
 @pytest.mark.parametrize("change, family, pattern", [
     (_bad_x_nan, "logistic", r"data\.x: contains nan in row 7, column 1; remove or impute"),
     (_bad_y_inf, "linear", r"data\.y: contains inf in row 5; remove or impute"),
-    (_bad_label, "logistic", r"data\.y: has label 2 in row 3 \(1 rows outside \{0, 1\}\); "
+    (_bad_label, "logistic", r"data\.y: has label 2 in row 3 \(1 row outside \{0, 1\}\); "
                              r"logistic regression needs labels 0 or 1"),
     (_short_y, "logistic", r"data\.y: has 399 rows but X has 400; give X and y with the same"),
 ])
@@ -208,7 +208,7 @@ def test_bad_data_exits_2_with_row_and_column(tmp_path, rng, capsys, change, fam
 
 
 @pytest.mark.parametrize("y_bad, pattern", [
-    (-1.0, r"data\.y: has count -1 in row 4 \(1 rows not a count\); Poisson regression needs "
+    (-1.0, r"data\.y: has count -1 in row 4 \(1 row not a count\); Poisson regression needs "
            r"non-negative integer counts"),
     (1.5, r"data\.y: has count 1\.5 in row 4"),
 ])

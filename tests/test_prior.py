@@ -1,4 +1,5 @@
-"""`GaussianPrior.resolve`: mean vector, precision and covariance, and its input errors."""
+"""`GaussianPrior`: its construction checks, and `resolve` (mean vector, precision and
+covariance, and its input errors)."""
 
 import numpy as np
 import pytest
@@ -57,31 +58,64 @@ def test_model_resolves_prior_with_intercept_first(rng):
         tc.LinearRegression(X, y, prior=10.0)
 
 
+@pytest.mark.parametrize(("kwargs", "match"), [
+    ({"sd": -1.0}, r"^prior sd: must be > 0, got -1\.0; give positive standard deviations$"),
+    ({"sd": -1}, r"^prior sd: must be > 0, got -1\.0; give positive"),
+    ({"sd": 0.0}, r"^prior sd: must be > 0, got 0\.0"),
+    ({"sd": [1.0, -2.0, 3.0]}, r"^prior sd: must be > 0, got -2\.0"),
+    ({"sd": [1.0, np.inf, 1.0]}, r"^prior sd: contains NaN or inf; give finite values$"),
+    ({"sd": "wide"}, r"^prior sd: must be a number or a list of numbers, got 'wide'; give a "
+                     r"number or a list of numbers$"),
+    ({"sd": None}, r"^prior sd: must be a number or a list of numbers, got None"),
+    ({"sd": [1.0, "x"]}, r"^prior sd: must be a number or a list of numbers, got \[1\.0, 'x'\]"),
+    ({"sd": [1.0, [2.0, 3.0]]}, r"^prior sd: must be a number or a list of numbers"),
+    ({"mean": np.nan}, r"^prior mean: contains NaN or inf"),
+    ({"mean": "zero"}, r"^prior mean: must be a number or a list of numbers, got 'zero'"),
+    ({"cov": [[1.0, 0.5], [0.0, 1.0]]}, r"^prior cov: is not symmetric"),
+    ({"cov": [[1.0, 2.0], [2.0, 1.0]]}, r"^prior cov: is not positive definite"),
+    ({"cov": [[1.0, 0.0], [0.0, 0.0]]}, r"^prior cov: is not positive definite"),
+    ({"cov": -np.eye(2)}, r"^prior cov: is not positive definite"),
+    ({"cov": [[1.0, np.nan], [np.nan, 1.0]]}, r"^prior cov: contains NaN or inf"),
+    ({"cov": np.ones((2, 3))}, r"^prior cov: has shape \(2, 3\), not square; give an "
+                               r"\(n_coef, n_coef\) matrix"),
+    ({"cov": [1.0, 2.0]}, r"^prior cov: has shape \(2,\), not square"),
+    ({"cov": "eye"}, r"^prior cov: must be a matrix of numbers, got 'eye'"),
+], ids=["negative-sd", "negative-int-sd", "zero-sd", "one-negative-sd", "inf-sd", "string-sd",
+        "none-sd", "string-in-sd", "ragged-sd", "nan-mean", "string-mean", "cov-asymmetric",
+        "cov-indefinite", "cov-singular", "cov-negative", "cov-nan", "cov-not-square",
+        "cov-1d", "cov-string"])
+def test_construction_errors(kwargs, match):
+    # values are checked when the prior is made, not only when a model is built
+    with pytest.raises(InputError, match=match):
+        tc.GaussianPrior(**kwargs)
+
+
+def test_construction_accepts_numpy_and_integer_values():
+    tc.GaussianPrior(mean=np.float32(1.0), sd=np.int64(3))
+    tc.GaussianPrior(mean=[0, 1], sd=np.array([1.0, 2.0], dtype=np.float32))
+    tc.GaussianPrior(cov=np.eye(3, dtype=np.float32), sd=None)  # sd is ignored with cov
+
+
 @pytest.mark.parametrize(("prior", "n", "match"), [
-    (tc.GaussianPrior(sd=-1.0), 3, r"prior sd: must be > 0, got -1\.0; give positive"),
-    (tc.GaussianPrior(sd=0.0), 3, r"prior sd: must be > 0, got 0\.0"),
-    (tc.GaussianPrior(sd=[1.0, -2.0, 3.0]), 3, r"prior sd: must be > 0, got -2\.0"),
     (tc.GaussianPrior(sd=[1.0, 2.0]), 3, r"prior sd: has 2 entries, expected 1 or 3"),
     (tc.GaussianPrior(sd=np.ones((3, 1))), 3, r"prior sd: has 3 entries, expected 1 or 3"),
-    (tc.GaussianPrior(sd=[1.0, np.inf, 1.0]), 3, r"prior sd: contains NaN or inf"),
     (tc.GaussianPrior(mean=[0.0, 1.0]), 3, r"prior mean: has 2 entries, expected 1 or 3"),
-    (tc.GaussianPrior(mean=np.nan), 2, r"prior mean: contains NaN or inf"),
     (tc.GaussianPrior(cov=np.eye(2)), 3, r"prior cov: has shape \(2, 2\), expected \(3, 3\)"),
-    (tc.GaussianPrior(cov=[[1.0, 0.5], [0.0, 1.0]]), 2, r"prior cov: is not symmetric"),
-    (tc.GaussianPrior(cov=[[1.0, 2.0], [2.0, 1.0]]), 2, r"prior cov: is not positive definite"),
-    (tc.GaussianPrior(cov=[[1.0, 0.0], [0.0, 0.0]]), 2, r"prior cov: is not positive definite"),
-    (tc.GaussianPrior(cov=-np.eye(2)), 2, r"prior cov: is not positive definite"),
-], ids=["negative-sd", "zero-sd", "one-negative-sd", "short-sd", "2d-sd", "inf-sd", "short-mean",
-        "nan-mean", "cov-shape", "cov-asymmetric", "cov-indefinite", "cov-singular",
-        "cov-negative"])
+], ids=["short-sd", "2d-sd", "short-mean", "cov-shape"])
 def test_resolve_errors(prior, n, match):
+    # lengths can only be checked against the model's number of coefficients
     with pytest.raises(InputError, match=match):
         prior.resolve(n)
 
 
-def test_nan_in_covariance_is_rejected():
-    with pytest.raises(InputError, match=r"prior cov: contains NaN or inf"):
-        tc.GaussianPrior(cov=[[1.0, np.nan], [np.nan, 1.0]]).resolve(2)
+def test_resolve_checks_values_changed_after_construction():
+    prior = tc.GaussianPrior()
+    prior.sd = -1.0
+    with pytest.raises(InputError, match=r"prior sd: must be > 0, got -1\.0"):
+        prior.resolve(2)
+    prior.sd = "wide"
+    with pytest.raises(InputError, match=r"prior sd: must be a number or a list of numbers"):
+        prior.resolve(2)
 
 
 def test_repr_names_the_parameters():

@@ -63,3 +63,13 @@ def check_seed(seed):
     if isinstance(seed, (bool, np.bool_)) or not isinstance(seed, (int, np.integer)) or seed < 0:
         fail("seed", f"must be a non-negative integer, got {seed!r}",
              "give an integer such as 1, or a numpy Generator")
+
+
+def show_value(value):
+    """A short one-line description of a value, for messages."""
+    if isinstance(value, np.ndarray) and value.ndim > 0:
+        return f"an array of shape {value.shape}"
+    if isinstance(value, np.generic):
+        value = value.item()
+    text = repr(value).replace("\n", " ")
+    return text if len(text) <= 60 else text[:57] + "..."
