@@ -77,3 +77,14 @@ def test_check_sample_settings_names_an_unknown_keyword_and_spends_no_seed(model
     fresh = tc.sample(model, method="mala", step_size=0.5, seed=np.random.default_rng(9), chains=1, draws=30,
                       warmup=0)
     assert np.array_equal(after_check.draws, fresh.draws)
+
+
+def test_saving_somewhere_that_is_not_a_folder_is_one_line(model, tmp_path):
+    r = tc.sample(model, method="mala", step_size=0.5, chains=2, draws=100, warmup=0, seed=1)
+    with pytest.raises(tc.InputError, match=r"directory: must be a folder path, got NoneType"):
+        r.save(None)
+    (tmp_path / "afile").write_text("")
+    with pytest.raises(tc.InputError, match=r'directory: ".*afile" is a file, not a folder'):
+        r.save(tmp_path / "afile")
+    r.save(tmp_path / "new" / "folder")
+    assert (tmp_path / "new" / "folder" / "posterior.nc").exists()

@@ -110,11 +110,11 @@ def summarize(result, *, warn=True):
         "ess_per_data_pass": ess_min / result.data_passes if result.data_passes > 0 else float("nan"),
     }
     msgs = []
-    rhat_max = np.nanmax(table["r_hat"]) if n_coef else np.nan
+    rhat_max = _finite_extreme(table["r_hat"], np.max)
     if np.isfinite(rhat_max) and rhat_max > RHAT_MAX:
         msgs.append(f"R-hat is {rhat_max:.3f} > {RHAT_MAX} (Vehtari et al. 2021): the chains have "
                     "not mixed; run longer or check the model")
-    ess_tail_min = np.nanmin(table["ess_tail"]) if n_coef else np.nan
+    ess_tail_min = _finite_extreme(table["ess_tail"], np.min)
     low = min(ess_min, ess_tail_min) if np.isfinite(ess_tail_min) else ess_min
     if not np.isfinite(low) or low < ESS_MIN:
         msgs.append(f"the smallest ESS is {low:.0f} < {ESS_MIN} (Vehtari et al. 2021): estimates "
@@ -122,6 +122,14 @@ def summarize(result, *, warn=True):
     if warn and msgs:
         warnings.warn("; and ".join(msgs), ConvergenceWarning, stacklevel=2)
     return Summary(table=table, run=run, warnings=msgs)
+
+
+def _finite_extreme(values, extreme):
+    """``extreme`` of the finite values, NaN when there are none (e.g. R-hat of one short
+    chain), without numpy's all-NaN warning."""
+    v = np.asarray(values, dtype=float)
+    v = v[np.isfinite(v)]
+    return float(extreme(v)) if v.size else float("nan")
 
 
 @dataclass
