@@ -101,13 +101,6 @@ def test_calibrate_refuses_bad_input_before_mode_and_workers(logistic, no_expens
     _one_line(exc)
 
 
-@pytest.mark.parametrize("bad,name", [(np.zeros((3, 2)), "ndarray"), (None, "NoneType")])
-def test_calibrate_refuses_a_non_model(no_expensive_work, bad, name):
-    with pytest.raises(tc.InputError, match=rf"model: must be a LinearRegression, "
-                       rf"LogisticRegression or PoissonRegression, got {name}"):
-        calibrate(bad)
-
-
 def test_calibrate_accepts_numpy_scalars_and_all_distinct_thinned_draws(linear, monkeypatch):
     # thinned_draws equal to chains x draws is allowed: every draw is picked exactly once.
     from tallchain import calibration
@@ -195,23 +188,6 @@ SWEEP_CASES = [
 ]
 
 
-@pytest.mark.parametrize("family", ["linear", "logistic"])
-@pytest.mark.parametrize("kwargs,match", SWEEP_CASES)
-def test_sweep_refuses_bad_input_before_prepare_tuning_and_reference(
-        linear, logistic, no_expensive_work, family, kwargs, match):
-    model = linear if family == "linear" else logistic
-    with pytest.raises(tc.InputError, match=match) as exc:
-        sweep(model, **kwargs)
-    _one_line(exc)
-
-
-@pytest.mark.parametrize("bad,name", [(np.zeros((3, 2)), "ndarray"), (None, "NoneType")])
-def test_sweep_refuses_a_non_model(no_expensive_work, bad, name):
-    with pytest.raises(tc.InputError, match=rf"model: must be a LinearRegression, "
-                       rf"LogisticRegression or PoissonRegression, got {name}"):
-        sweep(bad)
-
-
 def test_sweep_accepts_numpy_arrays_and_scalars(linear):
     res = sweep(linear, methods=np.array(["penalty-mala", "sgld"]),
                 step_sizes=np.array([0.5, 1.0]), batch_sizes=[np.int64(64)],
@@ -249,12 +225,13 @@ TWIN_CASES = [
 
 
 @pytest.mark.parametrize("family", ["linear", "logistic"])
-@pytest.mark.parametrize("kwargs,match", TWIN_CASES)
-def test_check_on_twin_refuses_bad_input_before_mode_and_sampling(
-        linear, logistic, no_expensive_work, family, kwargs, match):
+@pytest.mark.parametrize("run,kwargs,match", [(sweep, k, m) for k, m in SWEEP_CASES]
+                         + [(check_on_twin, k, m) for k, m in TWIN_CASES])
+def test_sweep_and_twin_refuse_bad_input_before_mode_tuning_reference_and_sampling(
+        linear, logistic, no_expensive_work, family, run, kwargs, match):
     model = linear if family == "linear" else logistic
     with pytest.raises(tc.InputError, match=match) as exc:
-        check_on_twin(model, **kwargs)
+        run(model, **kwargs)
     _one_line(exc)
 
 
@@ -262,13 +239,6 @@ def test_check_on_twin_refuses_bad_input_before_mode_and_sampling(
 def test_conjugate_twin_checks_its_seed_before_the_mode(logistic, no_expensive_work, seed):
     with pytest.raises(tc.InputError, match="seed: must be a non-negative integer"):
         conjugate_twin(logistic, seed=seed)
-
-
-@pytest.mark.parametrize("bad,name", [(np.zeros((3, 2)), "ndarray"), (None, "NoneType")])
-def test_check_on_twin_refuses_a_non_model(no_expensive_work, bad, name):
-    with pytest.raises(tc.InputError, match=rf"model: must be a LinearRegression, "
-                       rf"LogisticRegression or PoissonRegression, got {name}"):
-        check_on_twin(bad)
 
 
 def test_check_on_twin_accepts_numpy_scalars(logistic):
@@ -312,15 +282,18 @@ def test_find_mode_refuses_bad_arguments_by_name(logistic, monkeypatch, kwargs, 
     assert "beta" not in str(exc.value) and "separation" not in str(exc.value)
 
 
-@pytest.mark.parametrize("bad,name", [(np.zeros((3, 2)), "ndarray"), (None, "NoneType")])
-def test_find_mode_refuses_a_non_model(bad, name):
-    with pytest.raises(tc.InputError, match=rf"model: must be a LinearRegression, "
-                       rf"LogisticRegression or PoissonRegression, got {name}"):
-        tc.find_mode(bad)
-
-
 def test_find_mode_accepts_numpy_scalars_and_a_start(logistic):
     ref = tc.find_mode(logistic)
     lap = tc.find_mode(logistic, tol=np.float32(1e-9), max_iter=np.int64(500),
                        start=ref.mode + 0.1)
     np.testing.assert_allclose(lap.mode, ref.mode, atol=1e-5)
+
+
+# ---------------------------------------------------------------- not a model
+
+@pytest.mark.parametrize("run", [calibrate, sweep, check_on_twin, tc.find_mode])
+@pytest.mark.parametrize("bad,name", [(np.zeros((3, 2)), "ndarray"), (None, "NoneType")])
+def test_something_else_than_a_model_is_refused_first(no_expensive_work, run, bad, name):
+    with pytest.raises(tc.InputError, match=rf"model: must be a LinearRegression, "
+                       rf"LogisticRegression or PoissonRegression, got {name}"):
+        run(bad)

@@ -18,19 +18,31 @@ class Preconditioner:
     mass_inv_chol: np.ndarray
 
 
+MASS_MATRIX_KINDS = ("laplace", "laplace-diagonal", "identity")
+
+
+def check_mass_matrix(mass_matrix, n_coef):
+    """Refuse a mass-matrix setting that `make_preconditioner` would refuse, without the mode."""
+    if isinstance(mass_matrix, str) or mass_matrix is None:
+        if mass_matrix not in MASS_MATRIX_KINDS:
+            fail("mass_matrix", f"unknown value {mass_matrix!r}",
+                 'use "laplace", "laplace-diagonal", "identity" or an array')
+    else:
+        spd_matrix_and_inverse("mass_matrix", mass_matrix, n_coef,
+                               "give one row and column per coefficient")
+
+
 def make_preconditioner(mass_matrix, n_coef, laplace):
     """Build the preconditioner from a setting: "identity", "laplace", "laplace-diagonal" or an
     (n_coef, n_coef) symmetric positive definite array."""
-    if isinstance(mass_matrix, str):
+    if isinstance(mass_matrix, str) or mass_matrix is None:
+        check_mass_matrix(mass_matrix, n_coef)
         if mass_matrix == "identity":
             mass_inv = np.eye(n_coef)
         elif mass_matrix == "laplace":
             mass_inv = laplace.cov
-        elif mass_matrix == "laplace-diagonal":
-            mass_inv = np.diag(np.diag(laplace.cov))
         else:
-            fail("mass_matrix", f"unknown value {mass_matrix!r}",
-                 'use "laplace", "laplace-diagonal", "identity" or an array')
+            mass_inv = np.diag(np.diag(laplace.cov))
         kind = mass_matrix
         mass_inv = np.array(mass_inv, dtype=float)
         chol = np.linalg.cholesky(mass_inv)

@@ -1,5 +1,7 @@
 """One message shape for every input check (private)."""
 
+import math
+
 import numpy as np
 
 
@@ -27,6 +29,26 @@ def check_finite_matrix(name, a):
                 r, *c = np.argwhere(bad)[0]
                 where = f"row {start + r}" + (f", column {c[0]}" if c else "")
                 fail(name, f"contains {block[(r, *c)]} in {where}", "remove or impute that value")
+
+
+def is_number(value):
+    """A real number of Python or numpy (not a bool)."""
+    return (isinstance(value, (int, float, np.integer, np.floating))
+            and not isinstance(value, (bool, np.bool_)))
+
+
+def positive_number(name, value, fix):
+    """``value`` as a float when it is a finite number > 0; else InputError naming ``name``."""
+    if not is_number(value) or not math.isfinite(value) or value <= 0:
+        fail(name, f"must be a finite number > 0, got {value!r}", fix)
+    return float(value)
+
+
+def check_flag(name, value):
+    """``value`` as a bool when it is one (numpy's too); else InputError naming ``name``."""
+    if not isinstance(value, (bool, np.bool_)):
+        fail(name, f"must be True or False, got {show_value(value)}", f"give {name}=True or False")
+    return bool(value)
 
 
 def positive_int(name, value, minimum=1):

@@ -13,7 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
-from ._validation import check_seed, fail, positive_int
+from ._validation import check_flag, check_seed, fail, is_number, positive_int
 from .models import FAMILIES, GaussianPrior
 
 
@@ -150,14 +150,6 @@ _CALIBRATE_OWNS = {
 }
 
 
-def _spawn_seeds(seed, n):
-    """n independent child seeds of ``seed`` (checked by `check_seed`)."""
-    if isinstance(seed, np.random.Generator):
-        return seed.spawn(n)
-    root = seed if isinstance(seed, np.random.SeedSequence) else np.random.SeedSequence(seed)
-    return root.spawn(n)
-
-
 def calibrate(model, *, replications=100, thinned_draws=99, prior="laplace", level=0.05, n_bins=10,
               seed=1, workers=None, scheduler="processes", progress=False, **settings):
     """Simulation-based calibration of a sampler setting on the model's X.
@@ -211,7 +203,7 @@ def calibrate(model, *, replications=100, thinned_draws=99, prior="laplace", lev
         When ``prior="laplace"`` and the mode of the user's posterior cannot be found.
     """
     from .executors import check_scheduler, check_workers, run_tasks, worker_count
-    from .sampling import check_model
+    from .sampling import check_model, check_sample_settings, spawn_seeds
 
     check_model(model)
     replications = positive_int("replications", replications, minimum=2)
@@ -221,9 +213,7 @@ def calibrate(model, *, replications=100, thinned_draws=99, prior="laplace", lev
         fail("n_bins", f"must be an integer from 2 to thinned_draws + 1 = {draws + 1}, "
              f"got {n_bins!r}", "give e.g. 10 (ranks take thinned_draws + 1 values)")
     n_bins = int(n_bins)
-    if isinstance(level, (bool, np.bool_)) or not isinstance(level, (int, float, np.integer,
-                                                                     np.floating)) \
-            or not 0 < level < 1:
+    if not is_number(level) or not 0 < level < 1:
         fail("level", f"must be a probability between 0 and 1, got {level!r}",
              "give e.g. 0.05 (the family-wise false-alarm rate)")
     if not isinstance(prior, str) or prior not in ("laplace", "model"):
@@ -231,8 +221,7 @@ def calibrate(model, *, replications=100, thinned_draws=99, prior="laplace", lev
     check_seed(seed)
     check_scheduler(scheduler)
     check_workers(workers)
-    if not isinstance(progress, (bool, np.bool_)):
-        fail("progress", f"must be True or False, got {progress!r}", "give a bool")
+    check_flag("progress", progress)
     for name, why in _CALIBRATE_OWNS.items():
         if name in settings:
             fail(name, f"cannot be passed to calibrate(): {why}", f"leave {name} out")
@@ -240,11 +229,7 @@ def calibrate(model, *, replications=100, thinned_draws=99, prior="laplace", lev
     settings.setdefault("chains", 2)
     settings.setdefault("draws", 500)
     settings.setdefault("warmup", 300)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")  # as in the replications themselves
-        from .sampling import check_sample_settings
-
-        check_sample_settings(model, **settings)
+    check_sample_settings(model, **settings)
     available = int(settings["chains"]) * int(settings["draws"])
     if draws > available:
         fail("thinned_draws", f"is {draws}, more than the {available} draws of a replication "
@@ -259,7 +244,7 @@ def calibrate(model, *, replications=100, thinned_draws=99, prior="laplace", lev
         cal_prior = GaussianPrior(mean=lap.mode, cov=lap.cov)
     else:
         cal_prior = model.prior
-    seeds = _spawn_seeds(seed, replications)
+    seeds = spawn_seeds(seed, replications)
     n_workers = worker_count(workers, replications)
     settings["parallel"] = scheduler == "serial" or (scheduler == "processes" and n_workers == 1)
     ranks = np.zeros((replications, model.n_coef), dtype=np.int64)

@@ -2,12 +2,10 @@
 
 from dataclasses import dataclass
 
-import math
-
 import numpy as np
 from scipy import optimize
 
-from ._validation import fail, positive_int
+from ._validation import fail, positive_int, positive_number
 
 
 class ModeNotFoundError(RuntimeError):
@@ -117,11 +115,7 @@ def _check_arguments(model, start, tol, max_iter):
     from .sampling import check_model
 
     check_model(model)
-    if isinstance(tol, (bool, np.bool_)) or not isinstance(tol, (int, float, np.integer,
-                                                                 np.floating)) \
-            or not math.isfinite(tol) or tol <= 0:
-        fail("tol", f"must be a finite number > 0, got {tol!r}",
-             "give a small positive number such as 1e-9")
+    positive_number("tol", tol, "give a small positive number such as 1e-9")
     positive_int("max_iter", max_iter, minimum=1)
     if start is None:
         return np.array(model.prior_mean, dtype=float)

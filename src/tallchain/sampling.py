@@ -11,8 +11,9 @@ from . import _acceptance_kernels as _acc
 from . import _chain
 from . import _driver
 from ._methods import BROKEN_METHODS, METHODS, NOISE_VARIANCE
-from ._preconditioning import ControlVariateCache, control_variate_cache, make_preconditioner
-from ._validation import check_seed, fail, positive_int
+from ._preconditioning import (ControlVariateCache, check_mass_matrix, control_variate_cache,
+                               make_preconditioner)
+from ._validation import check_flag, check_seed, fail, is_number, positive_int, positive_number
 from .executors import check_scheduler, check_workers, worker_count
 from .mode import find_mode
 from .result import SampleResult
@@ -86,13 +87,20 @@ def prepare(model, *, cv_orders=(2, 0)):
     return Preparation(laplace, caches, model.n_rows, model.n_coef)
 
 
-def _resolve_seed(seed, n_children):
-    # Spawning advances a Generator or SeedSequence: done once, by sample itself.
+def spawn_seeds(seed, n):
+    """n independent children of ``seed``: Generators of a Generator, else SeedSequences of
+    ``SeedSequence(seed)``. Spawning advances a Generator or SeedSequence, so each caller
+    (sample, a sweep, a calibration) spawns once."""
     check_seed(seed)
     if isinstance(seed, np.random.Generator):
-        return seed.spawn(n_children)
-    ss = seed if isinstance(seed, np.random.SeedSequence) else np.random.SeedSequence(seed)
-    return [np.random.Generator(np.random.PCG64(s)) for s in ss.spawn(n_children)]
+        return seed.spawn(n)
+    root = seed if isinstance(seed, np.random.SeedSequence) else np.random.SeedSequence(seed)
+    return root.spawn(n)
+
+
+def _resolve_seed(seed, n_children):
+    return [s if isinstance(s, np.random.Generator) else np.random.Generator(np.random.PCG64(s))
+            for s in spawn_seeds(seed, n_children)]
 
 
 def _check_settings(model, method, step_size, batch_size, chains, draws, warmup, noise_variance,
@@ -112,7 +120,7 @@ def _check_settings(model, method, step_size, batch_size, chains, draws, warmup,
         if not spec.adjusted:
             fail("step_size", f'"auto" is not available for {method} (it has no accept step to '
                  "tune against)", "give a number, e.g. the step size tuned by penalty-mala")
-    elif not _is_number(step_size) or not math.isfinite(step_size) or step_size <= 0:
+    elif not is_number(step_size) or not math.isfinite(step_size) or step_size <= 0:
         fail("step_size", f"must be > 0, got {step_size!r}", 'give a positive number or "auto"')
     chains = positive_int("chains", chains)
     draws = positive_int("draws", draws)
@@ -141,10 +149,8 @@ def _check_settings(model, method, step_size, batch_size, chains, draws, warmup,
     if cv_order not in (1, 2):
         fail("cv_order", f"must be 1 or 2, got {cv_order!r}",
              "use 2 (second-order Taylor proxies) or 1 (first-order)")
-    if not (_is_number(target_log_ratio_sd) and math.isfinite(target_log_ratio_sd)
-            and target_log_ratio_sd > 0):
-        fail("target_log_ratio_sd", f"must be a finite number > 0, got {target_log_ratio_sd!r}",
-             "give a positive number such as 1.0")
+    positive_number("target_log_ratio_sd", target_log_ratio_sd,
+                    "give a positive number such as 1.0")
     floor = positive_int("batch_floor", batch_floor, minimum=2)
     ceiling = positive_int("batch_ceiling", batch_ceiling, minimum=2)
     if ceiling < floor:
@@ -166,11 +172,6 @@ def _check_settings(model, method, step_size, batch_size, chains, draws, warmup,
     return spec, chains, draws, warmup, cv
 
 
-def _is_number(x):
-    return isinstance(x, (int, float, np.integer, np.floating)) and not isinstance(x, (bool,
-                                                                                      np.bool_))
-
-
 def check_model(model):
     """Refuse anything but a tallchain regression model, in the one-line message shape."""
     from .models import FAMILIES
@@ -178,12 +179,6 @@ def check_model(model):
     if not isinstance(model, tuple(FAMILIES.values())):
         fail("model", f"must be a LinearRegression, LogisticRegression or PoissonRegression, "
              f"got {type(model).__name__}", "build one, e.g. tc.LogisticRegression(X, y)")
-
-
-def _check_flags(**flags):
-    for name, value in flags.items():
-        if not isinstance(value, (bool, np.bool_)):
-            fail(name, f"must be True or False, got {value!r}", "give a bool")
 
 
 def _check_up_front(model, *, method, step_size, batch_size, control_variates, cv_order,
@@ -195,27 +190,18 @@ def _check_up_front(model, *, method, step_size, batch_size, control_variates, c
     check_model(model)
     check_scheduler(scheduler, threads=True)
     check_workers(workers)
-    _check_flags(resume=resume, progress=progress, parallel=parallel)
+    for name, flag in (("resume", resume), ("progress", progress), ("parallel", parallel)):
+        check_flag(name, flag)
     spec, chains, draws, warmup, cv = _check_settings(
         model, method, step_size, batch_size, chains, draws, warmup, noise_variance,
         control_variates, cv_order, target_log_ratio_sd, gradient_batch, batch_floor,
         batch_ceiling)
     check_seed(seed)
-    if isinstance(mass_matrix, str) or mass_matrix is None:
-        if mass_matrix not in ("laplace", "laplace-diagonal", "identity"):
-            fail("mass_matrix", f"unknown value {mass_matrix!r}",
-                 'use "laplace", "laplace-diagonal", "identity" or an array')
-    else:
-        make_preconditioner(mass_matrix, model.n_coef, None)
-    if isinstance(init, str) or init is None:
-        if init not in ("laplace", "mode", "prior-mean"):
-            fail("init", f"unknown value {init!r}",
-                 'use "laplace", "mode", "prior-mean" or an array of starting points')
-    else:
-        _initial_points(init, model, None, chains, None)
+    check_mass_matrix(mass_matrix, model.n_coef)
+    _given_starts(init, model, chains)
     if resume and checkpoint is None:
         fail("resume", "needs a checkpoint path", "pass checkpoint=<file> (the CLI does this)")
-    if not _is_number(checkpoint_seconds) or not checkpoint_seconds > 0:
+    if not is_number(checkpoint_seconds) or not checkpoint_seconds > 0:
         fail("checkpoint_seconds", f"must be a number > 0, got {checkpoint_seconds!r}",
              "give the seconds between checkpoint writes, e.g. 30")
     if preparation is not None:
@@ -256,29 +242,40 @@ def check_sample_settings(model, **settings):
     bound = inspect.signature(sample).bind(model, **settings)
     bound.apply_defaults()
     args = dict(bound.arguments)
-    _check_up_front(args.pop("model"), **args)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # advice belongs to the run, which gives it again
+        _check_up_front(args.pop("model"), **args)
 
 
-def _initial_points(init, model, laplace, n_chains, rng):
+def _given_starts(init, model, n_chains):
+    """The (n_chains, n_coef) starting points of an array ``init``, None for a named one;
+    InputError for anything else (needs no mode)."""
     d = model.n_coef
-    if isinstance(init, str):
-        if init == "laplace":
-            # Overdispersed: twice the Laplace standard deviation (common practice for
-            # starting points that let R-hat detect non-convergence).
-            chol = np.linalg.cholesky(laplace.cov)
-            return laplace.mode + 2.0 * rng.standard_normal((n_chains, d)) @ chol.T
-        if init == "mode":
-            return np.tile(laplace.mode, (n_chains, 1))
-        if init == "prior-mean":
-            return np.tile(model.prior_mean, (n_chains, 1))
-        fail("init", f"unknown value {init!r}",
-             'use "laplace", "mode", "prior-mean" or an array of starting points')
+    if isinstance(init, str) or init is None:
+        if init not in ("laplace", "mode", "prior-mean"):
+            fail("init", f"unknown value {init!r}",
+                 'use "laplace", "mode", "prior-mean" or an array of starting points')
+        return None
     start = np.asarray(init, dtype=float)
     if start.shape == (d,):
         start = np.tile(start, (n_chains, 1))
     if start.shape != (n_chains, d) or not np.all(np.isfinite(start)):
         fail("init", f"has shape {start.shape}", f"give ({d},) or ({n_chains}, {d}) finite values")
     return start
+
+
+def _initial_points(init, model, laplace, n_chains, rng):
+    start = _given_starts(init, model, n_chains)
+    if start is not None:
+        return start
+    if init == "laplace":
+        # Overdispersed: twice the Laplace standard deviation (common practice for
+        # starting points that let R-hat detect non-convergence).
+        chol = np.linalg.cholesky(laplace.cov)
+        return laplace.mode + 2.0 * rng.standard_normal((n_chains, model.n_coef)) @ chol.T
+    if init == "mode":
+        return np.tile(laplace.mode, (n_chains, 1))
+    return np.tile(model.prior_mean, (n_chains, 1))
 
 
 def _default_step(spec, pre, laplace, n_coef):

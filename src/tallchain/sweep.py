@@ -11,7 +11,7 @@ from pathlib import Path
 import numpy as np
 
 from ._methods import METHODS
-from ._validation import fail
+from ._validation import check_flag, check_seed, fail, is_number
 from .conjugate import conjugate_posterior
 from .diagnostics import ess_bulk, ks_check
 
@@ -178,8 +178,7 @@ def _check_grid(model, methods, step_sizes, batch_sizes):
     if step_sizes is not None:
         step_sizes = _grid_values("step_sizes", step_sizes, "numbers > 0", "[0.05, 0.1, 0.2]")
         for h in step_sizes:
-            if isinstance(h, (bool, np.bool_)) or not isinstance(
-                    h, (int, float, np.integer, np.floating)) or not math.isfinite(h) or h <= 0:
+            if not is_number(h) or not math.isfinite(h) or h <= 0:
                 fail("step_sizes", f"must be finite numbers > 0, got {h!r}",
                      "give positive step sizes, or leave step_sizes out (the tuned step x "
                      "1/8 ... 8)")
@@ -254,20 +253,17 @@ def sweep(model, *, methods=("penalty-mala", "sgld"), step_sizes=None, batch_siz
     ModeNotFoundError
         When the posterior mode cannot be found.
     """
-    from ._validation import check_seed
-    from .calibration import _spawn_seeds
     from .executors import check_scheduler, check_workers, run_tasks, worker_count
-    from .sampling import check_model, check_sample_settings, prepare, sample
-    from .twin import _check_tolerance
+    from .sampling import check_model, check_sample_settings, prepare, sample, spawn_seeds
+    from .twin import check_tolerance
 
     check_model(model)
     methods, step_sizes, batch_sizes = _check_grid(model, methods, step_sizes, batch_sizes)
-    tolerance = _check_tolerance(tolerance)
+    tolerance = check_tolerance(tolerance)
     check_seed(seed)
     check_scheduler(scheduler)
     check_workers(workers)
-    if not isinstance(progress, (bool, np.bool_)):
-        fail("progress", f"must be True or False, got {progress!r}", "give a bool")
+    check_flag("progress", progress)
     if on_row is not None and not callable(on_row):
         fail("on_row", f"must be callable, got {type(on_row).__name__}",
              "give a function of one row (a dict), or leave it out")
@@ -275,17 +271,14 @@ def sweep(model, *, methods=("penalty-mala", "sgld"), step_sizes=None, batch_siz
         if name in settings:
             fail(name, "is set by sweep() for each grid point", fix)
     tuner = next((m for m in methods if METHODS[m].adjusted), "penalty-mala")
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")  # as in the runs themselves
-        # The grid points: numeric step and batch sizes (a tuned size when not given).
-        for m in methods:
-            check_sample_settings(model, method=m, step_size=(step_sizes or [1.0])[0],
-                                  batch_size=(batch_sizes or [2])[0], chains=chains,
-                                  draws=draws, warmup=warmup, seed=seed, **settings)
-        # The tuning run.
-        check_sample_settings(model, method=tuner, chains=2, draws=200,
-                              warmup=max(warmup, 200), seed=seed,
-                              batch_size=batch_sizes[0] if batch_sizes else "auto", **settings)
+    # The grid points: numeric step and batch sizes (a tuned size when not given).
+    for m in methods:
+        check_sample_settings(model, method=m, step_size=(step_sizes or [1.0])[0],
+                              batch_size=(batch_sizes or [2])[0], chains=chains,
+                              draws=draws, warmup=warmup, seed=seed, **settings)
+    tuning = dict(settings, method=tuner, chains=2, draws=200, warmup=max(warmup, 200),
+                  seed=seed, batch_size=batch_sizes[0] if batch_sizes else "auto")
+    check_sample_settings(model, **tuning)
 
     # The mode and row caches are computed here once and travel with the model to every
     # worker; neither the tuning run nor any grid point recomputes them.
@@ -294,9 +287,7 @@ def sweep(model, *, methods=("penalty-mala", "sgld"), step_sizes=None, batch_siz
     preparation = prepare(model, cv_orders=orders)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        tuned = sample(model, method=tuner, chains=2, draws=200, warmup=max(warmup, 200),
-                       seed=seed, batch_size=batch_sizes[0] if batch_sizes else "auto",
-                       preparation=preparation, **settings)
+        tuned = sample(model, preparation=preparation, **tuning)
     h_star = float(np.mean(tuned.settings["step_size"]))
     if step_sizes is None:
         step_sizes = [h_star * f for f in DEFAULT_STEP_FACTORS]
@@ -315,7 +306,7 @@ def sweep(model, *, methods=("penalty-mala", "sgld"), step_sizes=None, batch_siz
                                               preparation=preparation), \
             "full-data mala run (cached)"
 
-    seeds = _spawn_seeds(seed, len(grid))
+    seeds = spawn_seeds(seed, len(grid))
     n_workers = worker_count(workers, len(grid))
     local = scheduler == "serial" or (scheduler == "processes" and n_workers == 1)
     point_settings = dict(settings, chains=chains, draws=draws, warmup=warmup, parallel=local,

@@ -1,16 +1,15 @@
 """The conjugate twin of a user's problem, and the check of a sampler setting against it."""
 
-import math
-import warnings
 from dataclasses import dataclass
 
 import numpy as np
 
 from . import _full_passes
-from ._validation import fail
+from ._validation import positive_number
 from .conjugate import conjugate_posterior
 from .diagnostics import ks_check
 from .models import LinearRegression
+from .sampling import check_sample_settings
 
 
 @dataclass
@@ -67,7 +66,7 @@ def conjugate_twin(model, *, seed=None):
         When ``model`` is not a regression model or ``seed`` is not a valid seed (an integer
         >= 0, None, a numpy Generator or SeedSequence); raised before the mode is found.
     """
-    _check_sample_settings(model, seed=seed)
+    check_sample_settings(model, seed=seed)
     if model.family_name == "linear":
         return model, "user"
     from .mode import find_mode
@@ -86,23 +85,11 @@ def conjugate_twin(model, *, seed=None):
     return twin, "prior-predictive"
 
 
-def _check_sample_settings(model, **settings):
-    """`tallchain.sampling.check_sample_settings`, quiet: sample() itself warns later."""
-    from .sampling import check_sample_settings
-
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        check_sample_settings(model, **settings)
-
-
-def _check_tolerance(tolerance):
-    """Refuse a KS tolerance that is not a finite number > 0."""
-    if isinstance(tolerance, (bool, np.bool_)) \
-            or not isinstance(tolerance, (int, float, np.integer, np.floating)) \
-            or not math.isfinite(tolerance) or tolerance <= 0:
-        fail("tolerance", f"must be a finite number > 0, got {tolerance!r}",
-             "give the KS distance allowed in multiples of its noise floor, e.g. 1.5")
-    return float(tolerance)
+def check_tolerance(tolerance):
+    """A KS tolerance (multiples of the noise floor) as a float; InputError unless > 0."""
+    return positive_number("tolerance", tolerance,
+                           "give the KS distance allowed in multiples of its noise floor, "
+                           "e.g. 1.5")
 
 
 def _linear_predictor(model, beta):
@@ -145,8 +132,8 @@ def check_on_twin(model, *, tolerance=1.5, seed=None, **settings):
     """
     from .sampling import sample
 
-    _check_sample_settings(model, seed=seed, **settings)
-    tolerance = _check_tolerance(tolerance)
+    check_sample_settings(model, seed=seed, **settings)
+    tolerance = check_tolerance(tolerance)
     twin, response = conjugate_twin(model, seed=seed)
     post = conjugate_posterior(twin)
     result = sample(twin, seed=seed, **settings)

@@ -2,7 +2,7 @@
 
 import numpy as np
 
-from .._validation import check_finite_matrix, fail, show_value
+from .._validation import check_finite_matrix, check_flag, fail, is_number, show_value
 from . import _kernels
 from ._prior import GaussianPrior
 
@@ -21,8 +21,8 @@ class _GLM:
     def __init__(self, X, y, *, prior=None, add_intercept=True, offset=None, noise_sd=1.0,
                  coef_names=None, check=True):
         # Cheap checks first: nothing below scans or copies the data until they have passed.
-        add_intercept = _flag("add_intercept", add_intercept)
-        check = _flag("check", check)
+        add_intercept = check_flag("add_intercept", add_intercept)
+        check = check_flag("check", check)
         if prior is None:
             prior = GaussianPrior()
         if not isinstance(prior, GaussianPrior):
@@ -397,18 +397,11 @@ def _float_vector(field, a):
     fail(field, f"has dtype {a.dtype}, not numeric", "give a float or integer array")
 
 
-def _flag(field, value):
-    if not isinstance(value, (bool, np.bool_)):
-        fail(field, f"must be True or False, got {show_value(value)}", f"give {field}=True or False")
-    return bool(value)
-
-
 def _noise_sd(value):
     fix = "give the known noise sd as a number > 0, e.g. noise_sd=1.0"
-    numeric = (isinstance(value, (int, float, np.integer, np.floating))
-               or (isinstance(value, np.ndarray) and value.ndim == 0
-                   and value.dtype.kind in "fiu"))
-    if isinstance(value, (bool, np.bool_)) or not numeric:
+    numeric = is_number(value) or (isinstance(value, np.ndarray) and value.ndim == 0
+                                   and value.dtype.kind in "fiu")
+    if not numeric:
         fail("noise_sd", f"must be a finite number > 0, got {show_value(value)}", fix)
     try:
         value = float(value)
