@@ -51,6 +51,12 @@ def check_flag(name, value):
     return bool(value)
 
 
+def check_folder(name, path):
+    """Refuse an output folder that already exists as a file (a missing one is created)."""
+    if path.exists() and not path.is_dir():
+        fail(name, f'"{path}" is a file, not a folder', "give a folder (it is created when missing)")
+
+
 def positive_int(name, value, minimum=1):
     if isinstance(value, bool) or not isinstance(value, (int, np.integer)):
         fail(name, f"must be an integer >= {minimum}, got {value!r}", f"give an integer >= {minimum}")

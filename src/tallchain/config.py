@@ -23,7 +23,7 @@ import numpy as np
 
 from . import sampling
 from ._preconditioning import make_preconditioner
-from ._validation import InputError, fail
+from ._validation import InputError, check_folder, fail
 from .io import ARRAY_SUFFIXES, DataSource, load_array
 from .mode import LaplaceApproximation
 from .models import FAMILIES, GaussianPrior, LinearRegression
@@ -276,9 +276,7 @@ def config_from_dict(raw, *, base_dir=".", stem="run", overrides=None, path=None
         if not output_dir.is_absolute():
             output_dir = (Path.cwd() if "output.dir" in overridden else base_dir) / output_dir
     output_dir = Path(os.path.normpath(output_dir))
-    if output_dir.exists() and not output_dir.is_dir():
-        fail(_label("output.dir", overridden), f'"{output_dir}" is a file, not a folder',
-             "give a folder (it is created when missing)")
+    check_folder(_label("output.dir", overridden), output_dir)
     return RunConfig(path=path, data=data, model=model, sampler=MappingProxyType(sampler),
                      output_dir=output_dir, overridden=overridden,
                      compute=MappingProxyType(compute))

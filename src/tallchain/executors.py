@@ -161,7 +161,6 @@ class TaskPool:
         self._run = uuid.uuid4().hex[:8]
         self._distributed = None
         self._sent = {}     # future -> (i, task, label, attempt, the shared copy it was sent with)
-        self.resent = 0     # tasks sent again after the cluster lost ``shared``
 
     def __enter__(self):
         _refuse_in_a_starting_worker()
@@ -197,7 +196,7 @@ class TaskPool:
             return self._send(i, task, label, 0)
         try:
             f = self._pool.submit(_call_local, i, task)
-        except (BrokenProcessPool, ConnectionError) as exc:   # a worker gone before its start
+        except (BrokenProcessPool, ConnectionError):   # a worker gone before its start
             raise WorkerLostError(_WORKER_LOST) from None
         self._sent[f] = (i, task, label, 0, None)
         return f
@@ -221,7 +220,7 @@ class TaskPool:
                 for f in as_completed(futures):
                     self._sent.pop(f, None)
                     yield f.result()
-            except BrokenProcessPool as exc:
+            except BrokenProcessPool:
                 raise WorkerLostError(_WORKER_LOST) from None
             return
         pending = self._distributed.as_completed(futures)
@@ -234,7 +233,6 @@ class TaskPool:
                     raise
                 if shared_f is self._shared_f:    # the first of its tasks to notice the loss
                     self._scatter_shared()
-                self.resent += 1
                 pending.add(self._send(i, task, label, attempt + 1))
                 continue
             yield out

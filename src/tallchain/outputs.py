@@ -7,7 +7,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ._validation import fail
+from ._validation import check_folder, fail
 from .diagnostics import summarize
 
 
@@ -85,9 +85,7 @@ def save_result(result, directory, *, wall_seconds=None, extra=None):
         fail("directory", f"must be a folder path, got {type(directory).__name__}",
              'give a path such as "runs/example"')
     out = Path(directory)
-    if out.exists() and not out.is_dir():
-        fail("directory", f'"{out}" is a file, not a folder',
-             "give a folder (it is created when missing)")
+    check_folder("directory", out)
     out.mkdir(parents=True, exist_ok=True)
     summary = summarize(result, warn=False)
     tree = result.to_arviz()
