@@ -54,8 +54,8 @@ CHILD_FIT = textwrap.dedent("""
 CHILD_CSV = textwrap.dedent("""
     import sys, time
     t = time.perf_counter()
-    from tallchain.config import load_config
-    from tallchain.cli import build_model
+    from tallchain.app import load_config
+    from tallchain.app._service import build_model
     model, _ = build_model(load_config(sys.argv[1]))
     print(time.perf_counter() - t, model.n_rows)
 """)

@@ -19,7 +19,7 @@ import warnings
 import numpy as np
 
 import tallchain as tc
-from tallchain.sweep import sweep
+from tallchain.checks import sweep
 
 
 def main():

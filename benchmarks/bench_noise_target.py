@@ -36,8 +36,10 @@ import numpy as np
 from scipy import stats
 
 import tallchain as tc
-from tallchain.diagnostics import KS_CRITICAL, ess_bulk, ks_check
-from tallchain.sampling import DEFAULT_BATCH_FLOOR, prepare
+from tallchain.checks import KS_CRITICAL, ks_check
+from tallchain.mcmc import ess_bulk
+from tallchain.mcmc import prepare
+from tallchain.mcmc._sampling import DEFAULT_BATCH_FLOOR
 
 TARGETS = (0.25, 0.5, 0.75, 1.0, 1.25, 1.5, 2.0, 2.5)
 QUICK_TARGETS = (0.5, 1.0, 2.0)

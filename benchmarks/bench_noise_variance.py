@@ -19,7 +19,8 @@ import warnings
 import numpy as np
 
 import tallchain as tc
-from tallchain.diagnostics import ess_bulk, ks_check
+from tallchain.checks import ks_check
+from tallchain.mcmc import ess_bulk
 
 SETTINGS = ("same-batch", "independent-batch", "pooled")
 

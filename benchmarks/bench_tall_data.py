@@ -28,8 +28,9 @@ import numba
 import numpy as np
 
 import tallchain as tc
-from tallchain._batch_kernels import draw_batch
-from tallchain.diagnostics import ess_bulk, ks_check
+from tallchain.mcmc._batches import draw_batch
+from tallchain.checks import ks_check
+from tallchain.mcmc import ess_bulk
 from tallchain.models import _kernels
 
 D_FEATURES = 9

@@ -41,7 +41,7 @@ import numpy as np  # noqa: E402
 from scipy import special  # noqa: E402
 
 import tallchain as tc  # noqa: E402
-from tallchain._preconditioning import make_preconditioner  # noqa: E402
+from tallchain.posterior import make_preconditioner  # noqa: E402
 
 
 def make_model(family, n_rows, n_coef, seed=2026):

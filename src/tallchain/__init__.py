@@ -3,17 +3,23 @@
 Minibatch Metropolis-Hastings with Langevin proposals and the penalty correction for the noise
 of the minibatch log-ratio (Ceperley & Dewing 1999), control variates around the mode, and the
 diagnostics to check the result.
+
+The package is layered; each layer imports only the ones below it:
+``data`` (files in) < ``models`` (families, priors, kernels) < ``posterior`` (mode, Laplace,
+conjugate posteriors, mass matrices, control-variate caches) < ``mcmc`` (settings, the
+transition loop, `sample`, the result) < ``checks`` (KS, twin, sweeps, calibration) < ``app``
+(config, command line, demo). ``exceptions``, ``executors``, ``outputs`` and ``plots`` serve
+every layer and import none of them.
 """
 
 from importlib.metadata import PackageNotFoundError, version
 
-from .conjugate import GaussianPosterior, conjugate_posterior
-from .mode import LaplaceApproximation, ModeNotFoundError, find_mode
+from .checks import calibrate, check_on_twin, ks_check, sweep
+from .exceptions import (ConvergenceWarning, DataWarning, InputError, ModeNotFoundError,
+                         NoisyLogRatioWarning, SamplingInterrupted, WorkerLostError)
+from .mcmc import SampleResult, sample
 from .models import GaussianPrior, LinearRegression, LogisticRegression, PoissonRegression
-from .result import SampleResult
-from .sampling import NoisyLogRatioWarning, SamplingInterrupted, sample
-from ._validation import InputError
-from .executors import WorkerLostError
+from .posterior import GaussianPosterior, LaplaceApproximation, conjugate_posterior, find_mode
 
 try:
     __version__ = version("tallchain")
@@ -29,15 +35,22 @@ __all__ = [
     # sampling
     "sample",
     "SampleResult",
-    "NoisyLogRatioWarning",
-    "SamplingInterrupted",
     # exact and approximate posteriors
     "conjugate_posterior",
     "GaussianPosterior",
     "find_mode",
     "LaplaceApproximation",
-    "ModeNotFoundError",
-    # errors
+    # checks
+    "check_on_twin",
+    "sweep",
+    "calibrate",
+    "ks_check",
+    # errors and warnings
     "InputError",
+    "ModeNotFoundError",
+    "SamplingInterrupted",
     "WorkerLostError",
+    "NoisyLogRatioWarning",
+    "ConvergenceWarning",
+    "DataWarning",
 ]

@@ -4,9 +4,7 @@ import math
 
 import numpy as np
 
-
-class InputError(ValueError):
-    """Bad input: the message names the field, what was got, and the fix."""
+from .exceptions import InputError
 
 
 def fail(field, problem, fix):

@@ -35,12 +35,9 @@ from concurrent.futures.process import BrokenProcessPool
 import numpy as np
 
 from ._validation import fail
+from .exceptions import WorkerLostError
 
 _SHARED = None
-
-
-class WorkerLostError(RuntimeError):
-    """A local worker process died before returning its task."""
 
 
 _WORKER_LOST = (

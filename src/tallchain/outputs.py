@@ -8,7 +8,6 @@ from pathlib import Path
 import numpy as np
 
 from ._validation import check_folder, fail
-from .diagnostics import summarize
 
 
 def atomic_write(path, write):
@@ -76,10 +75,11 @@ def run_record(result, summary, wall_seconds=None):
     }
 
 
-def save_result(result, directory, *, wall_seconds=None, extra=None):
-    """Write posterior.nc, summary.csv and run.json into ``directory`` (created if needed).
+def save_result(result, directory, *, summary=None, wall_seconds=None, extra=None):
+    """Write posterior.nc, summary.csv and run.json of ``result`` into ``directory`` (created
+    if needed); ``summary`` is ``result.summary(warn=False)`` unless given.
 
-    Returns the Summary, so a caller can report it without recomputing.
+    Returns the summary, so a caller can report it without recomputing.
     """
     if not isinstance(directory, (str, os.PathLike)):
         fail("directory", f"must be a folder path, got {type(directory).__name__}",
@@ -87,7 +87,8 @@ def save_result(result, directory, *, wall_seconds=None, extra=None):
     out = Path(directory)
     check_folder("directory", out)
     out.mkdir(parents=True, exist_ok=True)
-    summary = summarize(result, warn=False)
+    if summary is None:
+        summary = result.summary(warn=False)
     tree = result.to_arviz()
     atomic_write(out / "posterior.nc", lambda tmp: tree.to_netcdf(tmp, engine="h5netcdf"))
     atomic_write(out / "summary.csv", summary.to_csv)

@@ -107,3 +107,32 @@ def plot_run(result, directory):
     plt.close(fig)
     files.append(out / "log_ratio_sd.png")
     return files
+
+
+def plot_calibration(result, path):
+    """ECDF-difference plot of the ranks with simultaneous 1 - level bands, one panel each."""
+    plt = _pyplot()
+    d = result.ranks.shape[1]
+    cols = min(d, 4)
+    rows = (d + cols - 1) // cols
+    fig, axes = plt.subplots(rows, cols, figsize=(3.2 * cols, 2.6 * rows), squeeze=False,
+                             constrained_layout=True)
+    R = result.ranks.shape[0]
+    z, lo, hi = result.ecdf_bands(100)
+    for j in range(d):
+        ax = axes[j // cols][j % cols]
+        u = (result.ranks[:, j] + 0.5) / (result.n_draws + 1)
+        ecdf = np.searchsorted(np.sort(u), z, side="right") / R
+        ax.fill_between(z, lo, hi, color="tab:blue", alpha=0.15,
+                        label=f"{100 * (1 - result.level):.0f}% simultaneous band")
+        ax.plot(z, ecdf - z, color="black", lw=1.2)
+        ax.axhline(0, color="gray", lw=0.6)
+        ax.set_title(f"{result.coef_names[j]} (p = {result.p_values[j]:.3f})", fontsize=9)
+        ax.set_xlabel("fractional rank")
+        ax.set_ylabel("ECDF - uniform")
+    for k in range(d, rows * cols):
+        axes[k // cols][k % cols].axis("off")
+    axes[0][0].legend(fontsize=7, loc="lower left")
+    fig.suptitle(f"simulation-based calibration: R = {R}, L = {result.n_draws}", fontsize=10)
+    fig.savefig(path, dpi=110)
+    plt.close(fig)

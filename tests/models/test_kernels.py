@@ -34,9 +34,9 @@ from hypothesis import strategies as st
 from numpy.testing import assert_allclose, assert_array_equal
 from scipy import special, stats
 
-from tallchain import _estimator_kernels as EK
-from tallchain import _full_passes as FP
-from tallchain._preconditioning import row_cache
+from tallchain.mcmc import _estimators as EK
+from tallchain.models import _passes as FP
+from tallchain.posterior._control_variates import row_cache
 from tallchain.models import _kernels as K
 from tallchain.models import _reference as R
 

@@ -305,7 +305,7 @@ def full_eta_derivatives(family, X, y, offset, noise_sd, intercept, beta, eta, f
 #
 # Each fixed block of BLOCK_ROWS rows is summed serially by the serial kernel above, and the
 # block sums are added in block order: the result does not depend on the number of threads.
-# Callers must not launch these from two Python threads at once (see tallchain._full_passes).
+# Callers must not launch these from two Python threads at once (see tallchain.models._passes).
 # ---------------------------------------------------------------------------------------------
 
 

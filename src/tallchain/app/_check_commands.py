@@ -1,0 +1,192 @@
+"""The checking commands: ``validate``, ``sweep`` and ``calibrate`` (registered with the CLI)."""
+
+import argparse
+import json
+import time
+from pathlib import Path
+
+from ..outputs import write_json
+from ._config import named_fields
+from ._registry import (EXIT_CHECK_FAILED, EXIT_OK, add_config_arguments, command,
+                        config_from_args, option_or, warnings_as_lines)
+from ._service import build_model
+
+
+def _scheduler_argument(parser):
+    parser.add_argument("--scheduler", default=None, metavar="WHERE",
+                        help='where runs execute: "processes" (default), "dask-local", or a '
+                             "Dask scheduler address such as tcp://host:8786")
+    parser.add_argument("--workers", type=int, default=None, metavar="N",
+                        help="worker processes (default: the number of cores)")
+    parser.add_argument("--quiet", action="store_true", help="print only warnings and errors")
+
+
+def _load(args):
+    """The config, its model and the (created) output folder of a checking command."""
+    config = config_from_args(args)
+    with warnings_as_lines():
+        model, _ = build_model(config)
+    out = Path(config.output_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    return config, model, out
+
+
+def _add_validate_arguments(parser):
+    add_config_arguments(parser)
+    parser.add_argument("--quiet", action="store_true", help="print only warnings and errors")
+
+
+@command("validate", "run the configured sampler on the conjugate twin of the problem and "
+         "compare with its exact posterior", _add_validate_arguments)
+def _validate(args):
+    from ..checks import check_on_twin
+
+    config, model, out = _load(args)
+    settings = dict(config.sampler)
+    seed = settings.pop("seed", None)
+    with warnings_as_lines(), config.named_fields():
+        check = check_on_twin(model, seed=seed, **settings)
+    write_json(out / "validate.json", check.as_dict())
+    if not args.quiet:
+        k = check.ks
+        print(f"conjugate twin ({check.response} response, noise sd {check.noise_sd:.4g}), "
+              f"method {check.result.method}")
+        w = max(14, *(len(name) + 1 for name in k.coef_names))
+        print(f"{'coef':<{w}}{'KS':>9}{'floor':>9}{'KS/floor':>10}  verdict")
+        for name, ks, fl, ratio, v in zip(k.coef_names, k.ks, k.floor, k.ratio, k.verdicts):
+            print(f"{name:<{w}}{ks:>9.4f}{fl:>9.4f}{ratio:>10.2f}  {v}")
+        for note in check.notes:
+            print(f"note: {note}")
+        print(f"{'passed' if check.passed else 'FAILED'}: wrote validate.json to {out}")
+    return EXIT_OK if check.passed else EXIT_CHECK_FAILED
+
+
+def _number_list(kind, example):
+    def convert(text):
+        try:
+            return [kind(v) for v in text.split(",") if v.strip()]
+        except ValueError:
+            what = "whole numbers" if kind is int else "numbers"
+            raise argparse.ArgumentTypeError(
+                f"must be {what} separated by commas, like {example}; got {text!r}") from None
+
+    return convert
+
+
+_float_list = _number_list(float, "0.5,1,2")
+_int_list = _number_list(int, "32,100,300")
+
+
+def _add_sweep_arguments(parser):
+    add_config_arguments(parser, exclude=("--step-size", "--batch-size", "--method"))
+    parser.add_argument("--methods", type=lambda s: [m.strip() for m in s.split(",")],
+                        default=None, metavar="M1,M2", help="methods (default penalty-mala,sgld)")
+    parser.add_argument("--step-sizes", type=_float_list, default=None, metavar="H1,H2",
+                        help="step sizes (default: the tuned step x 1/8 ... 8)")
+    parser.add_argument("--batch-sizes", type=_int_list, default=None, metavar="N1,N2",
+                        help="batch sizes (default: the tuned batch size)")
+    parser.add_argument("--resume", action="store_true",
+                        help="skip grid points finished by an interrupted sweep")
+    _scheduler_argument(parser)
+
+
+@command("sweep", "run a grid of methods and step sizes: bias against cost, and a "
+         "recommended setting", _add_sweep_arguments)
+def _sweep(args):
+    from ..checks import sweep, write_sweep
+
+    config, model, out = _load(args)
+    partial = out / "sweep.partial.jsonl"
+    done = []
+    if args.resume and partial.exists():
+        done = [json.loads(line) for line in partial.read_text().splitlines() if line.strip()]
+    elif partial.exists():
+        partial.unlink()
+
+    def keep(row):
+        with open(partial, "a") as fh:
+            fh.write(json.dumps(row) + "\n")
+
+    settings = dict(config.sampler)
+    for key in ("method", "step_size", "batch_size"):
+        settings.pop(key, None)
+    compute = config.compute
+    scheduler = option_or(args.scheduler, compute.get("scheduler", "processes"))
+    workers = option_or(args.workers, compute.get("workers"))
+    t = time.perf_counter()
+    with warnings_as_lines(), config.named_fields():
+        res = sweep(model, methods=args.methods or ("penalty-mala", "sgld"),
+                    step_sizes=args.step_sizes, batch_sizes=args.batch_sizes,
+                    scheduler=scheduler, workers=workers, cache_dir=out, progress=not args.quiet,
+                    on_row=keep, done_rows=done, **settings)
+    write_sweep(res, out)
+    partial.unlink(missing_ok=True)
+    if not args.quiet:
+        print(f"{'method':<14}{'step':>10}{'batch':>7}{'KS/floor':>10}{'ESS/s':>10}"
+              f"{'accept':>8}  verdict")
+        for r in res.rows:
+            print(f"{r['method']:<14}{r['step_size']:>10.4g}{str(r['batch_size'] or '-'):>7}"
+                  f"{r['ks_ratio_max']:>10.2f}{r['ess_per_second']:>10.4g}"
+                  f"{r['acceptance']:>8.3f}  {r['verdict']}")
+        best = res.recommended
+        if best is not None:
+            print(f"recommended: method = {best['method']}, step_size = {best['step_size']:.4g}"
+                  + (f", batch_size = {best['batch_size']}" if best["batch_size"] else "")
+                  + f" ({best['ess_per_second']:.4g} ESS/s, reference: {res.reference})")
+        for note in res.notes:
+            print(f"note: {note}")
+        print(f"wrote sweep.csv, sweep.json, sweep.png to {out} in {time.perf_counter() - t:.0f} s")
+    return EXIT_OK
+
+
+def _add_calibrate_arguments(parser):
+    add_config_arguments(parser, exclude=("--draws",))
+    parser.add_argument("--replications", type=int, default=100, metavar="R",
+                        help="simulated data sets (default 100)")
+    parser.add_argument("--draws", dest="rank_draws", type=int, default=99, metavar="L",
+                        help="thinned posterior draws each true value is ranked among "
+                             "(default 99); the sampler's draws per chain come from the config")
+    parser.add_argument("--prior", choices=("laplace", "model"), default="laplace",
+                        help="calibration prior (default: Laplace approximation of the posterior)")
+    parser.add_argument("--level", type=float, default=0.05,
+                        help="family-wise level, Bonferroni over coefficients (default 0.05)")
+    _scheduler_argument(parser)
+
+
+# calibrate()'s own arguments, named as the options that set them.
+_CALIBRATE_OPTIONS = {"thinned_draws": "--draws", "replications": "--replications",
+                      "level": "--level"}
+
+
+@command("calibrate", "simulation-based calibration of the configured sampler on this X",
+         _add_calibrate_arguments)
+def _calibrate(args):
+    from ..checks import calibrate
+    from ..plots import plot_calibration
+
+    config, model, out = _load(args)
+    settings = dict(config.sampler)
+    seed = settings.pop("seed", None) or 1
+    compute = config.compute
+    t = time.perf_counter()
+    with warnings_as_lines(), config.named_fields(), named_fields(_CALIBRATE_OPTIONS):
+        res = calibrate(model, replications=args.replications, thinned_draws=args.rank_draws,
+                        prior=args.prior, level=args.level, seed=seed,
+                        scheduler=option_or(args.scheduler, compute.get("scheduler", "processes")),
+                        workers=option_or(args.workers, compute.get("workers")),
+                        progress=not args.quiet, **settings)
+    seconds = time.perf_counter() - t
+    record = res.as_dict()
+    record["seconds"] = seconds
+    write_json(out / "calibrate.json", record)
+    plot_calibration(res, out / "calibrate.png")
+    if not args.quiet:
+        per = res.level / len(res.coef_names)
+        print(f"simulation-based calibration: R = {args.replications}, L = {args.rank_draws}, "
+              f"prior {args.prior}, level {res.level} (per coefficient {per:.3g})")
+        w = max(14, *(len(name) for name in res.coef_names))
+        for name, p in zip(res.coef_names, res.p_values):
+            print(f"  {name:<{w}} p = {p:.4f}  {'calibrated' if p > per else 'MISCALIBRATED'}")
+        print(f"{'passed' if res.passed else 'FAILED'} in {seconds:.0f} s: wrote calibrate.json, "
+              f"calibrate.png to {out}")
+    return EXIT_OK if res.passed else EXIT_CHECK_FAILED

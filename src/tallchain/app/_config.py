@@ -1,0 +1,449 @@
+"""The TOML run configuration: schema, checks and the resolved settings.
+
+The config layer checks what only it knows (sections, key names, TOML types, which keys belong
+to which family, that files exist). The values themselves are checked by the code that uses
+them -- `tallchain.sample`, `tallchain.GaussianPrior`, the model constructors -- through a dry
+call on a tiny stand-in problem, so every rule lives in one place. Their messages name the
+argument (``step_size: ...``); `named_fields` renames it to the config key
+(``sampler.step_size: ...``).
+"""
+
+import difflib
+import inspect
+import os
+import re
+import tomllib
+import warnings
+from contextlib import contextmanager
+from dataclasses import dataclass, field
+from pathlib import Path
+from types import MappingProxyType, SimpleNamespace
+
+import numpy as np
+
+from .._validation import check_folder, fail
+from ..data import ARRAY_SUFFIXES, DataSource, load_array
+from ..exceptions import InputError
+from ..mcmc import _sampling as sampling
+from ..models import FAMILIES, GaussianPrior, LinearRegression
+from ..posterior import LaplaceApproximation, make_preconditioner
+
+
+def _is_number(v):
+    return isinstance(v, (int, float)) and not isinstance(v, bool)
+
+
+def _is_int(v):
+    return isinstance(v, int) and not isinstance(v, bool)
+
+
+def _is_number_list(v):
+    return isinstance(v, list) and bool(v) and all(_is_number(e) for e in v)
+
+
+# (description for messages, predicate) per kind of TOML value.
+_STR = ("a string", lambda v: isinstance(v, str))
+_BOOL = ("true or false", lambda v: isinstance(v, bool))
+_INT = ("an integer", _is_int)
+_NUMBER = ("a number", _is_number)
+_NUMBERS = ("a number or a list of numbers", lambda v: _is_number(v) or _is_number_list(v))
+_STR_LIST = ("a list of strings",
+             lambda v: isinstance(v, list) and all(isinstance(e, str) for e in v))
+_STR_OR_NUMBER = ('a number or "auto"', lambda v: isinstance(v, str) or _is_number(v))
+_STR_OR_INT = ('an integer or "auto"', lambda v: isinstance(v, str) or _is_int(v))
+
+SCHEMA = {
+    "data": {"x": _STR, "y": _STR, "add_intercept": _BOOL, "standardize": _BOOL,
+             "columns": _STR_LIST, "offset": _STR},
+    "model": {"family": _STR, "noise_sd": _NUMBER, "prior_mean": _NUMBERS, "prior_sd": _NUMBERS,
+              "prior_cov": _STR},
+    # The keys are the keyword options of tallchain.sample but for the run-time ones
+    # (checkpointing, progress, threads, a preparation); tests/test_config.py checks it.
+    # Defaults live there.
+    "sampler": {"method": _STR, "step_size": _STR_OR_NUMBER, "batch_size": _STR_OR_INT,
+                "control_variates": _BOOL, "cv_order": _INT, "chains": _INT, "draws": _INT,
+                "warmup": _INT, "seed": _INT, "mass_matrix": _STR, "init": _STR,
+                "noise_variance": _STR, "gradient_batch": _STR, "target_log_ratio_sd": _NUMBER,
+                "batch_floor": _INT, "batch_ceiling": _INT},
+    "output": {"dir": _STR},
+    # Where the chains of a run, and the runs of sweeps and calibrations, execute
+    # (tallchain.executors); --scheduler/--workers override.
+    "compute": {"scheduler": _STR, "workers": _INT},
+}
+REQUIRED = (("data", "x"), ("model", "family"))
+
+# Argument names used in the messages of the lower layers, and the config key each one is.
+_ARGUMENT_KEYS = {
+    **{k: f"sampler.{k}" for k in SCHEMA["sampler"]},
+    "prior mean": "model.prior_mean", "prior sd": "model.prior_sd",
+    "prior cov": "model.prior_cov", "noise_sd": "model.noise_sd",
+    "X": "data.x", "y": "data.y", "offset": "data.offset", "columns": "data.columns",
+    "coef_names": "data.columns", "standardize": "data.standardize",
+}
+
+
+@contextmanager
+def named_fields(names):
+    """Re-raise `InputError` with its leading field renamed through ``names``.
+
+    Parameters
+    ----------
+    names : mapping of str to str
+        Argument name (as the message starts, ``"step_size"``) to the name the user knows
+        (``"sampler.step_size"``).
+    """
+    try:
+        yield
+    except InputError as exc:
+        head, sep, rest = str(exc).partition(": ")
+        if not sep or head not in names:
+            raise
+        raise InputError(f"{names[head]}: {rest}") from exc
+
+
+@dataclass(frozen=True)
+class DataSettings:
+    """The resolved ``[data]`` section (see `tallchain.data.load_data` for the meaning)."""
+
+    x: DataSource
+    y: DataSource | str
+    offset: DataSource | str | None = None
+    columns: tuple | None = None
+    add_intercept: bool = True
+    standardize: bool = False
+
+
+@dataclass(frozen=True)
+class ModelSettings:
+    """The resolved ``[model]`` section.
+
+    Attributes
+    ----------
+    family : {"linear", "logistic", "poisson"}
+    noise_sd : float or None
+        Linear models only (None: the model's default).
+    prior_mean, prior_sd : float or tuple of float, or None
+        None: the prior's default.
+    prior_cov : ndarray of shape (n_coef, n_coef) or None
+        Read from the ``prior_cov`` file (read-only).
+    """
+
+    family: str
+    noise_sd: float | None = None
+    prior_mean: float | tuple | None = None
+    prior_sd: float | tuple | None = None
+    prior_cov: np.ndarray | None = field(default=None, compare=False, repr=False)
+
+    def prior(self):
+        """The `tallchain.GaussianPrior` these settings describe."""
+        kw = {k: getattr(self, f"prior_{k}") for k in ("mean", "sd", "cov")}
+        return GaussianPrior(**{k: v for k, v in kw.items() if v is not None})
+
+
+@dataclass(frozen=True)
+class RunConfig:
+    """A checked run configuration.
+
+    Attributes
+    ----------
+    path : pathlib.Path or None
+        The config file (None when built from a dict).
+    data : DataSettings
+    model : ModelSettings
+    sampler : mapping of str to value
+        The ``[sampler]`` keys that were given, as keyword arguments of `tallchain.sample`
+        (the rest take that function's defaults).
+    output_dir : pathlib.Path
+    compute : mapping
+        The ``[compute]`` keys given: ``scheduler`` ("threads", "processes", "dask-local" or
+        a Dask scheduler address) and ``workers``. ``run`` defaults to "threads", sweeps and
+        calibrations to "processes" (they refuse "threads").
+    overridden : frozenset of str
+        ``section.key`` names set on the command line rather than in the file.
+    """
+
+    path: Path | None
+    data: DataSettings
+    model: ModelSettings
+    sampler: MappingProxyType
+    output_dir: Path
+    overridden: frozenset = frozenset()
+    compute: MappingProxyType = MappingProxyType({})
+
+    @property
+    def field_names(self):
+        """Argument names of the lower layers mapped to the config keys (for `named_fields`)."""
+        return _field_names(self.overridden)
+
+    def named_fields(self):
+        """Context manager: errors from models, priors and `sample` name the config key."""
+        return named_fields(self.field_names)
+
+
+def _label(key, overridden):
+    return f"{key} (from the command line)" if key in overridden else key
+
+
+def _field_names(overridden):
+    return {arg: _label(key, overridden) for arg, key in _ARGUMENT_KEYS.items()}
+
+
+def load_config(path, overrides=None):
+    """Read and check a TOML run configuration.
+
+    Parameters
+    ----------
+    path : path-like
+        The config file. Relative paths inside it are relative to its folder.
+    overrides : mapping of str to value, optional
+        ``"section.key"`` to a value that replaces (or adds) the key, e.g. from command-line
+        options; checked like the file's values. A relative ``output.dir`` here is relative to
+        the current directory.
+
+    Returns
+    -------
+    RunConfig
+
+    Raises
+    ------
+    tallchain.InputError
+        One line naming the key (``sampler.step_size: ...``) and the fix.
+    """
+    path = Path(path)
+    if not path.is_file():
+        what = "does not exist" if not path.exists() else "is not a file"
+        fail(str(path), f"config file {what}", "give the path of a .toml file")
+    try:
+        raw = tomllib.loads(path.read_text(encoding="utf-8"))
+    except UnicodeDecodeError as exc:
+        fail(path.name, f"is not UTF-8 text ({exc.reason})", "save the config as UTF-8")
+    except tomllib.TOMLDecodeError as exc:
+        msg = str(exc)
+        m = re.search(r"\(at line (\d+), column (\d+)\)", msg)
+        problem = re.sub(r"\s*\(at [^)]*\)", "", msg)
+        if m:
+            fail(path.name, f"malformed TOML at line {m[1]}, column {m[2]}: {problem}",
+                 f"fix the syntax on line {m[1]}")
+        fail(path.name, f"malformed TOML: {problem} (tomllib gives no line for this)",
+             "look for a key given twice or an unclosed table or string")
+    return config_from_dict(raw, base_dir=path.parent, stem=path.stem, overrides=overrides,
+                            path=path)
+
+
+def config_from_dict(raw, *, base_dir=".", stem="run", overrides=None, path=None):
+    """Check a parsed config (the dict `tomllib` returns) and resolve it.
+
+    Parameters
+    ----------
+    raw : dict
+    base_dir : path-like, default="."
+        Folder that relative paths are relative to.
+    stem : str, default="run"
+        Name for the default output folder ``runs/<stem>``.
+    overrides : mapping of str to value, optional
+        As in `load_config`.
+    path : pathlib.Path, optional
+        Recorded in the result.
+
+    Returns
+    -------
+    RunConfig
+    """
+    base_dir = Path(base_dir)
+    raw = {sec: dict(val) if isinstance(val, dict) else val for sec, val in raw.items()}
+    _check_shape(raw)
+    overrides = dict(overrides or {})
+    overridden = frozenset(overrides)
+    for dotted, value in overrides.items():
+        section, _, key = dotted.partition(".")
+        if section not in SCHEMA or key not in SCHEMA[section]:
+            raise KeyError(f"not a config key: {dotted!r}")
+        _check_value(section, key, value, _label(dotted, overridden))
+        raw.setdefault(section, {})[key] = value
+    _check_required(raw)
+    with named_fields(_field_names(overridden)):
+        model = _model_settings(raw.get("model", {}), raw.get("data", {}), base_dir)
+        data = _data_settings(raw["data"], model.family, base_dir)
+        sampler = dict(raw.get("sampler", {}))
+        _dry_check_sampler(sampler)
+        compute = dict(raw.get("compute", {}))
+        _check_compute(compute)
+    out = raw.get("output", {}).get("dir")
+    if out is None:
+        output_dir = base_dir / "runs" / stem
+    else:
+        output_dir = Path(out).expanduser()
+        if not output_dir.is_absolute():
+            output_dir = (Path.cwd() if "output.dir" in overridden else base_dir) / output_dir
+    output_dir = Path(os.path.normpath(output_dir))
+    check_folder(_label("output.dir", overridden), output_dir)
+    return RunConfig(path=path, data=data, model=model, sampler=MappingProxyType(sampler),
+                     output_dir=output_dir, overridden=overridden,
+                     compute=MappingProxyType(compute))
+
+
+def _check_compute(compute):
+    from ..executors import check_scheduler, check_workers
+
+    for key, check in (("scheduler", lambda v: check_scheduler(v, threads=True)),
+                       ("workers", check_workers)):
+        if key in compute:
+            try:
+                check(compute[key])
+            except InputError as exc:
+                raise InputError(str(exc).replace(f"{key}:", f"compute.{key}:", 1)) from None
+
+
+def _check_shape(raw):
+    """Known sections and keys, each value of the right TOML type."""
+    for section, table in raw.items():
+        if not isinstance(table, dict):
+            home = [sec for sec, keys in SCHEMA.items() if section in keys]
+            fail(section, "is a key outside any [section]",
+                 f"put it under [{home[0]}]" if home else
+                 f"put it under one of {', '.join(f'[{sec}]' for sec in SCHEMA)}")
+        if section not in SCHEMA:
+            _unknown(section, SCHEMA, "section", f"[{section}]")
+        for key, value in table.items():
+            if key not in SCHEMA[section]:
+                _unknown(key, SCHEMA[section], "key", f"{section}.{key}", section)
+            _check_value(section, key, value, f"{section}.{key}")
+
+
+def _check_value(section, key, value, label):
+    what, ok = SCHEMA[section][key]
+    if not ok(value):
+        fail(label, f"must be {what}, got {_show(value)}", f"give {what}")
+
+
+def _check_required(raw):
+    for section, key in REQUIRED:
+        if key not in raw.get(section, {}):
+            fail(f"{section}.{key}", "is missing", f"add {key} = ... under [{section}]")
+
+
+def _unknown(name, known, kind, label, section=None):
+    near = difflib.get_close_matches(name, list(known), n=1, cutoff=0.6)
+    where = f" of [{section}]" if section else ""
+    fix = f'did you mean "{near[0]}"?' if near else \
+        f"remove it; the {kind}s{where} are: {', '.join(known)}"
+    fail(label, f"unknown {kind}", fix)
+
+
+def _show(value):
+    text = repr(value) if not isinstance(value, dict) else "a table"
+    return text if len(text) <= 40 else text[:37] + "..."
+
+
+def _model_settings(table, data_table, base_dir):
+    family = table["family"]
+    if family not in FAMILIES:
+        near = difflib.get_close_matches(family, list(FAMILIES), n=1)
+        hint = f'did you mean "{near[0]}"? ' if near else ""
+        fail("model.family", f"unknown family {family!r}",
+             f"{hint}choose one of {', '.join(FAMILIES)}")
+    if "noise_sd" in table and family != "linear":
+        fail("noise_sd", f'is only used by family "linear", not "{family}"', "remove it")
+    if "offset" in data_table and family != "poisson":
+        fail("offset", f'is only used by family "poisson", not "{family}"', "remove it")
+    if "prior_cov" in table and "prior_sd" in table:
+        fail("prior cov", "is given together with prior_sd",
+             "give one of them: prior_sd for independent coefficients, prior_cov for a full "
+             "covariance")
+    noise_sd = table.get("noise_sd")
+    if noise_sd is not None:
+        LinearRegression(np.zeros((2, 1)), np.zeros(2), noise_sd=noise_sd, check=False)
+    mean, sd = (_tuple_or_float(table.get(k)) for k in ("prior_mean", "prior_sd"))
+    cov = None
+    if "prior_cov" in table:
+        cov = np.array(load_array(DataSource.parse(table["prior_cov"], base_dir),
+                                  field="prior cov"), dtype=float)
+        cov.flags.writeable = False
+    # Each prior item checked by GaussianPrior itself, at its own length; whether the lengths
+    # match the number of coefficients is checked when the model is built.
+    if mean is not None:
+        GaussianPrior(mean=mean).resolve(_length(mean))
+    if sd is not None:
+        GaussianPrior(sd=sd).resolve(_length(sd))
+    if cov is not None:
+        GaussianPrior(cov=cov).resolve(cov.shape[0] if cov.ndim else 1)
+    return ModelSettings(family=family, noise_sd=None if noise_sd is None else float(noise_sd),
+                         prior_mean=mean, prior_sd=sd, prior_cov=cov)
+
+
+def _tuple_or_float(v):
+    if v is None:
+        return None
+    return tuple(float(e) for e in v) if isinstance(v, list) else float(v)
+
+
+def _length(v):
+    return len(v) if isinstance(v, tuple) else 1
+
+
+def _data_settings(table, family, base_dir):
+    x = DataSource.parse(table["x"], base_dir)
+    _check_exists(x, "X")
+    if x.is_table:
+        if "y" not in table:
+            fail("data.y", "is missing", 'name the response column of the CSV: y = "<column>"')
+        y = table["y"]
+        offset = table.get("offset")
+    else:
+        if x.path.suffix.lower() not in ARRAY_SUFFIXES:
+            fail("X", f"{x.path.name} has an unsupported file type {x.path.suffix!r}",
+                 "give a .npy, .npz or .csv file")
+        if "columns" in table:
+            fail("columns", f"only applies to a .csv file, not {x.path.name}",
+                 "remove it, or select the columns when writing the array")
+        if "y" in table:
+            y = DataSource.parse(table["y"], base_dir)
+        elif x.path.suffix.lower() == ".npz":
+            y = DataSource(x.path, None)
+        else:
+            fail("data.y", "is missing", 'give the response file: y = "y.npy"')
+        _check_exists(y, "y")
+        offset = table.get("offset")
+        if offset is not None:
+            offset = DataSource.parse(offset, base_dir)
+            _check_exists(offset, "offset")
+    columns = table.get("columns")
+    return DataSettings(x=x, y=y, offset=offset,
+                        columns=None if columns is None else tuple(columns),
+                        add_intercept=table.get("add_intercept", True),
+                        standardize=table.get("standardize", False))
+
+
+def _check_exists(source, field):
+    if not source.path.exists():
+        fail(field, f'file "{source.path}" does not exist',
+             "check the path (relative paths are relative to the folder of the config file)")
+    if not source.path.is_file():
+        fail(field, f'"{source.path}" is a folder, not a file', "give a .npy, .npz or .csv file")
+
+
+def _dry_check_sampler(settings):
+    """Run the checks of `tallchain.sample` on the settings with a stand-in one-coefficient model.
+
+    The number of rows is unknown until the data are loaded, so the upper bound of an integer
+    batch size is checked by `sample` itself.
+    """
+    defaults = {name: p.default for name, p in inspect.signature(sampling.sample).parameters.items()
+                if p.kind is inspect.Parameter.KEYWORD_ONLY}
+    s = {**defaults, **settings}
+    stand_in = SimpleNamespace(n_rows=2**62, n_coef=1, prior_mean=np.zeros(1))
+    laplace = LaplaceApproximation(mode=np.zeros(1), precision=np.eye(1), cov=np.eye(1),
+                                   n_evaluations=0, converged=True, message="stand-in")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # sample() repeats its warnings on the real run
+        sampling._check_settings(stand_in, s["method"], s["step_size"], s["batch_size"],
+                                 s["chains"], s["draws"], s["warmup"], s["noise_variance"],
+                                 s["control_variates"], s["cv_order"], s["target_log_ratio_sd"],
+                                 s["gradient_batch"], s["batch_floor"], s["batch_ceiling"])
+    sampling._resolve_seed(s["seed"], 1)
+    make_preconditioner(s["mass_matrix"], 1, laplace)
+    sampling._initial_points(s["init"], stand_in, laplace, 1, np.random.default_rng(0))
+
+
+__all__ = ["RunConfig", "DataSettings", "ModelSettings", "load_config", "config_from_dict",
+           "named_fields", "SCHEMA"]

@@ -1,0 +1,149 @@
+"""The command registry and what every command shares: config options, exit codes, warnings.
+
+Each command is one function registered with `command`; it receives the parsed arguments and
+returns the exit code. Exit codes: 0 done, 1 a check failed, 2 bad input or usage (one line
+``tallchain: error: ...`` on stderr, never a traceback). Warnings of a run are printed as one
+line each, ``tallchain: warning: ...``.
+
+To add a command (in a module that `tallchain.app._cli.make_parser` imports)::
+
+    def _add_validate_arguments(parser):
+        add_config_arguments(parser)
+
+    @command("validate", "compare with the exact posterior", _add_validate_arguments)
+    def _validate(args):
+        config = config_from_args(args)
+        ...
+        return 0
+"""
+
+import argparse
+import sys
+import warnings
+from contextlib import contextmanager
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Callable
+
+from ._config import load_config
+
+PROG = "tallchain"
+EXIT_OK, EXIT_CHECK_FAILED, EXIT_BAD_INPUT = 0, 1, 2
+
+
+class UsageError(Exception):
+    """A command line that argparse rejected."""
+
+
+@dataclass(frozen=True)
+class Command:
+    name: str
+    help: str
+    add_arguments: Callable
+    run: Callable
+
+
+COMMANDS = {}
+
+
+def command(name, help, add_arguments=None):
+    """Register ``run(args) -> int`` as the subcommand ``name``.
+
+    Parameters
+    ----------
+    name : str
+    help : str
+        One line for ``tallchain --help``.
+    add_arguments : callable, optional
+        ``add_arguments(parser)`` declares the command's arguments.
+    """
+    def register(run):
+        COMMANDS[name] = Command(name, help, add_arguments or (lambda parser: None), run)
+        return run
+
+    return register
+
+
+class Parser(argparse.ArgumentParser):
+    def error(self, message):
+        raise UsageError(f"{message} (see '{self.prog} --help')")
+
+
+def _number_or_auto(kind):
+    def convert(text):
+        if text == "auto":
+            return text
+        try:
+            return kind(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(
+                f'must be {"an integer" if kind is int else "a number"} or "auto", got {text!r}'
+            ) from None
+
+    convert.__name__ = kind.__name__
+    return convert
+
+
+# Command-line options that override config keys: flag, key, type, help.
+OVERRIDES = (
+    ("--out", "output.dir", str, "output folder (default: [output] dir of the config)"),
+    ("--seed", "sampler.seed", int, "random seed"),
+    ("--draws", "sampler.draws", int, "draws per chain after warmup"),
+    ("--chains", "sampler.chains", int, "number of chains"),
+    ("--warmup", "sampler.warmup", int, "warmup iterations per chain"),
+    ("--method", "sampler.method", str, "sampling method, e.g. penalty-mala"),
+    ("--step-size", "sampler.step_size", _number_or_auto(float), 'step size or "auto"'),
+    ("--batch-size", "sampler.batch_size", _number_or_auto(int), 'rows per minibatch or "auto"'),
+)
+
+
+def add_config_arguments(parser, *, exclude=()):
+    """Add the CONFIG argument and the override options (minus the flags in ``exclude``)."""
+    parser.add_argument("config", metavar="CONFIG", help="TOML run configuration")
+    for flag, key, kind, text in OVERRIDES:
+        if flag not in exclude:
+            parser.add_argument(flag, dest=_dest(flag), type=kind, default=None,
+                                metavar="N" if kind is int else "X",
+                                help=f"{text} (overrides {key})")
+
+
+def _dest(flag):
+    return "override_" + flag.lstrip("-").replace("-", "_")
+
+
+def config_from_args(args):
+    """Load ``args.config`` with the override options that were given."""
+    overrides = {key: getattr(args, _dest(flag)) for flag, key, _, _ in OVERRIDES
+                 if getattr(args, _dest(flag), None) is not None}
+    if "output.dir" in overrides:
+        overrides["output.dir"] = str(Path(overrides["output.dir"]).absolute())
+    return load_config(args.config, overrides)
+
+
+def option_or(option, fallback):
+    """A command-line option when it was given (even 0, which is then refused), else the fallback."""
+    return fallback if option is None else option
+
+
+def one_line(text):
+    return " ".join(str(text).split())
+
+
+def warning_line(message, file=None):
+    """Print ``tallchain: warning: <message>`` on stderr (one line)."""
+    print(f"{PROG}: warning: {one_line(message)}", file=sys.stderr if file is None else file)
+
+
+@contextmanager
+def warnings_as_lines():
+    """Show each UserWarning raised inside as one ``tallchain: warning:`` line on stderr.
+
+    Other warning categories (deprecations in libraries underneath) are not shown.
+    """
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        warnings.simplefilter("always", UserWarning)
+        warnings.showwarning = lambda message, *args, **kwargs: warning_line(message)
+        yield
+
+

@@ -1,0 +1,262 @@
+"""Simulation-based calibration (SBC) of a sampler setting on the user's own design matrix.
+
+For r = 1..R: draw beta_r from a calibration prior, simulate y_r from the model with the user's
+X, sample the posterior (under that same prior) with the configured method and settings, and
+record the rank of each true coefficient among L thinned posterior draws. If the sampler is
+calibrated the ranks are uniform on {0, ..., L} (Talts, Betancourt, Simpson, Vehtari & Gelman,
+"Validating Bayesian inference algorithms with simulation-based calibration", 2018).
+"""
+
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import stats
+
+from .._validation import check_flag, check_seed, fail, is_number, positive_int
+from ..executors import check_scheduler, check_workers, run_tasks, worker_count
+from ..mcmc import check_sample_settings, sample, spawn_seeds
+from ..models import FAMILIES, GaussianPrior, check_model
+from ..posterior import find_mode
+
+
+@dataclass
+class CalibrationResult:
+    """Ranks and verdict of an SBC run.
+
+    Attributes
+    ----------
+    ranks : ndarray of shape (R, n_coef)
+        Rank of the true coefficient among the L thinned draws (0..L).
+    n_draws : int
+        L.
+    p_values : ndarray of shape (n_coef,)
+        Chi-square test of rank uniformity over ``n_bins`` equal bins.
+    n_bins : int
+        Bins of the ranks in that test (2 <= n_bins <= L + 1).
+    level : float
+        Family-wise level; each coefficient is tested at level / n_coef (Bonferroni).
+    passed : bool
+        Every coefficient's p-value is above level / n_coef.
+    coef_names : list of str
+    prior : str
+        "laplace" or "model".
+    settings : dict
+        The `tallchain.sample` settings of every replication, with the injected defaults
+        (``chains=2, draws=500, warmup=300`` unless given).
+    """
+
+    ranks: np.ndarray
+    n_draws: int
+    p_values: np.ndarray
+    n_bins: int
+    level: float
+    passed: bool
+    coef_names: list
+    prior: str
+    settings: dict
+
+    def ecdf_bands(self, n_points):
+        """Simultaneous 1 - level bands of the rank ECDF difference at ``n_points`` points
+        (see `ecdf_bands`)."""
+        return ecdf_bands(self.ranks.shape[0], n_points, level=self.level)
+
+    def as_dict(self):
+        return {"replications": int(self.ranks.shape[0]), "n_draws": self.n_draws,
+                "n_bins": self.n_bins, "level": self.level,
+                "per_coefficient_level": self.level / len(self.coef_names),
+                "passed": self.passed, "prior": self.prior, "settings": self.settings,
+                "coefficients": [{"coef": n, "p_value": float(p),
+                                  "verdict": "calibrated" if p > self.level / len(self.coef_names)
+                                  else "miscalibrated"}
+                                 for n, p in zip(self.coef_names, self.p_values)],
+                "ranks": self.ranks.tolist()}
+
+
+def rank_uniformity_pvalues(ranks, n_draws, n_bins):
+    """Chi-square test of uniformity of ranks in {0..L}, binned into n_bins equal-width bins."""
+    edges = np.linspace(0, n_draws + 1, n_bins + 1)
+    out = np.empty(ranks.shape[1])
+    for j in range(ranks.shape[1]):
+        counts, _ = np.histogram(ranks[:, j], bins=edges)
+        expected = ranks.shape[0] * np.diff(edges) / (n_draws + 1)
+        out[j] = stats.chisquare(counts, expected).pvalue
+    return out
+
+
+def ecdf_bands(n_replications, n_points, level=0.05, n_sim=2000, seed=0):
+    """Simultaneous bands for the ECDF difference of uniform ranks (Saeilynoja, Buerkner &
+    Vehtari 2022, the simulation adjustment): pointwise binomial intervals whose width is
+    chosen so that a fraction 1 - level of simulated uniform ECDFs stays inside everywhere.
+
+    Returns (z, lower, upper): evaluation points in (0, 1) and bands for F_hat(z) - z.
+    """
+    rng = np.random.default_rng(seed)
+    z = np.arange(1, n_points + 1) / (n_points + 1)
+    sims = np.sort(rng.random((n_sim, n_replications)), axis=1)
+    ecdf = np.stack([np.searchsorted(s, z, side="right") for s in sims]) / n_replications
+    # for each simulated ECDF, the smallest pointwise tail probability it reaches
+    cdf = stats.binom.cdf(np.round(ecdf * n_replications), n_replications, z)
+    sf = stats.binom.sf(np.round(ecdf * n_replications) - 1, n_replications, z)
+    gamma = np.quantile(2 * np.minimum(cdf, sf).min(axis=1), level)
+    lo = stats.binom.ppf(gamma / 2, n_replications, z) / n_replications - z
+    hi = stats.binom.ppf(1 - gamma / 2, n_replications, z) / n_replications - z
+    return z, lo, hi
+
+
+def simulate_response(model, beta, rng):
+    """y ~ model(X, beta): Gaussian with the known noise sd, Bernoulli, or Poisson."""
+    k = int(model.add_intercept)
+    eta = np.empty(model.n_rows)
+    block = 1 << 16
+    for s in range(0, model.n_rows, block):
+        eta[s:s + block] = (np.asarray(model.X[s:s + block], dtype=np.float64) @ beta[k:]
+                            + (beta[0] if k else 0.0) + model.offset[s:s + block])
+    if model.family_name == "linear":
+        return eta + model.noise_sd * rng.standard_normal(model.n_rows)
+    if model.family_name == "logistic":
+        return (rng.random(model.n_rows) < 1.0 / (1.0 + np.exp(-eta))).astype(float)
+    return rng.poisson(np.exp(np.minimum(eta, 30.0))).astype(float)
+
+
+def _replicate(model, prior, n_draws, seed, settings):
+    rng = np.random.default_rng(seed)
+    mean, _, cov = prior.resolve(model.n_coef)
+    beta = rng.multivariate_normal(mean, cov, method="cholesky")
+    y = simulate_response(model, beta, rng)
+    cls = FAMILIES[model.family_name]
+    kw = {"noise_sd": model.noise_sd} if model.family_name == "linear" else {}
+    if model.family_name == "poisson":
+        kw["offset"] = model.offset
+    names = model.coef_names[int(model.add_intercept):]
+    sim = cls(model.X, y, prior=prior, add_intercept=model.add_intercept, coef_names=names,
+              check=False, **kw)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        r = sample(sim, seed=rng.integers(2**63), **settings)
+    flat = r.draws.reshape(-1, r.draws.shape[2])
+    # thin to L draws, equally spaced over the pooled chains (thinning reduces the
+    # autocorrelation that would otherwise make the ranks over-dispersed; Talts et al. 2018)
+    pick = np.linspace(0, flat.shape[0] - 1, n_draws).round().astype(int)
+    return np.sum(flat[pick] < beta, axis=0)
+
+
+def _replicate_task(shared, seed):
+    model, prior, n_draws, settings = shared
+    return _replicate(model, prior, n_draws, seed, settings)
+
+
+# sample() settings that calibrate() sets itself for every replication, or that make no sense
+# across replications (each one samples its own simulated data set).
+_CALIBRATE_OWNS = {
+    "parallel": "calibrate() sets it from scheduler and workers",
+    "preparation": "each replication has its own simulated y, so its own mode",
+    "checkpoint": "replications would overwrite one checkpoint file",
+    "resume": "replications are not checkpointed",
+}
+
+
+def calibrate(model, *, replications=100, thinned_draws=99, prior="laplace", level=0.05, n_bins=10,
+              seed=1, workers=None, scheduler="processes", progress=False, **settings):
+    """Simulation-based calibration of a sampler setting on the model's X.
+
+    Parameters
+    ----------
+    model : LinearRegression, LogisticRegression or PoissonRegression
+        Its X (and offset, noise sd) are used; its y only to build the Laplace prior.
+    replications : int, default=100
+        R, an integer >= 2.
+    thinned_draws : int, default=99
+        L, thinned posterior draws per replication (ranks take L + 1 values): equally spaced
+        over the ``chains * draws`` draws a replication keeps after warmup, so at most that
+        many. The sampler's own ``chains`` and ``draws`` go in ``settings``.
+    prior : {"laplace", "model"}, default="laplace"
+        Calibration prior: the Laplace approximation of the user's posterior (proper and near
+        the region that matters) or the model's own prior. SBC holds for any prior used
+        consistently in simulation and inference.
+    level : float, default=0.05
+        Family-wise level of the rank-uniformity tests (Bonferroni over coefficients).
+    n_bins : int, default=10
+        Equal-width bins of the ranks in the chi-square test; an integer with
+        2 <= n_bins <= thinned_draws + 1 (the number of rank values).
+    seed : int, numpy.random.Generator or SeedSequence, default=1
+        Replication r gets child r of ``SeedSequence(seed)`` (of a Generator: its r-th spawned
+        child): results do not depend on workers.
+    workers : int, optional
+        Worker processes (default: the number of cores, at most ``replications``).
+    scheduler : str or distributed.Client, default="processes"
+        Where replications run: see `tallchain.executors`.
+    progress : bool, default=False
+        Show a progress line as replications finish.
+    **settings
+        `tallchain.sample` settings of every replication (method, step_size, batch_size,
+        control_variates, ...), with the defaults of `tallchain.sample` except
+        ``chains=2, draws=500, warmup=300``. ``parallel``, ``preparation``, ``checkpoint`` and
+        ``resume`` are not accepted (calibrate sets or cannot honour them).
+
+    Returns
+    -------
+    CalibrationResult
+
+    Raises
+    ------
+    InputError
+        For a bad argument or sampler setting (an unknown method or keyword, ``chains=0``,
+        ``thinned_draws`` above ``chains * draws``, ``n_bins`` out of range, a bad seed,
+        scheduler or worker count, ...). Every check runs before the mode is found and before
+        any worker starts.
+    ModeNotFoundError
+        When ``prior="laplace"`` and the mode of the user's posterior cannot be found.
+    """
+    check_model(model)
+    replications = positive_int("replications", replications, minimum=2)
+    draws = positive_int("thinned_draws", thinned_draws, minimum=1)
+    if isinstance(n_bins, (bool, np.bool_)) or not isinstance(n_bins, (int, np.integer)) \
+            or not 2 <= n_bins <= draws + 1:
+        fail("n_bins", f"must be an integer from 2 to thinned_draws + 1 = {draws + 1}, "
+             f"got {n_bins!r}", "give e.g. 10 (ranks take thinned_draws + 1 values)")
+    n_bins = int(n_bins)
+    if not is_number(level) or not 0 < level < 1:
+        fail("level", f"must be a probability between 0 and 1, got {level!r}",
+             "give e.g. 0.05 (the family-wise false-alarm rate)")
+    if not isinstance(prior, str) or prior not in ("laplace", "model"):
+        fail("prior", f"unknown calibration prior {prior!r}", 'use "laplace" or "model"')
+    check_seed(seed)
+    check_scheduler(scheduler)
+    check_workers(workers)
+    check_flag("progress", progress)
+    for name, why in _CALIBRATE_OWNS.items():
+        if name in settings:
+            fail(name, f"cannot be passed to calibrate(): {why}", f"leave {name} out")
+    settings = dict(settings)
+    settings.setdefault("chains", 2)
+    settings.setdefault("draws", 500)
+    settings.setdefault("warmup", 300)
+    check_sample_settings(model, **settings)
+    available = int(settings["chains"]) * int(settings["draws"])
+    if draws > available:
+        fail("thinned_draws", f"is {draws}, more than the {available} draws of a replication "
+             f"({settings['chains']} chains x {settings['draws']} draws after warmup), so draws "
+             "would be ranked twice", f"raise draws (or chains), or give thinned_draws <= "
+             f"{available}")
+
+    if prior == "laplace":
+        lap = find_mode(model)
+        cal_prior = GaussianPrior(mean=lap.mode, cov=lap.cov)
+    else:
+        cal_prior = model.prior
+    seeds = spawn_seeds(seed, replications)
+    n_workers = worker_count(workers, replications)
+    settings["parallel"] = scheduler == "serial" or (scheduler == "processes" and n_workers == 1)
+    ranks = np.zeros((replications, model.n_coef), dtype=np.int64)
+    def _done(i, rk):
+        ranks[i] = rk
+
+    run_tasks(_replicate_task, (model, cal_prior, draws, settings), seeds, scheduler=scheduler,
+              workers=n_workers, on_result=_done, progress="calibrate" if progress else None)
+    p = rank_uniformity_pvalues(ranks, draws, n_bins)
+    passed = bool(np.all(p > level / model.n_coef))
+    kept = {k: v for k, v in settings.items() if k != "parallel"}
+    return CalibrationResult(ranks=ranks, n_draws=draws, p_values=p, n_bins=n_bins, level=level,
+                             passed=passed, coef_names=list(model.coef_names), prior=prior,
+                             settings=kept)

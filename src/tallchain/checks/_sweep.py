@@ -1,0 +1,373 @@
+"""Step-size and batch-size sweeps: bias against cost, one table, one recommendation."""
+
+import hashlib
+import math
+import os
+import time
+import warnings
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from .._validation import check_flag, check_seed, fail, is_number
+from ..executors import check_scheduler, check_workers, run_tasks, worker_count
+from ..mcmc import METHODS, check_sample_settings, ess_bulk, prepare, sample, spawn_seeds
+from ..models import check_model
+from ..posterior import conjugate_posterior
+from ._ks import ks_check
+from ._twin import check_tolerance
+
+COLUMNS = ("method", "step_size", "batch_size", "ks_max", "ks_ratio_max", "ks_floor",
+           "ess_bulk_min", "ess_per_second", "acceptance", "log_ratio_sd_mean",
+           "data_evals_per_draw", "seconds", "verdict")
+DEFAULT_STEP_FACTORS = tuple(2.0**k for k in range(-3, 4))
+# Below this ESS the noise floor is so wide that "within noise" says little (common practice:
+# ESS of a few hundred for stable tail summaries; we ask for 100 per point).
+MIN_ESS_FOR_VERDICT = 100
+
+
+@dataclass
+class SweepResult:
+    """Rows of a sweep, the reference used, and the recommended setting.
+
+    Attributes
+    ----------
+    rows : list of dict
+        One per grid point, with the keys in `COLUMNS`.
+    recommended : dict or None
+        The row with the highest ESS per second among those judged unbiased, of a method that
+        targets the posterior (never sgld or naive-mh; see `recommend`).
+    notes : list of str
+        Why nothing was recommended, or that a biased baseline was faster.
+    reference : str
+        "exact posterior" (conjugate model) or "full-data mala run (cached)".
+    tuned_step_size : float
+        The step size the grid is centred on.
+    tolerance : float
+    """
+
+    rows: list
+    recommended: dict | None
+    reference: str
+    tuned_step_size: float
+    tolerance: float
+    notes: list = field(default_factory=list)
+
+    def as_dict(self):
+        return {"recommended": self.recommended, "reference": self.reference,
+                "tuned_step_size": self.tuned_step_size, "tolerance": self.tolerance,
+                "notes": self.notes, "rows": self.rows}
+
+
+def model_fingerprint(model):
+    """A hash of the data, prior and family: the key of the cached reference run."""
+    h = hashlib.sha1()
+    h.update(f"{model.family_name}|{model.add_intercept}|{model.noise_sd}|{model.X.shape}|"
+             f"{model.X.dtype}".encode())
+    block = 1 << 16
+    for start in range(0, model.n_rows, block):
+        h.update(np.ascontiguousarray(model.X[start:start + block]).tobytes())
+    for arr in (model.y, model.offset, model.prior_mean, model.prior_prec):
+        h.update(np.ascontiguousarray(arr).tobytes())
+    return h.hexdigest()[:16]
+
+
+def reference_draws(model, *, cache_dir=None, draws=20_000, seed=0, preparation=None):
+    """Long full-data MALA run used as the reference for non-conjugate models.
+
+    The draws are thinned to about one per effective sample, so the two-sample KS floor can
+    treat them as independent. Cached as ``reference-<fingerprint>.npz`` in ``cache_dir``.
+    A `Preparation` of the model, when given, spares the run its own mode search.
+    """
+    path = None
+    if cache_dir is not None:
+        path = Path(cache_dir) / f"reference-{model_fingerprint(model)}.npz"
+        if path.exists():
+            with np.load(path, allow_pickle=False) as z:
+                return z["draws"]
+    r = sample(model, method="mala", chains=4, draws=draws // 4, warmup=1000, seed=seed,
+               preparation=preparation)
+    ess = float(np.min(ess_bulk(r.draws)))
+    thin = max(1, int(math.floor(r.draws.shape[0] * r.draws.shape[1] / max(ess, 1.0))))
+    flat = r.draws[:, ::thin].reshape(-1, r.draws.shape[2])
+    if path is not None:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        tmp = path.with_name(path.name + f".tmp-{os.getpid()}.npz")
+        np.savez(tmp, draws=flat)
+        os.replace(tmp, path)
+    return flat
+
+
+def _run_point(model, reference, tolerance, method, step, batch, seed, settings):
+    t = time.perf_counter()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        r = sample(model, method=method, step_size=step, batch_size=batch, seed=seed, **settings)
+    seconds = time.perf_counter() - t
+    k = ks_check(r.draws, reference, tolerance=tolerance)
+    finite = bool(np.all(np.isfinite(r.draws)))
+    ratio = np.where(np.isfinite(k.ratio), k.ratio, np.inf)
+    j = int(np.argmax(ratio))
+    ess_min = float(np.min(k.ess)) if finite else float("nan")
+    if not finite:
+        verdict = "diverged"
+    elif not ess_min >= MIN_ESS_FOR_VERDICT:
+        verdict = f"inconclusive (ESS < {MIN_ESS_FOR_VERDICT})"
+    else:
+        verdict = "within noise" if ratio[j] <= tolerance else "biased"
+    sd = r.stats["log_ratio_sd"]
+    iters = r.n_chains * (r.settings["warmup"] + r.n_draws)
+    return {
+        "method": method, "step_size": float(step),
+        "batch_size": int(batch) if METHODS[method].minibatch else None,
+        "ks_max": float(np.max(k.ks)), "ks_ratio_max": float(ratio[j]) if finite else float("nan"),
+        "ks_floor": float(k.floor[j]), "ess_bulk_min": ess_min,
+        "ess_per_second": ess_min / r.sampling_seconds if r.sampling_seconds > 0 else float("nan"),
+        "acceptance": r.acceptance_rate,
+        "log_ratio_sd_mean": float(np.nanmean(sd)) if np.isfinite(sd).any() else float("nan"),
+        "data_evals_per_draw": r.data_evaluations / iters, "seconds": seconds,
+        "verdict": verdict,
+    }
+
+
+def _sweep_task(shared, task):
+    model, reference, tolerance, settings = shared
+    method, step, batch, seed = task
+    return _run_point(model, reference, tolerance, method, step, batch, seed, settings)
+
+
+# sample() settings that sweep() sets itself, and what to use instead.
+_SWEEP_OWNS = {
+    "method": "use methods=[...] (the methods of the grid)",
+    "step_size": "use step_sizes=[...] (the step sizes of the grid)",
+    "batch_size": "use batch_sizes=[...] (the batch sizes of the grid)",
+    "preparation": "leave it out (sweep prepares the model once itself)",
+    "parallel": "leave it out (sweep sets it from scheduler and workers)",
+    "checkpoint": "leave it out (grid points are not checkpointed; see done_rows)",
+    "resume": "leave it out (pass done_rows to skip finished grid points)",
+}
+
+
+def _grid_values(field, values, what, example):
+    """``values`` as a non-empty list (not a string or a scalar), or InputError."""
+    if isinstance(values, (str, bytes, dict)):
+        fail(field, f"must be a list of {what}, got the {type(values).__name__} {values!r}",
+             f"give a list, e.g. {field}={example}")
+    try:
+        out = list(values)
+    except TypeError:
+        fail(field, f"must be a list of {what}, got {values!r}",
+             f"give a list, e.g. {field}={example}")
+    if not out:
+        fail(field, "is empty, so the grid has no points", f"give at least one, e.g. "
+             f"{field}={example}, or leave it out for the default")
+    return out
+
+
+def _check_grid(model, methods, step_sizes, batch_sizes):
+    from difflib import get_close_matches
+
+    methods = _grid_values("methods", methods, "method names", '["penalty-mala", "sgld"]')
+    for m in methods:
+        if not isinstance(m, str) or m not in METHODS:
+            near = get_close_matches(str(m), METHODS, n=1)
+            hint = f'did you mean "{near[0]}"? ' if near else ""
+            fail("methods", f"unknown method {m!r}", f"{hint}choose from {', '.join(METHODS)}")
+    if step_sizes is not None:
+        step_sizes = _grid_values("step_sizes", step_sizes, "numbers > 0", "[0.05, 0.1, 0.2]")
+        for h in step_sizes:
+            if not is_number(h) or not math.isfinite(h) or h <= 0:
+                fail("step_sizes", f"must be finite numbers > 0, got {h!r}",
+                     "give positive step sizes, or leave step_sizes out (the tuned step x "
+                     "1/8 ... 8)")
+    if batch_sizes is not None:
+        batch_sizes = _grid_values("batch_sizes", batch_sizes, "integers >= 2", "[100, 300]")
+        for n in batch_sizes:
+            if isinstance(n, (bool, np.bool_)) or not isinstance(n, (int, np.integer)) \
+                    or not 2 <= n <= model.n_rows:
+                fail("batch_sizes", f"must be integers from 2 to {model.n_rows} (N), got {n!r}",
+                     "give whole numbers of rows, or leave batch_sizes out (the tuned size)")
+    return methods, step_sizes, batch_sizes
+
+
+def sweep(model, *, methods=("penalty-mala", "sgld"), step_sizes=None, batch_sizes=None,
+          chains=4, draws=2000, warmup=500, seed=1, tolerance=1.5, workers=None,
+          scheduler="processes", cache_dir=None, progress=False, on_row=None, done_rows=None,
+          **settings):
+    """Run a grid of (method, step size, batch size) and measure bias against cost.
+
+    Parameters
+    ----------
+    model : LinearRegression, LogisticRegression or PoissonRegression
+    methods : sequence of str, default=("penalty-mala", "sgld")
+        A non-empty list of method names (not a single string).
+    step_sizes : sequence of float, optional
+        Finite step sizes > 0. Default: the step size that ``penalty-mala`` (or the first
+        adjusted method) tunes, times 1/8, 1/4, ..., 8 - wide enough to show where each
+        method breaks.
+    batch_sizes : sequence of int, optional
+        Batch sizes of the minibatch methods, integers in [2, N]. Default: the batch size
+        chosen by that tuning run (``batch_size="auto"``).
+    chains, draws, warmup : int, default=4, 2000, 500
+        Per grid point. The tuning run uses 2 chains, 200 draws and ``max(warmup, 200)``
+        warmup iterations.
+    seed : int, numpy.random.Generator or SeedSequence, default=1
+        Grid point k gets child k of ``SeedSequence(seed)``: results do not depend on the
+        number of workers or the order of completion.
+    tolerance : float, default=1.5
+        A point is "within noise" when every coefficient's KS distance to the reference is at
+        most ``tolerance`` times its floor; a finite number > 0.
+    workers : int, optional
+        Worker processes (default: the number of cores, at most the number of points).
+    scheduler : str or distributed.Client, default="processes"
+        Where grid points run: see `tallchain.executors`.
+    cache_dir : path, optional
+        Where the reference run of a non-conjugate model is cached.
+    progress : bool, default=False
+        Show a progress line as grid points finish.
+    on_row : callable, optional
+        Called with each finished row (e.g. to write it out at once).
+    done_rows : list of dict, optional
+        Rows of an interrupted sweep over the same grid: those points are not run again.
+    **settings
+        Further `tallchain.sample` settings held fixed across the grid (``control_variates``,
+        ``mass_matrix``, ...). Not ``method``, ``step_size`` or ``batch_size`` (use
+        ``methods``, ``step_sizes``, ``batch_sizes``), nor ``preparation``, ``parallel``,
+        ``checkpoint`` or ``resume``.
+
+    Returns
+    -------
+    SweepResult
+
+    Raises
+    ------
+    InputError
+        For a bad grid (an empty or scalar ``methods``/``step_sizes``/``batch_sizes``, an
+        unknown method, a step size that is not finite and > 0, a batch size outside
+        [2, N]), a bad ``tolerance``, ``seed``, ``scheduler`` or ``workers``, or a setting
+        `tallchain.sample` would refuse for any method of the grid (``chains=0``, an unknown
+        keyword, ...). Every check runs before the mode is found, the tuning run, the
+        reference run and any worker.
+    ModeNotFoundError
+        When the posterior mode cannot be found.
+    """
+    check_model(model)
+    methods, step_sizes, batch_sizes = _check_grid(model, methods, step_sizes, batch_sizes)
+    tolerance = check_tolerance(tolerance)
+    check_seed(seed)
+    check_scheduler(scheduler)
+    check_workers(workers)
+    check_flag("progress", progress)
+    if on_row is not None and not callable(on_row):
+        fail("on_row", f"must be callable, got {type(on_row).__name__}",
+             "give a function of one row (a dict), or leave it out")
+    for name, fix in _SWEEP_OWNS.items():
+        if name in settings:
+            fail(name, "is set by sweep() for each grid point", fix)
+    tuner = next((m for m in methods if METHODS[m].adjusted), "penalty-mala")
+    # The grid points: numeric step and batch sizes (a tuned size when not given).
+    for m in methods:
+        check_sample_settings(model, method=m, step_size=(step_sizes or [1.0])[0],
+                              batch_size=(batch_sizes or [2])[0], chains=chains,
+                              draws=draws, warmup=warmup, seed=seed, **settings)
+    tuning = dict(settings, method=tuner, chains=2, draws=200, warmup=max(warmup, 200),
+                  seed=seed, batch_size=batch_sizes[0] if batch_sizes else "auto")
+    check_sample_settings(model, **tuning)
+
+    # The mode and row caches are computed here once and travel with the model to every
+    # worker; neither the tuning run nor any grid point recomputes them.
+    cv = settings.get("control_variates")
+    orders = (0,) if cv is False else (settings.get("cv_order", 2), 0)
+    preparation = prepare(model, cv_orders=orders)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        tuned = sample(model, preparation=preparation, **tuning)
+    h_star = float(np.mean(tuned.settings["step_size"]))
+    if step_sizes is None:
+        step_sizes = [h_star * f for f in DEFAULT_STEP_FACTORS]
+    if batch_sizes is None:
+        batch_sizes = [tuned.settings["batch_size"] or 100]
+    grid = []
+    for m in methods:
+        for n in (batch_sizes if METHODS[m].minibatch else [None]):
+            for h in step_sizes:
+                grid.append((m, float(h), None if n is None else int(n)))
+
+    if model.family_name == "linear":
+        reference, ref_kind = conjugate_posterior(model), "exact posterior"
+    else:
+        reference, ref_kind = reference_draws(model, cache_dir=cache_dir, seed=seed,
+                                              preparation=preparation), \
+            "full-data mala run (cached)"
+
+    seeds = spawn_seeds(seed, len(grid))
+    n_workers = worker_count(workers, len(grid))
+    local = scheduler == "serial" or (scheduler == "processes" and n_workers == 1)
+    point_settings = dict(settings, chains=chains, draws=draws, warmup=warmup, parallel=local,
+                          preparation=preparation)
+    rows = [None] * len(grid)
+    known = {(r["method"], r["step_size"], r["batch_size"]): r for r in (done_rows or [])}
+    todo = []
+    for i, (m, h, n) in enumerate(grid):
+        key = (m, h, n if METHODS[m].minibatch else None)
+        if key in known:
+            rows[i] = known[key]
+        else:
+            todo.append(i)
+    def _done(k, row):
+        rows[todo[k]] = row
+        if on_row is not None:
+            on_row(row)
+
+    tasks = [(grid[i][0], grid[i][1], grid[i][2] or 2, seeds[i]) for i in todo]
+    run_tasks(_sweep_task, (model, reference, tolerance, point_settings), tasks,
+              scheduler=scheduler, workers=n_workers, on_result=_done,
+              progress="sweep" if progress else None)
+
+    best, notes = recommend(rows)
+    return SweepResult(rows=rows, recommended=best, reference=ref_kind, tuned_step_size=h_star,
+                       tolerance=tolerance, notes=notes)
+
+
+def recommend(rows):
+    """The fastest row (ESS per second) judged within noise, among methods that target the
+    posterior; and notes for the user.
+
+    A biased baseline (sgld, naive-mh) within the noise floor has a bias below what the sweep
+    can detect, not none, and is never recommended; a note says when one was faster.
+    """
+    ok = [r for r in rows if r["verdict"] == "within noise" and np.isfinite(r["ess_per_second"])]
+    sound = [r for r in ok if METHODS[r["method"]].targets_posterior]
+    best = max(sound, key=lambda r: r["ess_per_second"]) if sound else None
+    notes = []
+    if best is None:
+        notes.append("no setting of a method that targets the posterior was within the noise "
+                     "floor: widen the grid toward smaller steps or larger batches")
+    faster = [r for r in ok if not METHODS[r["method"]].targets_posterior
+              and (best is None or r["ess_per_second"] > best["ess_per_second"])]
+    if faster:
+        r = max(faster, key=lambda r: r["ess_per_second"])
+        notes.append(f"{r['method']} at step {r['step_size']:.4g} was within the noise floor "
+                     f"with {r['ess_per_second']:.4g} ESS/s, but it is biased by construction "
+                     "(its bias is below what this sweep detects, not zero): not recommended")
+    return best, notes
+
+
+def write_sweep(result, directory):
+    """Write sweep.csv, sweep.json and sweep.png into ``directory``."""
+    from ..outputs import atomic_write, write_json
+    from ..plots import plot_sweep
+
+    out = Path(directory)
+    out.mkdir(parents=True, exist_ok=True)
+
+    def _csv(tmp):
+        with open(tmp, "w") as fh:
+            fh.write(",".join(COLUMNS) + "\n")
+            for r in result.rows:
+                fh.write(",".join("" if r[c] is None else str(r[c]) for c in COLUMNS) + "\n")
+
+    atomic_write(out / "sweep.csv", _csv)
+    write_json(out / "sweep.json", result.as_dict())
+    plot_sweep(result, out / "sweep.png")

@@ -1,0 +1,112 @@
+"""Where arrays come from: DataSource paths and .npy/.npz files, never unpickled (private)."""
+
+import difflib
+import re
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from .._validation import fail
+from ..exceptions import InputError
+
+#: File types accepted for a design matrix; ``.csv`` is not accepted for y or offset files.
+ARRAY_SUFFIXES = (".npy", ".npz")
+TABLE_SUFFIX = ".csv"
+_DEFAULT_NPZ_KEY = {"X": "x", "y": "y", "offset": "offset"}
+_NPZ_KEY = re.compile(r"^(?P<path>.*\.npz):(?P<key>[^/\\:]+)$", re.IGNORECASE)
+_PICKLE_FIX = ("pickles are never read; save a numeric array, e.g. "
+               "np.save(path, np.asarray(a, dtype=float), allow_pickle=False)")
+
+
+@dataclass(frozen=True)
+class DataSource:
+    """Where one array comes from.
+
+    Attributes
+    ----------
+    path : pathlib.Path
+        A ``.npy``, ``.npz`` or ``.csv`` file.
+    key : str, optional
+        The array name inside a ``.npz`` file (default: ``x``, ``y`` or ``offset``), or the
+        column name when ``path`` is a ``.csv`` file.
+    """
+
+    path: Path
+    key: str | None = None
+
+    @classmethod
+    def parse(cls, text, base_dir=None):
+        """Read ``"file.npz:key"`` or a plain path, relative to ``base_dir`` when given."""
+        m = _NPZ_KEY.match(str(text))
+        path, key = (m["path"], m["key"]) if m else (str(text), None)
+        path = Path(path).expanduser()
+        if base_dir is not None and not path.is_absolute():
+            path = Path(base_dir) / path
+        return cls(path, key)
+
+    @property
+    def is_table(self):
+        return self.path.suffix.lower() == TABLE_SUFFIX
+
+    def __str__(self):
+        return f"{self.path}:{self.key}" if self.key is not None else str(self.path)
+
+
+def load_array(source, *, field="X"):
+    """Open one array from a ``.npy`` or ``.npz`` file without unpickling anything.
+
+    Parameters
+    ----------
+    source : DataSource or path-like
+    field : str, default="X"
+        Name used in error messages (and for the default ``.npz`` key).
+
+    Returns
+    -------
+    ndarray
+        A read-only memory map for ``.npy`` files; an in-memory array for ``.npz`` files.
+    """
+    if not isinstance(source, DataSource):
+        source = DataSource.parse(source)
+    path = existing_file(source.path, field)
+    suffix = path.suffix.lower()
+    if suffix == ".npy":
+        try:
+            arr = np.load(path, mmap_mode="r", allow_pickle=False)
+        except ValueError as exc:
+            if "object" in str(exc).lower() or "pickle" in str(exc).lower():
+                fail(field, f"{path.name} holds Python objects (a pickle)", _PICKLE_FIX)
+            fail(field, f"{path.name} is not a readable .npy file ({exc})",
+                 "write it with numpy.save")
+        return arr
+    if suffix == ".npz":
+        try:
+            with np.load(path, allow_pickle=False) as archive:
+                key = source.key or _DEFAULT_NPZ_KEY.get(field, field)
+                if key not in archive.files:
+                    near = difflib.get_close_matches(key, archive.files, n=1)
+                    hint = f'did you mean "{path.name}:{near[0]}"? ' if near else ""
+                    fail(field, f'{path.name} has no array "{key}" (it holds: '
+                         f"{', '.join(archive.files) or 'nothing'})",
+                         f'{hint}name the array as "{path.name}:<key>"')
+                return archive[key]
+        except InputError:
+            raise
+        except ValueError as exc:
+            if "object" in str(exc).lower() or "pickle" in str(exc).lower():
+                fail(field, f"{path.name} holds Python objects (a pickle)", _PICKLE_FIX)
+            fail(field, f"{path.name} is not a readable .npz file ({exc})",
+                 "write it with numpy.savez")
+    fail(field, f"{path.name} has an unsupported file type {path.suffix!r}",
+         "give a .npy or .npz file (a .csv only for data.x, with y as one of its columns)")
+
+
+def existing_file(path, field):
+    path = Path(path)
+    if not path.exists():
+        fail(field, f'file "{path}" does not exist', "check the path (paths in a config file "
+             "are relative to the folder of the config file)")
+    if not path.is_file():
+        fail(field, f'"{path}" is not a file', "give the path of a file")
+    return path

@@ -1,0 +1,193 @@
+"""Gradient and log-ratio estimators over a row batch, with optional control variates (private).
+
+Control variates use Taylor proxies of each l_i around a reference point beta* (the mode).
+For a GLM, l_i depends on beta only through eta_i, which is linear in beta, so the Taylor proxy
+in beta is the Taylor proxy of f in eta:
+    q_i(beta) = f(eta*_i) + f'*_i (eta_i - eta*_i) + 1/2 f''*_i (eta_i - eta*_i)^2
+(METHODS.md section 4). ``cv_order`` is 0 (none), 1 or 2; the arrays eta*, f'*, f''* are
+cached once per run (the row cache below), together with g* = sum_i grad l_i(beta*) and
+H* = sum_i Hess l_i(beta*).
+"""
+
+import math
+
+from ..models._kernels import dloglik_eta, jit, loglik_diff_eta, row_dot
+
+
+@jit
+def prior_logpdf_diff(prior_mean, prior_prec, beta_new, beta_old):
+    """log p(beta_new) - log p(beta_old) for a Gaussian prior with precision P:
+    -1/2 [(b'-m)'P(b'-m) - (b-m)'P(b-m)] = -1/2 (b'-b)' P (b'+b-2m)."""
+    d = beta_new.shape[0]
+    acc = 0.0
+    for a in range(d):
+        s = 0.0
+        for b in range(d):
+            s += prior_prec[a, b] * (beta_new[b] + beta_old[b] - 2.0 * prior_mean[b])
+        acc += (beta_new[a] - beta_old[a]) * s
+    return -0.5 * acc
+
+
+@jit
+def add_prior_grad(prior_mean, prior_prec, beta, out):
+    """out += -P (beta - m)."""
+    d = beta.shape[0]
+    for a in range(d):
+        s = 0.0
+        for b in range(d):
+            s += prior_prec[a, b] * (beta[b] - prior_mean[b])
+        out[a] -= s
+
+
+# Row cache: aux[i] = (y_i, eta*_i, f'*_i, f''*_i), one 32-byte record per row, so a batch row
+# costs one cache line besides its row of X (separate arrays cost a cache miss each). eta*_i
+# includes the offset; eta_i(beta) = eta*_i + x_i . (beta - beta*) needs no offset array.
+# Without control variates beta* = 0 and eta*_i is the offset.
+AUX_Y = 0
+AUX_ETA = 1
+AUX_F1 = 2
+AUX_F2 = 3
+
+
+# Batch kernels work in passes: a first pass reads every batch row (its row of X and its row
+# cache record) into small buffers, and later passes compute on the buffers. A row read is a
+# cache miss on tall data; with the exp/log of a row in the same loop, the processor waits for
+# each miss in turn, while a loop that only reads lets the misses overlap. ``work`` holds the
+# buffers: shape (3, n) for a batch of n rows, allocated once per run by the caller.
+
+
+@jit
+def cv_gradient_rows(family, X, aux, noise_sd, intercept, delta, idx, cv_order, out, work):
+    """out = sum over idx of [grad l_i(beta) - grad q_i(beta)] (out overwritten), where
+    delta = beta - beta*.
+
+    cv_order 0 gives the plain sum of gradients; 1 subtracts f'*_i x_i (Baker et al. 2019);
+    2 also subtracts f''*_i (eta_i - eta*_i) x_i, the gradient of the second-order proxy.
+    """
+    n = idx.shape[0]
+    p = X.shape[1]
+    w = delta[intercept:]
+    d0 = delta[0] if intercept else 0.0
+    eta = work[0]
+    yv = work[1]
+    r = work[2]
+    for k in range(n):
+        i = idx[k]
+        u = d0 + row_dot(X, i, w)
+        eta[k] = aux[i, AUX_ETA] + u
+        yv[k] = aux[i, AUX_Y]
+        c = 0.0
+        if cv_order >= 1:
+            c = aux[i, AUX_F1]
+        if cv_order >= 2:
+            c += aux[i, AUX_F2] * u
+        r[k] = c
+    for k in range(n):
+        r[k] = dloglik_eta(family, eta[k], yv[k], noise_sd) - r[k]
+    g = out[intercept:]
+    out[:] = 0.0
+    g0 = 0.0
+    for k in range(n):
+        i = idx[k]
+        rk = r[k]
+        g0 += rk
+        for j in range(p):
+            g[j] += rk * X[i, j]
+    if intercept:
+        out[0] = g0
+
+
+@jit
+def proxy_gradient_sum(cv_order, g_star, H_star, beta, beta_star, out):
+    """out = sum_i grad q_i(beta) = g* (+ H* (beta - beta*) for the second-order proxy)."""
+    d = beta.shape[0]
+    for a in range(d):
+        out[a] = g_star[a]
+        if cv_order >= 2:
+            s = 0.0
+            for b in range(d):
+                s += H_star[a, b] * (beta[b] - beta_star[b])
+            out[a] += s
+
+
+@jit
+def proxy_loglik_diff_sum(cv_order, g_star, H_star, beta_new, beta_old, beta_star):
+    """Q(b') - Q(b) = g*'(b'-b) + 1/2 (b'-b)' H* (b'+b-2b*)  (METHODS.md section 4)."""
+    d = beta_new.shape[0]
+    acc = 0.0
+    for a in range(d):
+        db = beta_new[a] - beta_old[a]
+        acc += g_star[a] * db
+        if cv_order >= 2:
+            s = 0.0
+            for b in range(d):
+                s += H_star[a, b] * (beta_new[b] + beta_old[b] - 2.0 * beta_star[b])
+            acc += 0.5 * db * s
+    return acc
+
+
+@jit
+def batch_residual_diffs(family, X, aux, noise_sd, intercept, delta_new, delta_old, idx,
+                         cv_order, out, work):
+    """out[k] = D_i - [q_i(b') - q_i(b)] for i = idx[k], with D_i = l_i(b') - l_i(b) and
+    delta_new = b' - beta*, delta_old = b - beta* (passes and ``work`` as above)."""
+    n = idx.shape[0]
+    p = X.shape[1]
+    w1 = delta_new[intercept:]
+    w0 = delta_old[intercept:]
+    d1 = delta_new[0] if intercept else 0.0
+    d0 = delta_old[0] if intercept else 0.0
+    e1 = work[0]
+    e0 = work[1]
+    yv = work[2]
+    for k in range(n):
+        i = idx[k]
+        u1 = d1
+        u0 = d0
+        for j in range(p):
+            x = X[i, j]
+            u1 += x * w1[j]
+            u0 += x * w0[j]
+        eta_star = aux[i, AUX_ETA]
+        e1[k] = eta_star + u1
+        e0[k] = eta_star + u0
+        yv[k] = aux[i, AUX_Y]
+        c = 0.0
+        if cv_order >= 1:
+            c = aux[i, AUX_F1] * (u1 - u0)
+        if cv_order >= 2:
+            c += 0.5 * aux[i, AUX_F2] * (u1 * u1 - u0 * u0)
+        out[k] = c
+    for k in range(n):
+        out[k] = loglik_diff_eta(family, e1[k], e0[k], yv[k], noise_sd) - out[k]
+
+
+@jit
+def scaled_sum_and_variance(values, n_rows):
+    """For a simple random sample of size n from N rows: the estimate N * mean of the sum over
+    all rows, its variance estimate N^2 (1 - n/N) s^2 / n (Cochran 1977, ch. 2), and the
+    sample skewness and excess kurtosis of the values (METHODS.md section 2)."""
+    n = values.shape[0]
+    mean = 0.0
+    for k in range(n):
+        mean += values[k]
+    mean /= n
+    m2 = 0.0
+    m3 = 0.0
+    m4 = 0.0
+    for k in range(n):
+        c = values[k] - mean
+        c2 = c * c
+        m2 += c2
+        m3 += c2 * c
+        m4 += c2 * c2
+    s2 = m2 / (n - 1) if n > 1 else 0.0
+    fpc = 1.0 - n / n_rows
+    var = n_rows * n_rows * fpc * s2 / n
+    skew = 0.0
+    kurt = 0.0
+    if m2 > 0.0:
+        mm2 = m2 / n
+        skew = (m3 / n) / (mm2 * math.sqrt(mm2))
+        kurt = (m4 / n) / (mm2 * mm2) - 3.0
+    return n_rows * mean, var, skew, kurt

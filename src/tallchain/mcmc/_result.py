@@ -1,0 +1,176 @@
+"""The result of a sampling run, and its conversion to ArviZ data."""
+
+from dataclasses import dataclass, field
+from importlib.metadata import PackageNotFoundError, version
+
+import numpy as np
+
+from ._summary import summarize
+
+
+@dataclass
+class SampleResult:
+    """Draws, per-iteration statistics, cost counters and timings of one run.
+
+    Attributes
+    ----------
+    draws : ndarray of shape (n_chains, n_draws, n_coef)
+        Post-warmup draws.
+    stats : dict of str to ndarray of shape (n_chains, n_draws)
+        Per-iteration statistics after warmup: ``accepted``, ``accept_prob``, ``log_ratio``
+        (the log target ratio used, exact or estimated), ``log_ratio_sd`` (its estimated sd;
+        0 for exact methods, NaN for SGLD), ``step_size``, ``batch_size``, ``nonfinite``,
+        ``log_ratio_skew`` and ``log_ratio_kurtosis`` (of the batch log-ratio terms).
+    warmup_stats : dict of str to ndarray of shape (n_chains, n_warmup)
+        The same statistics during warmup.
+    coef_names : list of str
+    method : str
+    settings : dict
+        Settings after tuning (step size per chain, batch size, ...).
+    n_rows : int
+        Number of data rows N.
+    data_evaluations : int
+        Per-datum likelihood or gradient evaluations during warmup and sampling (row visits).
+    nonfinite_count : int
+        Iterations after warmup whose log acceptance ratio was NaN or infinite (rejected).
+    cd_fallback_count : int
+        Iterations after warmup where the Ceperley-Dewing correction was outside its validity
+        bound and the plug-in sigma^2/2 was used instead.
+    warmup_counts : dict
+        The same two counts during warmup (``nonfinite``, ``cd_fallback``).
+    setup_seconds, sampling_seconds : float
+        Data checks, mode finding, and starting and stopping the workers; warmup and draws.
+    completed_draws : int
+        Draws completed per chain (less than requested when the run was interrupted).
+    warnings : list of str
+        Advice raised during the run (noise level, Gaussianity of the log-ratio).
+    laplace_mode : ndarray of shape (n_coef,) or None
+        The posterior mode found for the run (None when the method needed none).
+    """
+
+    draws: np.ndarray
+    stats: dict
+    warmup_stats: dict
+    coef_names: list
+    method: str
+    settings: dict
+    n_rows: int
+    data_evaluations: int
+    nonfinite_count: int
+    cd_fallback_count: int
+    setup_seconds: float
+    sampling_seconds: float
+    completed_draws: int
+    warmup_counts: dict = field(default_factory=dict)
+    laplace_mode: np.ndarray | None = None
+    warnings: list = field(default_factory=list)
+
+    @property
+    def n_chains(self):
+        return self.draws.shape[0]
+
+    @property
+    def n_draws(self):
+        return self.draws.shape[1]
+
+    @property
+    def data_passes(self):
+        """Data evaluations as a multiple of N (full-data passes)."""
+        return self.data_evaluations / self.n_rows
+
+    @property
+    def acceptance_rate(self):
+        return float(np.mean(self.stats["accepted"])) if self.n_draws else float("nan")
+
+    def to_arviz(self):
+        """The draws as ArviZ 1.x data.
+
+        Returns
+        -------
+        xarray.DataTree
+            Group ``posterior`` with ``beta`` over (chain, draw, coef), and group
+            ``sample_stats`` with every per-iteration statistic of `stats`.
+        """
+        return to_arviz(self)
+
+    def summary(self, *, warn=True):
+        """Per-coefficient summary (ESS, R-hat and MCSE by ArviZ) and the run's cost figures.
+
+        Returns
+        -------
+        tallchain.mcmc.Summary
+            See `tallchain.mcmc.summarize`.
+
+        Warns
+        -----
+        tallchain.exceptions.ConvergenceWarning
+            R-hat above 1.01 or a bulk/tail ESS below 400 for some coefficient.
+        """
+        return summarize(self, warn=warn)
+
+    def save(self, directory):
+        """Write posterior.nc, summary.csv and run.json into ``directory``, atomically.
+
+        Parameters
+        ----------
+        directory : path-like
+            Created when missing.
+
+        Returns
+        -------
+        tallchain.mcmc.Summary
+            The summary written to summary.csv.
+        """
+        from ..outputs import save_result
+
+        return save_result(self, directory)
+
+
+def _package_version():
+    try:
+        return version("tallchain")
+    except PackageNotFoundError:  # pragma: no cover - running from a source tree
+        return "0.0.0"
+
+
+def to_arviz(result):
+    """Convert a `SampleResult` to ArviZ 1.x data (an xarray DataTree).
+
+    Groups: ``posterior`` with ``beta`` over (chain, draw, coef); ``sample_stats`` with every
+    per-iteration statistic; ``warmup_sample_stats``; the run's settings and cost counters in
+    the attributes of the root and of ``posterior``.
+    """
+    import arviz as az
+
+
+    attrs = {
+        "tallchain_version": _package_version(),
+        "method": result.method,
+        "n_rows": int(result.n_rows),
+        "data_evaluations": int(result.data_evaluations),
+        "nonfinite_count": int(result.nonfinite_count),
+        "cd_fallback_count": int(result.cd_fallback_count),
+        "setup_seconds": float(result.setup_seconds),
+        "sampling_seconds": float(result.sampling_seconds),
+        "completed_draws": int(result.completed_draws),
+    }
+    for key, val in result.settings.items():
+        attrs[f"setting_{key}"] = _attr_value(val)
+    data = {"posterior": {"beta": result.draws},
+            "sample_stats": {k: v for k, v in result.stats.items()}}
+    if result.warmup_stats and next(iter(result.warmup_stats.values())).shape[1]:
+        data["warmup_sample_stats"] = dict(result.warmup_stats)
+    tree = az.from_dict(data, dims={"beta": ["coef"]}, coords={"coef": list(result.coef_names)})
+    tree.attrs.update(attrs)
+    tree["posterior"].attrs.update(attrs)
+    return tree
+
+
+def _attr_value(val):
+    if val is None:
+        return "none"
+    if isinstance(val, (list, tuple)):
+        return np.asarray(val, dtype=float) if all(isinstance(v, (int, float)) for v in val) else str(val)
+    if isinstance(val, (bool, np.bool_)):
+        return int(val)
+    return val

@@ -1,0 +1,160 @@
+"""Regression families: linear (known noise sd), logistic and Poisson GLMs."""
+
+import numpy as np
+
+from .._validation import fail
+from . import _kernels
+from ._glm import _GLM
+from ._inputs import check_noise_sd, rows_text
+
+
+class LinearRegression(_GLM):
+    """Linear regression with Gaussian noise of known standard deviation.
+
+    y_i ~ Normal(x_i . beta, noise_sd^2). With a Gaussian prior the posterior is Gaussian and
+    known exactly (`tallchain.conjugate_posterior`).
+
+    Parameters
+    ----------
+    X : array-like of shape (n_rows, n_features)
+        Design matrix. A float32 or float64 C-ordered array (a memory map too) is kept as
+        given, without a copy; integer, bool, Fortran-ordered or nested-list input is copied
+        to float64, C order. A one-dimensional X is one column.
+    y : array-like of shape (n_rows,)
+        Response.
+    noise_sd : float, default=1.0
+        Known noise standard deviation: a finite number > 0 (a numpy scalar too).
+    prior : GaussianPrior or None, default=None
+        Prior on the coefficients, intercept first; None means ``GaussianPrior()`` (mean 0,
+        sd 10 for every coefficient).
+    add_intercept : bool, default=True
+        Add an intercept as coefficient 0 (named "intercept").
+    coef_names : sequence of str, optional
+        Distinct names of the columns of X, one per column (default x0, x1, ...); with an
+        intercept, none may be "intercept".
+    check : bool, default=True
+        Scan X, y for NaN or inf. False skips these passes over the data (for data already
+        checked); the argument checks always run.
+
+    Raises
+    ------
+    InputError
+        If an argument is invalid (``noise_sd`` first, not a finite number > 0): X not a
+        two-dimensional numeric array (or ragged), without coefficients, or with fewer than 2
+        rows; y not numeric or of another length than X has rows; a non-bool ``add_intercept``
+        or ``check``; ``coef_names`` not distinct strings, one per column; ``prior`` not a
+        `GaussianPrior` or of the wrong length. With ``check``, also NaN or inf in the data.
+        The message names the argument and the fix.
+    """
+
+    family = _kernels.LINEAR
+    family_name = "linear"
+
+    def __init__(self, X, y, *, noise_sd=1.0, prior=None, add_intercept=True, coef_names=None,
+                 check=True):
+        noise_sd = check_noise_sd(noise_sd)
+        super().__init__(X, y, prior=prior, add_intercept=add_intercept, noise_sd=noise_sd,
+                         coef_names=coef_names, check=check)
+
+
+class LogisticRegression(_GLM):
+    """Logistic regression, y_i in {0, 1}, P(y_i = 1) = 1 / (1 + exp(-x_i . beta)).
+
+    Parameters
+    ----------
+    X : array-like of shape (n_rows, n_features)
+        Design matrix. A float32 or float64 C-ordered array (a memory map too) is kept as
+        given, without a copy; integer, bool, Fortran-ordered or nested-list input is copied
+        to float64, C order. A one-dimensional X is one column.
+    y : array-like of shape (n_rows,)
+        Labels, each 0 or 1 (bool is fine).
+    prior : GaussianPrior or None, default=None
+        Prior on the coefficients, intercept first; None means ``GaussianPrior()`` (mean 0,
+        sd 10 for every coefficient).
+    add_intercept : bool, default=True
+        Add an intercept as coefficient 0 (named "intercept").
+    coef_names : sequence of str, optional
+        Distinct names of the columns of X, one per column (default x0, x1, ...); with an
+        intercept, none may be "intercept".
+    check : bool, default=True
+        Scan X, y for NaN or inf, and y for labels other than 0 and 1. False skips these passes
+        over the data (for data already checked); the argument checks always run.
+
+    Raises
+    ------
+    InputError
+        If an argument is invalid: X not a two-dimensional numeric array (or ragged), without
+        coefficients, or with fewer than 2 rows; y not numeric or of another length than X has
+        rows; a non-bool ``add_intercept`` or ``check``; ``coef_names`` not distinct strings,
+        one per column; ``prior`` not a `GaussianPrior` or of the wrong length. With ``check``,
+        also NaN or inf in the data or a label other than 0 or 1. The message names the
+        argument and the fix.
+    """
+
+    family = _kernels.LOGISTIC
+    family_name = "logistic"
+
+    def __init__(self, X, y, *, prior=None, add_intercept=True, coef_names=None, check=True):
+        super().__init__(X, y, prior=prior, add_intercept=add_intercept, coef_names=coef_names,
+                         check=check)
+
+    def _check_response(self, y):
+        bad = np.flatnonzero((y != 0) & (y != 1))
+        if bad.size:
+            fail("y", f"has label {y[bad[0]]:g} in row {bad[0]} ({rows_text(bad.size)} outside {{0, 1}})",
+                 "logistic regression needs labels 0 or 1")
+
+
+class PoissonRegression(_GLM):
+    """Poisson regression with log link: y_i ~ Poisson(exp(x_i . beta + offset_i)).
+
+    Parameters
+    ----------
+    X : array-like of shape (n_rows, n_features)
+        Design matrix. A float32 or float64 C-ordered array (a memory map too) is kept as
+        given, without a copy; integer, bool, Fortran-ordered or nested-list input is copied
+        to float64, C order. A one-dimensional X is one column.
+    y : array-like of shape (n_rows,)
+        Counts: non-negative integers.
+    offset : array-like of shape (n_rows,), optional
+        Log exposure added to the linear predictor (default 0).
+    prior : GaussianPrior or None, default=None
+        Prior on the coefficients, intercept first; None means ``GaussianPrior()`` (mean 0,
+        sd 10 for every coefficient).
+    add_intercept : bool, default=True
+        Add an intercept as coefficient 0 (named "intercept").
+    coef_names : sequence of str, optional
+        Distinct names of the columns of X, one per column (default x0, x1, ...); with an
+        intercept, none may be "intercept".
+    check : bool, default=True
+        Scan X, y, offset for NaN or inf, and y for values that are not counts. False skips
+        these passes over the data (for data already checked); the argument checks always run.
+
+    Raises
+    ------
+    InputError
+        If an argument is invalid: X not a two-dimensional numeric array (or ragged), without
+        coefficients, or with fewer than 2 rows; y or offset not numeric or of another length
+        than X has rows; a non-bool ``add_intercept`` or ``check``; ``coef_names`` not distinct
+        strings, one per column; ``prior`` not a `GaussianPrior` or of the wrong length. With
+        ``check``, also NaN or inf in the data or a y that is not a count. The message names
+        the argument and the fix.
+    """
+
+    family = _kernels.POISSON
+    family_name = "poisson"
+
+    def __init__(self, X, y, *, offset=None, prior=None, add_intercept=True, coef_names=None,
+                 check=True):
+        super().__init__(X, y, prior=prior, add_intercept=add_intercept, offset=offset,
+                         coef_names=coef_names, check=check)
+
+    def _check_response(self, y):
+        bad = np.flatnonzero((y < 0) | (y != np.floor(y)))
+        if bad.size:
+            fail("y", f"has count {y[bad[0]]:g} in row {bad[0]} ({rows_text(bad.size)} not a count)",
+                 "Poisson regression needs non-negative integer counts")
+
+
+FAMILIES = {"linear": LinearRegression, "logistic": LogisticRegression,
+            "poisson": PoissonRegression}

@@ -1,0 +1,64 @@
+"""The set-up's full-data passes (mode finding, Hessian, row cache), parallel over rows (private).
+
+From ``PARALLEL_MIN_ROWS`` rows on, the parallel kernels of ``models/_kernels.py`` run (numba
+``prange`` over fixed blocks of rows, block sums added in block order, so the values do not
+depend on the number of threads); below it, starting the threads costs more than they save and
+the serial kernels run. The choice depends on the number of rows only.
+
+Parallel kernels are launched under one lock: with numba's "workqueue" threading layer (the
+fallback when neither OpenMP nor TBB is available) two Python threads launching parallel kernels
+at once abort the process. The chains' serial kernels do not take it.
+"""
+
+import threading
+
+import numpy as np
+
+from . import _kernels
+from ._inputs import coef_vector
+
+# Measured at d = 10 (logistic, 2 cores). On an idle machine the parallel passes break even
+# near 5e3 rows and are 1.8-1.9x faster from 1e5 rows on. While another job keeps a core busy
+# they gain nothing at any N, and each launch can wait a whole scheduler time slice (8-12 ms)
+# for the descheduled worker: 0.6-0.9x at 1e5-5e5 rows. From 2e5 rows the idle-machine saving
+# per pass (~5 ms and up) outweighs that risk.
+PARALLEL_MIN_ROWS = 200_000
+
+_LOCK = threading.Lock()
+
+
+def _run(serial, parallel, kernel_args, *rest):
+    """Call the serial kernel on short data, else the parallel one under the lock."""
+    if kernel_args[1].shape[0] < PARALLEL_MIN_ROWS:
+        return serial(*kernel_args, *rest)
+    with _LOCK:
+        return parallel(*kernel_args, *rest)
+
+
+def _beta(kernel_args, beta):
+    """beta as a contiguous float64 vector of the model's length (checked)."""
+    X, intercept = kernel_args[1], kernel_args[5]
+    return coef_vector(beta, X.shape[1] + intercept)
+
+
+def loglik_grad(kernel_args, beta):
+    """Full-data log-likelihood (constants included) and its gradient at beta, in one pass."""
+    beta = _beta(kernel_args, beta)
+    grad = np.empty(beta.shape[0])
+    val = _run(_kernels.full_loglik_grad_shifted, _kernels.par_loglik_grad_shifted, kernel_args,
+               beta, grad, True)
+    return val, grad
+
+
+def hessian(kernel_args, beta):
+    """Full-data log-likelihood Hessian sum_i f''(eta_i) x_i x_i^T at beta."""
+    beta = _beta(kernel_args, beta)
+    hess = np.empty((beta.shape[0], beta.shape[0]))
+    _run(_kernels.full_hessian, _kernels.par_hessian, kernel_args, beta, hess)
+    return hess
+
+
+def eta_derivatives(kernel_args, beta, eta, f1, f2):
+    """Write eta_i, f'(eta_i), f''(eta_i) at beta into eta, f1, f2 (length-N, may be strided)."""
+    _run(_kernels.full_eta_derivatives, _kernels.par_eta_derivatives, kernel_args,
+         _beta(kernel_args, beta), eta, f1, f2)

@@ -1,0 +1,53 @@
+"""Control-variate caches: Taylor proxies of every l_i around the mode (private)."""
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..models import _passes
+
+
+@dataclass
+class ControlVariateCache:
+    """The row cache of the batch kernels and the proxy sums (O(N d^2) once).
+
+    ``aux[i] = (y_i, eta*_i, f'*_i, f''*_i)`` at the reference point ``beta_star`` (see
+    `_estimator_kernels`); ``g_star`` and ``H_star`` are the full-data gradient and Hessian of
+    the log-likelihood there. With ``order = 0`` (no control variates) beta* = 0, eta*_i is the
+    offset and the derivative columns are unused.
+    """
+
+    order: int
+    beta_star: np.ndarray
+    aux: np.ndarray
+    g_star: np.ndarray
+    H_star: np.ndarray
+
+    @classmethod
+    def empty(cls, n_coef):
+        """Placeholder for full-data methods, which never read the row cache."""
+        return cls(0, np.zeros(n_coef), np.zeros((1, 4)), np.zeros(n_coef),
+                   np.zeros((n_coef, n_coef)))
+
+
+def row_cache(family, X, y, offset, noise_sd, intercept, beta_star):
+    """aux[i] = (y_i, eta_i, f'(eta_i), f''(eta_i)) at beta_star, for every row."""
+    aux = np.empty((X.shape[0], 4))
+    aux[:, 0] = y
+    # written straight into the columns: no N-length temporaries beside the cache
+    _passes.eta_derivatives((family, X, y, offset, noise_sd, intercept), beta_star,
+                                 aux[:, 1], aux[:, 2], aux[:, 3])
+    return aux
+
+
+def control_variate_cache(model, beta_star, order):
+    """Cache the Taylor proxies of every l_i around beta_star (METHODS.md section 4);
+    ``order = 0`` builds the plain row cache (beta* = 0) for runs without control variates."""
+    d = model.n_coef
+    beta_star = np.zeros(d) if order == 0 else np.ascontiguousarray(beta_star, dtype=float)
+    aux = row_cache(*model.kernel_args, beta_star)
+    if order == 0:
+        return ControlVariateCache(0, beta_star, aux, np.zeros(d), np.zeros((d, d)))
+    _, g_star = model.log_likelihood_grad(beta_star)
+    H_star = model.log_likelihood_hessian(beta_star) if order >= 2 else np.zeros((d, d))
+    return ControlVariateCache(order, beta_star, aux, g_star, H_star)

@@ -1,0 +1,57 @@
+"""Mass matrices (preconditioners) from the Laplace approximation or given (private)."""
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .._validation import fail, spd_matrix_and_inverse
+
+
+@dataclass
+class Preconditioner:
+    """Mass matrix M with its inverse and the lower Cholesky factor L of M^{-1} (L L^T = M^{-1})."""
+
+    kind: str
+    mass: np.ndarray
+    mass_inv: np.ndarray
+    mass_inv_chol: np.ndarray
+
+
+MASS_MATRIX_KINDS = ("laplace", "laplace-diagonal", "identity")
+
+
+def check_mass_matrix(mass_matrix, n_coef):
+    """Refuse a mass-matrix setting that `make_preconditioner` would refuse, without the mode."""
+    if isinstance(mass_matrix, str) or mass_matrix is None:
+        if mass_matrix not in MASS_MATRIX_KINDS:
+            fail("mass_matrix", f"unknown value {mass_matrix!r}",
+                 'use "laplace", "laplace-diagonal", "identity" or an array')
+    else:
+        spd_matrix_and_inverse("mass_matrix", mass_matrix, n_coef,
+                               "give one row and column per coefficient")
+
+
+def make_preconditioner(mass_matrix, n_coef, laplace):
+    """Build the preconditioner from a setting: "identity", "laplace", "laplace-diagonal" or an
+    (n_coef, n_coef) symmetric positive definite array."""
+    if isinstance(mass_matrix, str) or mass_matrix is None:
+        check_mass_matrix(mass_matrix, n_coef)
+        if mass_matrix == "identity":
+            mass_inv = np.eye(n_coef)
+        elif mass_matrix == "laplace":
+            mass_inv = laplace.cov
+        else:
+            mass_inv = np.diag(np.diag(laplace.cov))
+        kind = mass_matrix
+        mass_inv = np.array(mass_inv, dtype=float)
+        chol = np.linalg.cholesky(mass_inv)
+        inv_chol = np.linalg.inv(chol)
+        mass = inv_chol.T @ inv_chol
+    else:
+        kind = "given"
+        mass, mass_inv = spd_matrix_and_inverse("mass_matrix", mass_matrix, n_coef,
+                                                "give one row and column per coefficient")
+        chol = np.linalg.cholesky(0.5 * (mass_inv + mass_inv.T))
+    return Preconditioner(kind, np.ascontiguousarray(0.5 * (mass + mass.T)),
+                          np.ascontiguousarray(0.5 * (mass_inv + mass_inv.T)),
+                          np.ascontiguousarray(np.tril(chol)))

@@ -1,0 +1,65 @@
+"""Simulation-based calibration (Talts, Betancourt, Simpson, Vehtari & Gelman 2018) of the
+samplers: ranks of true coefficients among posterior draws are uniform when the sampler is
+right. Chi-square test of uniformity (scipy.stats.chisquare), Bonferroni over coefficients
+within a run and over the six sound configurations below, so that the whole suite has
+family-wise level 0.05 (a false alarm in 1 suite run of 20, not 1 in 4); the power check is
+naive-mh at a large step, which must fail the same per-coefficient test."""
+
+import numpy as np
+import pytest
+
+import tallchain as tc
+from tallchain.checks import calibrate, ecdf_bands, rank_uniformity_pvalues
+
+pytestmark = pytest.mark.slow
+
+SOUND_CASES = 6
+SMALL = dict(replications=60, thinned_draws=29, seed=1, workers=2, chains=2, warmup=300,
+             level=0.05 / SOUND_CASES)
+
+
+@pytest.fixture(scope="module")
+def problems():
+    rng = np.random.default_rng(3)
+    X = rng.standard_normal((400, 2))
+    return {"linear": tc.LinearRegression(X, X @ [1.0, -1.0] + rng.standard_normal(400)),
+            "logistic": tc.LogisticRegression(X, (rng.random(400) < 0.4).astype(float))}
+
+
+@pytest.mark.parametrize("family", ["linear", "logistic"])
+@pytest.mark.parametrize("method,extra", [
+    ("mala", {}),
+    ("penalty-mala", {}),                                            # control variates on
+    ("penalty-mala", {"control_variates": False, "batch_size": 200}),
+])
+def test_sbc_passes_for_sound_samplers(problems, family, method, extra):
+    res = calibrate(problems[family], method=method, **SMALL, **extra)
+    assert res.passed, res.p_values
+
+
+def test_sbc_fails_for_naive_mh_at_a_large_step(problems):
+    res = calibrate(problems["linear"], method="naive-mh", control_variates=False, batch_size=20,
+                    step_size=2.0, **SMALL)
+    assert not res.passed
+    assert np.all(res.p_values < res.level / len(res.p_values))  # every coefficient fails
+
+
+def test_sbc_results_do_not_depend_on_worker_count(problems):
+    kw = dict(SMALL, replications=6, method="mala")
+    a = calibrate(problems["linear"], **dict(kw, workers=1))
+    b = calibrate(problems["linear"], **kw)
+    assert np.array_equal(a.ranks, b.ranks)
+
+
+def test_uniformity_test_and_bands_on_known_ranks():
+    rng = np.random.default_rng(0)
+    uniform = rng.integers(0, 30, size=(2000, 1))
+    assert rank_uniformity_pvalues(uniform, 29, 10)[0] > 0.001
+    peaked = np.clip(np.round(rng.normal(15, 4, size=(2000, 1))), 0, 29).astype(int)
+    assert rank_uniformity_pvalues(peaked, 29, 10)[0] < 1e-10
+    # Simultaneous bands: about 95% of uniform ECDFs stay inside everywhere (binomial MC band).
+    z, lo, hi = ecdf_bands(50, 50, level=0.05, seed=1)
+    sims = np.sort(np.random.default_rng(2).random((1000, 50)), axis=1)
+    ecdf = np.stack([np.searchsorted(s, z, side="right") for s in sims]) / 50
+    inside = np.all((ecdf - z >= lo - 1e-12) & (ecdf - z <= hi + 1e-12), axis=1).mean()
+    assert abs(inside - 0.95) < 3 * np.sqrt(0.95 * 0.05 / 1000) + 0.01

@@ -1,0 +1,290 @@
+"""Data files: .npy memory maps, .npz keys, CSV parsing and its cache, column checks, scaling.
+
+Reference values are computed with plain NumPy on the same arrays (np.mean, np.std, and the
+linear predictor on both scales for the back-transform).
+"""
+
+import pickle
+from pathlib import Path
+
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose, assert_array_equal
+
+from tallchain import data as io
+from tallchain.data import DataSource, _columns, _csv
+from tallchain.exceptions import DataWarning, InputError
+
+
+@pytest.fixture
+def rng():
+    return np.random.default_rng(11)
+
+
+def _write_csv(path, header, rows):
+    path.write_text(",".join(header) + "\n" + "".join(",".join(map(str, r)) + "\n" for r in rows))
+    return path
+
+
+# ---------------------------------------------------------------- .npy / .npz
+
+
+def test_npy_is_memory_mapped_not_loaded(tmp_path, rng):
+    X = rng.standard_normal((50, 3))
+    np.save(tmp_path / "X.npy", X)
+    arr = io.load_array(tmp_path / "X.npy")
+    assert isinstance(arr, np.memmap)
+    assert not arr.flags.writeable
+    assert_array_equal(arr, X)
+
+
+def test_object_npy_is_refused_as_a_pickle(tmp_path):
+    np.save(tmp_path / "X.npy", np.array([{"a": 1}, None], dtype=object), allow_pickle=True)
+    with pytest.raises(InputError,
+                       match=r"^X: X\.npy holds Python objects .*pickles are never read"):
+        io.load_array(tmp_path / "X.npy")
+
+
+def test_pickle_file_named_npy_is_refused(tmp_path):
+    (tmp_path / "y.npy").write_bytes(pickle.dumps([1.0, 2.0]))
+    with pytest.raises(InputError,
+                       match=r"^y: y\.npy holds Python objects .*pickles are never read"):
+        io.load_array(tmp_path / "y.npy", field="y")
+
+
+def test_object_array_inside_npz_is_refused(tmp_path):
+    np.savez(tmp_path / "d.npz", x=np.array([[1], "a"], dtype=object))
+    with pytest.raises(InputError, match=r"d\.npz holds Python objects .*pickles are never read"):
+        io.load_array(tmp_path / "d.npz")
+
+
+def test_npz_default_and_named_keys(tmp_path, rng):
+    X, y, other = rng.standard_normal((10, 2)), rng.standard_normal(10), np.arange(10.0)
+    np.savez(tmp_path / "d.npz", x=X, y=y, other=other)
+    assert_array_equal(io.load_array(tmp_path / "d.npz", field="X"), X)
+    assert_array_equal(io.load_array(tmp_path / "d.npz", field="y"), y)
+    assert_array_equal(io.load_array(DataSource.parse(f"{tmp_path}/d.npz:other"), field="y"), other)
+    with pytest.raises(InputError, match=r'^y: d\.npz has no array "othr" \(it holds: x, y, other\); '
+                                         r'did you mean "d\.npz:other"\?'):
+        io.load_array(DataSource.parse(f"{tmp_path}/d.npz:othr"), field="y")
+
+
+def test_missing_file_and_unsupported_type(tmp_path):
+    with pytest.raises(InputError, match=r'^X: file ".*nope\.npy" does not exist; check the path'):
+        io.load_array(tmp_path / "nope.npy")
+    (tmp_path / "X.txt").write_text("1 2\n")
+    with pytest.raises(InputError, match=r"X\.txt has an unsupported file type '\.txt'"):
+        io.load_array(tmp_path / "X.txt")
+
+
+def test_datasource_parse_relative_to_base(tmp_path):
+    s = DataSource.parse("sub/d.npz:feat", tmp_path)
+    assert s.path == tmp_path / "sub" / "d.npz" and s.key == "feat"
+    assert DataSource.parse("/abs/X.npy", tmp_path) == DataSource(Path("/abs/X.npy"))
+
+
+# ---------------------------------------------------------------- CSV and its cache
+
+
+def test_csv_round_trip_and_cache_is_memory_mapped(tmp_path, rng, monkeypatch):
+    values = np.round(rng.standard_normal((30, 4)), 6)
+    values[:, 3] = rng.integers(0, 2, 30)
+    path = tmp_path / "data.csv"
+    _write_csv(path, ["id", "a", "b", "label"], values.tolist())
+    X, y, off, names = io.read_csv(path, response="label", columns=["b", "a"])
+    assert names == ["b", "a"]
+    assert_array_equal(X, values[:, [2, 1]])
+    assert_array_equal(y, values[:, 3])
+    assert off is None
+    caches = sorted(p.name for p in tmp_path.glob(".data.csv.*.npy"))
+    assert len(caches) == 2 and caches[0].endswith(".x.npy") and caches[1].endswith(".y.npy")
+    assert isinstance(X, np.memmap) and X.flags.c_contiguous
+
+    # Second load: the cache is memory-mapped and the CSV is not parsed again.
+    def no_parse(*args, **kwargs):
+        raise AssertionError("the CSV was parsed again")
+
+    monkeypatch.setattr(_csv, "_fill_from_csv", no_parse)
+    X2, y2, _, _ = io.read_csv(path, response="label", columns=["b", "a"])
+    assert isinstance(X2, np.memmap)
+    assert Path(X2.filename) == tmp_path / caches[0]
+    assert_array_equal(X2, X)
+    assert_array_equal(y2, y)
+
+
+def test_csv_cache_follows_the_file_and_the_columns(tmp_path):
+    path = _write_csv(tmp_path / "d.csv", ["a", "b", "y"], [[1, 2, 0], [3, 4, 1]])
+    io.read_csv(path, response="y")
+    io.read_csv(path, response="y", columns=["a"])
+    assert len(list(tmp_path.glob(".d.csv.*.x.npy"))) == 2
+    _write_csv(path, ["a", "b", "y"], [[1, 2, 0], [3, 5, 1], [6, 7, 1]])
+    X, y, _, _ = io.read_csv(path, response="y")
+    assert_array_equal(X, [[1, 2], [3, 5], [6, 7]])
+    assert_array_equal(y, [0, 1, 1])
+
+
+def test_csv_offset_column_quotes_and_blank_lines(tmp_path):
+    path = tmp_path / "d.csv"
+    path.write_text('"a","n","log_len"\n1,"3",0.5\n\n2,0,-0.5\r\n')
+    X, y, off, names = io.read_csv(path, response="n", offset="log_len")
+    assert names == ["a"]
+    assert_array_equal(X, [[1], [2]])
+    assert_array_equal(y, [3, 0])
+    assert_array_equal(off, [0.5, -0.5])
+
+
+def test_csv_without_a_writable_folder_reads_into_memory(tmp_path, monkeypatch):
+    path = _write_csv(tmp_path / "d.csv", ["a", "y"], [[1, 0], [2, 1]])
+
+    def refuse(*args, **kwargs):
+        raise PermissionError(13, "Permission denied")
+
+    monkeypatch.setattr(_csv.np.lib.format, "open_memmap", refuse)
+    with pytest.warns(DataWarning,
+                      match=r"could not write the cache beside d\.csv .*held in memory"):
+        X, y, _, _ = io.read_csv(path, response="y")
+    assert not isinstance(X, np.memmap)
+    assert_array_equal(X, [[1], [2]])
+    assert not list(tmp_path.glob(".d.csv.*"))
+
+
+@pytest.mark.parametrize("kwargs, message", [
+    ({"response": "labl"},
+     r'^y: column "labl" is not in the header of d\.csv; did you mean "label"\?'),
+    ({"response": "label", "columns": ["a", "zz"]},
+     r'^columns: column "zz" is not in the header of d\.csv; the columns are: a, b, label'),
+    ({"response": "label", "columns": ["a", "label"]},
+     r'^columns: lists "label", which is the response'),
+    ({"response": "label", "columns": ["a", "a"]}, r'^columns: lists "a" twice'),
+    ({"response": "label", "offset": "label"}, r'^offset: is the response column "label"'),
+])
+def test_csv_column_errors(tmp_path, kwargs, message):
+    path = _write_csv(tmp_path / "d.csv", ["a", "b", "label"], [[1, 2, 0], [3, 4, 1]])
+    with pytest.raises(InputError, match=message):
+        io.read_csv(path, **kwargs)
+
+
+def test_csv_bad_value_names_the_line(tmp_path):
+    path = _write_csv(tmp_path / "d.csv", ["a", "y"], [[1, 0], [2, 1], ["NA", 1]])
+    with pytest.raises(InputError, match=r"^X: d\.csv line 4 cannot be read \(could not convert "
+                                         r"string 'NA' to float64\); give a number in every"):
+        io.read_csv(path, response="y")
+    assert not list(tmp_path.glob(".d.csv.*"))  # no torn cache left behind
+
+
+def test_csv_header_problems(tmp_path):
+    (tmp_path / "empty.csv").write_text("")
+    with pytest.raises(InputError, match=r"empty\.csv has no header row"):
+        io.read_csv(tmp_path / "empty.csv", response="y")
+    _write_csv(tmp_path / "dup.csv", ["a", "a", "y"], [[1, 2, 3]])
+    with pytest.raises(InputError, match=r'dup\.csv names the column "a" twice'):
+        io.read_csv(tmp_path / "dup.csv", response="y")
+    _write_csv(tmp_path / "nodata.csv", ["a", "y"], [])
+    with pytest.raises(InputError, match=r"nodata\.csv has a header but no data rows"):
+        io.read_csv(tmp_path / "nodata.csv", response="y")
+
+
+# ---------------------------------------------------------------- column checks and scaling
+
+
+def test_column_stats_merge_blocks_like_numpy(tmp_path, rng, monkeypatch):
+    X = rng.standard_normal((1001, 3)) * [1.0, 10.0, 0.1] + [5.0, -2.0, 1e3]
+    np.save(tmp_path / "X.npy", X)
+    monkeypatch.setattr(_columns, "_BLOCK_BYTES", 8 * 3 * 97)  # many uneven blocks
+    stats = io.column_stats(io.load_array(tmp_path / "X.npy"))
+    assert_allclose(stats["mean"], X.mean(axis=0), rtol=1e-12)
+    assert_allclose(stats["sd"], X.std(axis=0), rtol=1e-10)
+    assert_array_equal(stats["min"], X.min(axis=0))
+    assert_array_equal(stats["max"], X.max(axis=0))
+
+
+@pytest.mark.parametrize("bad", [np.nan, np.inf])
+def test_nonfinite_x_is_reported_with_row_and_column(rng, bad):
+    X = rng.standard_normal((20, 3))
+    X[13, 2] = bad
+    with pytest.raises(InputError, match=rf"^X: contains {bad} in row 13, column 2"):
+        io.column_stats(X)
+
+
+def test_constant_and_duplicate_columns_warn(tmp_path, rng):
+    X = rng.standard_normal((40, 4))
+    X[:, 1] = 3.0
+    X[:, 3] = X[:, 0]
+    np.save(tmp_path / "X.npy", X)
+    np.save(tmp_path / "y.npy", rng.integers(0, 2, 40).astype(float))
+    with pytest.warns(DataWarning) as record:
+        io.load_data(tmp_path / "X.npy", tmp_path / "y.npy")
+    texts = [str(w.message) for w in record]
+    assert any("constant column(s) x1" in t and "duplicate the intercept" in t
+               and "drop them from data.columns" in t for t in texts)
+    assert any("duplicate column(s) x3 = x0" in t for t in texts)
+
+
+def test_columns_that_only_share_summaries_are_not_duplicates():
+    X = np.array([[0.0, 1.0], [1.0, 0.0], [0.0, 1.0], [1.0, 0.0]])  # same mean, sd, min, max
+    io.check_columns(X, ["a", "b"], intercept=True)
+
+
+def test_standardize_back_transform_keeps_the_linear_predictor(rng):
+    X = rng.standard_normal((200, 3)) * [2.0, 0.5, 7.0] + [1.0, -4.0, 30.0]
+    for intercept in (True, False):
+        Z, st = io.standardize_columns(X, intercept=intercept)
+        assert_allclose(Z.std(axis=0), 1.0, rtol=1e-12)
+        if intercept:
+            assert_allclose(Z.mean(axis=0), 0.0, atol=1e-12)
+        else:
+            assert_array_equal(st.center, 0.0)
+        draws = rng.standard_normal((2, 5, 3 + intercept))
+        orig = st.to_original(draws)
+        k = int(intercept)
+        eta_z = np.einsum("cdj,nj->cdn", draws[..., k:], Z) + (draws[..., :1] if k else 0)
+        eta_x = np.einsum("cdj,nj->cdn", orig[..., k:], X) + (orig[..., :1] if k else 0)
+        assert_allclose(eta_x, eta_z, rtol=1e-10, atol=1e-10)
+
+
+def test_standardize_refuses_a_copy_that_does_not_fit(rng, monkeypatch):
+    monkeypatch.setattr(_columns, "_available_memory", lambda: 1000)
+    with pytest.raises(InputError, match=r"^standardize: needs a .* GiB copy of X but only .* "
+                                         r"free; standardise the columns in the file beforehand"):
+        io.standardize_columns(rng.standard_normal((100, 2)), intercept=True)
+
+
+def test_load_data_csv_with_standardize(tmp_path, rng):
+    values = np.column_stack([rng.normal(10, 3, 50), rng.normal(0, 1, 50), rng.integers(0, 2, 50)])
+    path = _write_csv(tmp_path / "d.csv", ["u", "v", "y"], values.tolist())
+    ds = io.load_data(DataSource(path), "y", standardize=True)
+    assert ds.feature_names == ["u", "v"] and ds.n_rows == 50
+    assert_allclose(ds.X.mean(axis=0), 0.0, atol=1e-12)
+    assert_allclose(ds.standardization.scale, values[:, :2].std(axis=0), rtol=1e-10)
+
+
+def test_load_data_rejects_columns_for_arrays(tmp_path, rng):
+    np.save(tmp_path / "X.npy", rng.standard_normal((5, 2)))
+    np.save(tmp_path / "y.npy", np.zeros(5))
+    with pytest.raises(InputError, match=r"^columns: only applies to a \.csv file, not X\.npy"):
+        io.load_data(tmp_path / "X.npy", tmp_path / "y.npy", columns=["a"])
+    np.save(tmp_path / "X3.npy", np.zeros((2, 2, 2)))
+    with pytest.raises(InputError, match=r"^X: must be two-dimensional, got shape \(2, 2, 2\)"):
+        io.load_data(tmp_path / "X3.npy", tmp_path / "y.npy")
+
+
+def test_models_on_memory_mapped_files_pickle_as_paths(tmp_path):
+    # Workers of a sweep get the file's path, not a copy of its bytes, and map it again.
+    import pickle
+
+    import tallchain as tc
+
+    rng = np.random.default_rng(0)
+    np.save(tmp_path / "X.npy", rng.standard_normal((50_000, 4)))
+    np.save(tmp_path / "y.npy", (rng.random(50_000) < 0.5).astype(float))
+    X = np.load(tmp_path / "X.npy", mmap_mode="r")
+    y = np.load(tmp_path / "y.npy", mmap_mode="r")
+    model = tc.LogisticRegression(X, y)
+    blob = pickle.dumps(model)
+    assert len(blob) < 20_000  # X alone is 1.6 MB
+    back = pickle.loads(blob)
+    assert np.array_equal(back.X, X) and np.array_equal(back.y, y)
+    assert isinstance(back.X, np.memmap)
+    assert back.log_likelihood(np.full(5, 0.1)) == model.log_likelihood(np.full(5, 0.1))
+    # Power check: an in-memory X is pickled with its bytes.
+    assert len(pickle.dumps(tc.LogisticRegression(np.array(X), np.array(y)))) > 1_600_000

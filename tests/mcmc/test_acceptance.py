@@ -1,0 +1,135 @@
+"""The acceptance rules alone, on targets whose exact answer is known.
+
+Sources: the penalty identity and the acceptance formula A(Lambda, sigma) are from Ceperley &
+Dewing (J. Chem. Phys. 110, 9812, 1999) and METHODS.md section 1 (derived); the Bessel closed
+form of u_B is checked against scipy.special.jv; the target N(0, 1) is scipy.stats.norm.
+"""
+
+import math
+
+import arviz as az
+import numba
+import numpy as np
+import pytest
+from scipy import special, stats
+
+from tallchain.checks import KS_CRITICAL
+from tallchain.mcmc import _acceptance_kernels as K
+from tallchain.mcmc import _acceptance_rules as acceptance
+
+# --- Ceperley-Dewing correction ----------------------------------------------------------------
+
+
+@pytest.mark.parametrize("n", [5, 10, 30, 100, 200])
+def test_series_kernel_matches_bessel_closed_form(n):
+    # reference: scipy.special.jv through the closed form e^{-u_B} = Gamma(b) x^{(1-b)/2} J_{b-1}(2 sqrt x)
+    chi2 = np.linspace(0.01, 0.95 * min(acceptance.validity_bound(n), 8.0), 25)
+    np.testing.assert_allclose(acceptance.ceperley_dewing_penalty(chi2, n),
+                               acceptance.ceperley_dewing_closed_form(chi2, n), rtol=1e-9, atol=1e-12)
+
+
+@pytest.mark.parametrize("n", [10, 100, 1000])
+def test_printed_three_term_series_agrees_for_small_variance(n):
+    # Ceperley & Dewing (1999) print u_B = chi^2/2 + chi^4/(4(n+1)) + chi^6/(3(n+1)(n+3)) + ...
+    # The next term is O(chi^8/n^3): check agreement to that order.
+    chi2 = np.array([0.05, 0.2, 0.5, 1.0])
+    exact = acceptance.ceperley_dewing_penalty(chi2, n)
+    gap = np.abs(exact - acceptance.ceperley_dewing_series(chi2, n))
+    assert np.all(gap <= 2 * chi2**4 / n**3 + 1e-14), gap
+    # ...and the third term matters: two terms alone miss by about chi^6/(3 n^2).
+    gap2 = np.abs(exact - acceptance.ceperley_dewing_series(chi2, n, terms=2))
+    assert gap2[-1] > 0.5 * chi2[-1] ** 3 / (3 * (n + 1) * (n + 3))
+
+
+@pytest.mark.parametrize("n", [5, 10, 40])
+def test_correction_is_undefined_beyond_validity_bound(n):
+    bound = acceptance.validity_bound(n)
+    assert np.isfinite(acceptance.ceperley_dewing_penalty(0.98 * bound, n))
+    assert np.isnan(acceptance.ceperley_dewing_penalty(1.02 * bound, n))
+    # Large n: the first Bessel zero puts the bound near n/4 (METHODS.md section 1).
+    assert acceptance.validity_bound(400) == pytest.approx(400 / 4, rel=0.15)
+
+
+def test_exp_minus_u_b_is_unbiased_for_exp_minus_half_sigma2():
+    # chi^2 = sigma^2 * Chi2_{n-1}/(n-1): E[e^{-u_B(chi^2)}] = e^{-sigma^2/2} (Ceperley & Dewing
+    # 1999). The plug-in e^{-chi^2/2} has mean (1 + sigma^2/(n-1))^{-(n-1)/2} (chi-square mgf),
+    # which differs: the power check.
+    rng = np.random.default_rng(20261201)
+    n, sigma2, reps = 6, 1.5, 200_000
+    chi2 = sigma2 * rng.chisquare(n - 1, size=reps) / (n - 1)
+    # The unbiased estimator is 0F1(; (n-1)/2; -(n-1) chi^2/4) (scipy.special.hyp0f1), negative
+    # beyond the validity bound; where it is positive it must equal the kernel's e^{-u_B}.
+    unbiased = special.hyp0f1(0.5 * (n - 1), -0.25 * (n - 1) * chi2)
+    ok = unbiased > 0
+    assert ok.mean() > 0.95
+    np.testing.assert_allclose(np.exp(-acceptance.ceperley_dewing_penalty(chi2[ok][:2000], n)),
+                               unbiased[ok][:2000], rtol=1e-9)
+    plug_in = np.exp(-0.5 * chi2)
+    target = math.exp(-0.5 * sigma2)
+    for est, should_pass in ((unbiased, True), (plug_in, False)):
+        z = (est.mean() - target) / (est.std(ddof=1) / math.sqrt(reps))
+        assert (abs(z) < 4.0) == should_pass, z
+
+
+# --- acceptance probability with injected noise -----------------------------------------------
+
+
+@numba.njit(cache=True)
+def _flip_chain_accepts(rule, sigma, n_iter, seed):
+    """Proposals with Lambda = 0 exactly: the accept decisions are i.i.d. with mean A(0, sigma)."""
+    np.random.seed(seed)
+    acc = 0
+    for _ in range(n_iter):
+        noisy = sigma * np.random.standard_normal()
+        pen, _ = K.noise_penalty(rule, sigma * sigma, 2.0, False)
+        if math.log(np.random.random()) < K.log_accept_probability(noisy, 0.0, pen):
+            acc += 1
+    return acc
+
+
+@pytest.mark.parametrize("sigma", [0.5, 1.0, 2.0])
+def test_mean_acceptance_matches_formula(sigma):
+    # A(0, sigma) = 2 Phi(-sigma/2) (METHODS.md section 1, derived), checked within 4 binomial SE.
+    n_iter = 400_000
+    expected = 2 * stats.norm.cdf(-sigma / 2)
+    assert acceptance.mean_acceptance(0.0, sigma) == pytest.approx(expected, rel=1e-12)
+    se = math.sqrt(expected * (1 - expected) / n_iter)
+    rate = _flip_chain_accepts(K.PENALTY, sigma, n_iter, 7) / n_iter
+    assert abs(rate - expected) < 4 * se
+    # Power check: the plug-in rule's acceptance is not A(0, sigma).
+    rate_plugin = _flip_chain_accepts(K.PLUGIN, sigma, n_iter, 7) / n_iter
+    assert abs(rate_plugin - expected) > 4 * se
+
+
+@numba.njit(cache=True)
+def _noisy_gaussian_chain(rule, sigma, scale, n_iter, seed):
+    """Random-walk chain on N(0, 1) whose exact log ratio is corrupted by N(0, sigma^2) noise."""
+    np.random.seed(seed)
+    out = np.empty(n_iter)
+    x = 0.0
+    for t in range(n_iter):
+        prop = x + scale * np.random.standard_normal()
+        exact = -0.5 * (prop * prop - x * x)
+        noisy = exact + sigma * np.random.standard_normal()
+        pen, _ = K.noise_penalty(rule, sigma * sigma, 2.0, False)
+        if math.log(np.random.random()) < K.log_accept_probability(noisy, 0.0, pen):
+            x = prop
+        out[t] = x
+    return out
+
+
+def _ks_over_floor(rule, sigma, chains=4, n_iter=100_000):
+    draws = np.stack([_noisy_gaussian_chain(rule, sigma, 2.4, n_iter, 100 + c) for c in range(chains)])
+    ess = float(az.ess(draws, method="bulk"))
+    ks = stats.kstest(draws.ravel(), stats.norm.cdf).statistic
+    return ks / (KS_CRITICAL / math.sqrt(ess))
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("sigma", [0.5, 1.0, 2.0])
+def test_penalty_chain_targets_the_posterior_and_plug_in_does_not(sigma):
+    # Target N(0, 1) (scipy.stats.norm). Penalty rule: KS within 1.5 x the ESS floor.
+    assert _ks_over_floor(K.PENALTY, sigma) <= 1.5
+    # Power check: the plug-in rule is biased visibly from sigma = 1 on.
+    if sigma >= 1.0:
+        assert _ks_over_floor(K.PLUGIN, sigma) > 1.5

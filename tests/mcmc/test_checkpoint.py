@@ -1,0 +1,85 @@
+"""Interrupting a run and resuming it gives the draws of the uninterrupted run, bit for bit."""
+
+import numpy as np
+import pytest
+
+import tallchain as tc
+from tallchain.exceptions import SamplingInterrupted
+from tallchain.mcmc import _driver
+
+
+@pytest.fixture(scope="module")
+def model():
+    rng = np.random.default_rng(8)
+    X = rng.standard_normal((3000, 3))
+    y = (rng.random(3000) < 1 / (1 + np.exp(-(X @ [0.5, -1.0, 0.25])))).astype(float)
+    return tc.LogisticRegression(X, y)
+
+
+SETTINGS = dict(chains=3, draws=1500, warmup=1200, seed=31)
+
+
+def _interrupt_on_rounds(monkeypatch, rounds):
+    """Make the k-th round (k in rounds) behave as if Ctrl-C arrived while chains were running:
+    the chains stop after their current chunk and the driver sees the interrupt."""
+    original = _driver.Runner.run
+    count = {"n": 0}
+
+    def run(self, states, until, n_batch, pool):
+        count["n"] += 1
+        if count["n"] in rounds:
+            # Let the chains run part of the round, stopping at a chunk boundary mid-round.
+            original(self, states, min(until, states[0].iteration + 300), n_batch, pool)
+            raise _driver.Interrupted()
+        return original(self, states, until, n_batch, pool)
+
+    monkeypatch.setattr(_driver.Runner, "run", run)
+    return count
+
+
+@pytest.mark.parametrize("method,extra", [
+    ("penalty-mala", {"batch_size": "auto"}),   # resumes inside the batch-size pilot phases
+    ("penalty-mala", {"batch_size": 64, "gradient_batch": "carried"}),
+    ("mala", {}),
+])
+def test_two_interrupts_and_two_resumes_equal_the_uninterrupted_run(model, tmp_path, monkeypatch,
+                                                                   method, extra):
+    full = tc.sample(model, method=method, **SETTINGS, **extra)
+    ckpt = tmp_path / "run.ckpt.npz"
+    count = _interrupt_on_rounds(monkeypatch, {2, 4})
+    with pytest.raises(SamplingInterrupted) as first:
+        tc.sample(model, method=method, checkpoint=ckpt, **SETTINGS, **extra)
+    assert first.value.result.completed_draws < SETTINGS["draws"]
+    with pytest.raises(SamplingInterrupted) as second:
+        tc.sample(model, method=method, checkpoint=ckpt, resume=True, **SETTINGS, **extra)
+    assert second.value.result.completed_draws >= first.value.result.completed_draws
+    done = tc.sample(model, method=method, checkpoint=ckpt, resume=True, **SETTINGS, **extra)
+    assert count["n"] > 4
+    assert np.array_equal(done.draws, full.draws)
+    for key in full.stats:
+        assert np.array_equal(done.stats[key], full.stats[key], equal_nan=True), key
+    assert done.data_evaluations == full.data_evaluations
+    assert done.settings["batch_size"] == full.settings["batch_size"]
+    assert done.settings["step_size"] == full.settings["step_size"]
+
+
+def test_interrupted_result_keeps_completed_draws(model, tmp_path, monkeypatch):
+    _interrupt_on_rounds(monkeypatch, {3})
+    with pytest.raises(SamplingInterrupted) as info:
+        tc.sample(model, method="mala", checkpoint=tmp_path / "c.npz", **SETTINGS)
+    r = info.value.result
+    assert 0 < r.completed_draws < SETTINGS["draws"]
+    assert r.draws.shape == (3, r.completed_draws, 4) and np.all(np.isfinite(r.draws))
+
+
+def test_resume_with_other_settings_is_refused(model, tmp_path, monkeypatch):
+    _interrupt_on_rounds(monkeypatch, {2})
+    ckpt = tmp_path / "c.npz"
+    with pytest.raises(SamplingInterrupted):
+        tc.sample(model, method="mala", checkpoint=ckpt, **SETTINGS)
+    with pytest.raises(tc.InputError, match=r"resume: the checkpoint was made with other "
+                                            r"settings \(seed\)"):
+        tc.sample(model, method="mala", checkpoint=ckpt, resume=True,
+                  **dict(SETTINGS, seed=32))
+    with pytest.raises(tc.InputError, match="resume: no checkpoint at"):
+        tc.sample(model, method="mala", checkpoint=tmp_path / "none.npz", resume=True, **SETTINGS)
