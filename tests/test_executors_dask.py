@@ -220,9 +220,9 @@ def test_a_run_whose_job_is_lost_with_its_workers_scatters_it_again(client, monk
 def test_a_run_on_a_cluster_interrupted_and_resumed_in_threads_equals_the_whole_run(
         model, threads_run, client, tmp_path, monkeypatch):
     from tallchain.exceptions import SamplingInterrupted
-    from tallchain.mcmc import _driver
+    from tallchain.mcmc import _driver, _runners
 
-    original = _driver.TaskRunner.run
+    original = _runners.TaskRunner.run
     rounds = {"n": 0}
 
     def run(self, states, until, n_batch, pool):
@@ -231,7 +231,7 @@ def test_a_run_on_a_cluster_interrupted_and_resumed_in_threads_equals_the_whole_
             raise _driver.Interrupted()
         return original(self, states, until, n_batch, pool)
 
-    monkeypatch.setattr(_driver.TaskRunner, "run", run)
+    monkeypatch.setattr(_runners.TaskRunner, "run", run)
     ckpt = tmp_path / "run.ckpt.npz"
     with pytest.raises(SamplingInterrupted) as stop:
         tc.sample(model, scheduler=client, checkpoint=ckpt, **RUN)

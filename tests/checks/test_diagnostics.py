@@ -87,10 +87,10 @@ def test_starting_and_stopping_the_workers_is_set_up_not_sampling(small_run, mon
     import contextlib
     import time
 
-    from tallchain.mcmc import _driver
+    from tallchain.mcmc import _runners
 
     model, _ = small_run
-    opened = _driver.Runner.open_pool
+    opened = _runners.Runner.open_pool
 
     @contextlib.contextmanager
     def slow_pool(self, n_chains):
@@ -99,7 +99,7 @@ def test_starting_and_stopping_the_workers_is_set_up_not_sampling(small_run, mon
             yield pool
         time.sleep(0.5)
 
-    monkeypatch.setattr(_driver.Runner, "open_pool", slow_pool)
+    monkeypatch.setattr(_runners.Runner, "open_pool", slow_pool)
     t0 = time.perf_counter()
     r = tc.sample(model, method="mala", chains=2, draws=200, warmup=100, seed=4)
     wall = time.perf_counter() - t0

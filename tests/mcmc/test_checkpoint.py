@@ -5,7 +5,7 @@ import pytest
 
 import tallchain as tc
 from tallchain.exceptions import SamplingInterrupted
-from tallchain.mcmc import _driver
+from tallchain.mcmc import _driver, _runners
 
 
 @pytest.fixture(scope="module")
@@ -22,7 +22,7 @@ SETTINGS = dict(chains=3, draws=1500, warmup=1200, seed=31)
 def _interrupt_on_rounds(monkeypatch, rounds):
     """Make the k-th round (k in rounds) behave as if Ctrl-C arrived while chains were running:
     the chains stop after their current chunk and the driver sees the interrupt."""
-    original = _driver.Runner.run
+    original = _runners.Runner.run
     count = {"n": 0}
 
     def run(self, states, until, n_batch, pool):
@@ -33,7 +33,7 @@ def _interrupt_on_rounds(monkeypatch, rounds):
             raise _driver.Interrupted()
         return original(self, states, until, n_batch, pool)
 
-    monkeypatch.setattr(_driver.Runner, "run", run)
+    monkeypatch.setattr(_runners.Runner, "run", run)
     return count
 
 

@@ -15,6 +15,9 @@ from ..posterior import (ControlVariateCache, check_mass_matrix, control_variate
                          make_preconditioner)
 from . import _acceptance_kernels as _acc
 from . import _driver
+from ._checkpoint import Checkpoint
+from ._runners import Runner, TaskRunner
+from ._schedule import Schedule
 from . import _transition as _chain
 from ._methods import BROKEN_METHODS, METHODS, NOISE_VARIANCE
 from ._result import SampleResult
@@ -410,12 +413,12 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
     job = _driver.ChainJob(model, spec, _chain.CARRIED if carried else spec.gradient, var_code,
                            noise_cap, cache, pre, warmup, adapt_step)
     if scheduler in ("threads", "serial"):
-        runner = _driver.Runner(job, all_draws, all_stats, progress,
+        runner = Runner(job, all_draws, all_stats, progress,
                                 parallel and scheduler == "threads")
     else:
-        runner = _driver.TaskRunner(job, all_draws, all_stats, progress, scheduler,
+        runner = TaskRunner(job, all_draws, all_stats, progress, scheduler,
                                     worker_count(workers, chains))
-    schedule = _driver.Schedule(spec, batch_size, model.n_rows, warmup, draws,
+    schedule = Schedule(spec, batch_size, model.n_rows, warmup, draws,
                                 target_log_ratio_sd, batch_floor, batch_ceiling, _PILOT_BATCH)
     ckpt = None
     after_warmup = None
@@ -427,7 +430,7 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
                     "noise_variance": noise_variance, "gradient_batch": gradient_batch,
                     "target_log_ratio_sd": float(target_log_ratio_sd),
                     "n_rows": model.n_rows, "n_coef": model.n_coef, "family": model.family_name}
-        ckpt = _driver.Checkpoint(checkpoint, identity)
+        ckpt = Checkpoint(checkpoint, identity)
         if resume:
             after_warmup = ckpt.restore(states, schedule, runner)
 

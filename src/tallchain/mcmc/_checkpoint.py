@@ -1,0 +1,81 @@
+"""Checkpoints: a resumable snapshot of a run in one .npz file, replaced atomically (private)."""
+
+import json
+import os
+from pathlib import Path
+
+import numpy as np
+
+from .._validation import fail
+
+CHECKPOINT_VERSION = 2
+
+
+class Checkpoint:
+    """A resumable snapshot of a run in one .npz file, replaced atomically on every write.
+
+    It stores each chain's state arrays and generator state, the draws and statistics so far,
+    the schedule's position and batch size, and the settings that must match on resume.
+    """
+
+    def __init__(self, path, identity):
+        self.path = Path(path)
+        self.identity = identity
+
+    def write(self, states, schedule, runner, after_warmup):
+        done = max(st.iteration for st in states)
+        meta = {
+            "version": CHECKPOINT_VERSION,
+            "identity": self.identity,
+            "segment": schedule.segment,
+            "n_batch": schedule.n_batch,
+            "after_warmup": None if after_warmup is None else [int(v) for v in after_warmup],
+            "chains": [{"iteration": st.iteration, "carried_ready": st.carried_ready,
+                        "rng": st.rng.bit_generator.state} for st in states],
+        }
+        arrays = {
+            "draws": runner.all_draws[:, :done], "stats": runner.all_stats[:, :done],
+            "beta": np.stack([st.beta for st in states]),
+            "cur_grad": np.stack([st.cur_grad for st in states]),
+            "cur_loglik": np.stack([st.cur_loglik for st in states]),
+            "adapt": np.stack([st.adapt for st in states]),
+            "pooled": np.stack([st.pooled for st in states]),
+            "counters": np.stack([st.counters for st in states]),
+        }
+        self.path.parent.mkdir(parents=True, exist_ok=True)
+        tmp = self.path.with_name(f".{self.path.name}.tmp-{os.getpid()}.npz")
+        try:
+            np.savez(tmp, meta=np.array(json.dumps(meta)), **arrays)
+            os.replace(tmp, self.path)
+        finally:
+            if tmp.exists():
+                tmp.unlink()
+
+    def restore(self, states, schedule, runner):
+        """Load the snapshot into fresh states; returns the end-of-warmup counters (or None)."""
+        if not self.path.exists():
+            fail("resume", f"no checkpoint at {self.path}", "run once without --resume first")
+        with np.load(self.path, allow_pickle=False) as z:
+            meta = json.loads(str(z["meta"]))
+            if meta.get("version") != CHECKPOINT_VERSION or meta["identity"] != self.identity:
+                changed = sorted(k for k in set(self.identity) | set(meta["identity"])
+                                 if self.identity.get(k) != meta["identity"].get(k))
+                fail("resume", f"the checkpoint was made with other settings ({', '.join(changed)})",
+                     "resume with the settings and data of the interrupted run, or start anew")
+            done = z["draws"].shape[1]
+            runner.all_draws[:, :done] = z["draws"]
+            runner.all_stats[:, :done] = z["stats"]
+            for c, st in enumerate(states):
+                st.beta[:] = z["beta"][c]
+                st.cur_grad[:] = z["cur_grad"][c]
+                st.cur_loglik[:] = z["cur_loglik"][c]
+                st.adapt[:] = z["adapt"][c]
+                st.pooled[:] = z["pooled"][c]
+                st.counters[:] = z["counters"][c]
+                st.iteration = meta["chains"][c]["iteration"]
+                st.carried_ready = meta["chains"][c]["carried_ready"]
+                st.rng.bit_generator.state = meta["chains"][c]["rng"]
+        schedule.segment = meta["segment"]
+        schedule.n_batch = meta["n_batch"]
+        aw = meta["after_warmup"]
+        return None if aw is None else np.array(aw, dtype=np.int64)
