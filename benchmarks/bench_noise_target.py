@@ -8,7 +8,7 @@ log-ratio noise is large (with second-order control variates the batch floor bin
 check line shows it):
 
 * logistic (d = 8), linear (d = 6, known noise sd) and Poisson (d = 5) regression, N = 20,000,
-  first-order control variates (`cv_order=1`: noise O(d/n), independent of N);
+  first-order control variates (`proxy_order=1`: noise O(d/n), independent of N);
 * logistic (d = 6), N = 10,000, no control variates (noise O(N/n)).
 
 Per target, over replicate seeds (mean and standard error): the chosen batch, acceptance and
@@ -52,7 +52,7 @@ class Problem:
     def __init__(self, name, model, cv, reference, ref_ess=None):
         self.name, self.model, self.cv = name, model, cv
         self.reference, self.ref_ess = reference, ref_ess
-        self.prep = prepare(model, cv_orders=(1, 2) if cv else (0,))
+        self.prep = prepare(model, proxy_orders=(1, 2) if cv else (0,))
 
 
 def _mala_reference(model, draws, seed):
@@ -87,11 +87,11 @@ def problems(rng, ref_draws):
     yield Problem("logistic no-cv", plain, False, *_mala_reference(plain, ref_draws, 93))
 
 
-def run_one(problem, target, seed, chains, draws, warmup, cv_order=1):
+def run_one(problem, target, seed, chains, draws, warmup, proxy_order=1):
     """One penalty-mala run at ``target``; returns its figures as a dict."""
     model = problem.model
     r = tc.sample(model, method="penalty-mala", batch_size="auto", control_variates=problem.cv,
-                  cv_order=cv_order, target_log_ratio_sd=target, batch_ceiling=model.n_rows,
+                  proxy_order=proxy_order, target_log_ratio_sd=target, batch_ceiling=model.n_rows,
                   chains=chains, draws=draws, warmup=warmup, seed=seed, parallel=False,
                   preparation=problem.prep)
     rows_warm = float(np.sum(r.warmup_stats["batch_size"]))
@@ -149,7 +149,7 @@ def main():
     Xw = rng.standard_normal((2000, 3))
     warm = tc.LogisticRegression(Xw, (rng.random(2000) < 0.5).astype(float))
     for cv in (False, True):
-        tc.sample(warm, method="penalty-mala", control_variates=cv, cv_order=1, chains=1,
+        tc.sample(warm, method="penalty-mala", control_variates=cv, proxy_order=1, chains=1,
                   draws=50, warmup=50, seed=0, parallel=False)
     tc.sample(warm, method="mala", chains=1, draws=20, warmup=20, seed=0, parallel=False)
 
@@ -177,8 +177,8 @@ def main():
             print(lines[-1], flush=True)
         curves[prob.name] = (np.array(eff_mean), np.array(eff_se))
         if prob.cv:
-            r2 = run_one(prob, 1.0, 1000, chains, min(draws, 500), warmup, cv_order=2)
-            checks.append(f"check: {prob.name[:-4]} cv_order=2, target 1.0: batch {r2['batch']} "
+            r2 = run_one(prob, 1.0, 1000, chains, min(draws, 500), warmup, proxy_order=2)
+            checks.append(f"check: {prob.name[:-4]} proxy_order=2, target 1.0: batch {r2['batch']} "
                           f"(floor {DEFAULT_BATCH_FLOOR}), log-ratio sd {r2['sd']:.3g}")
 
     print()

@@ -1,6 +1,6 @@
 """Which estimate of the log-ratio noise variance should the penalty method use?
 
-Compares the three `noise_variance` settings of penalty-mala ("same-batch", "independent-batch",
+Compares the three `log_ratio_variance` settings of penalty-mala ("same-batch", "independent-batch",
 "pooled") on problems with a known posterior, without control variates so the noise is real:
 
 * linear regression, N = 3,000, exact Gaussian posterior (Bishop PRML eqs. 3.53-3.54);
@@ -46,7 +46,7 @@ def main():
     draws = 3000 if args.quick else 8000
     warnings.simplefilter("ignore")
     rng = np.random.default_rng(2026)
-    print(f"{'problem':9s} {'noise_variance':18s} {'mean bias/sd':>14s} {'sd bias/sd':>12s} "
+    print(f"{'problem':9s} {'log_ratio_variance':18s} {'mean bias/sd':>14s} {'sd bias/sd':>12s} "
           f"{'max KS/floor':>12s} {'ESS/s':>8s} {'evals/draw':>10s}")
     for name, model, mean, sd, ref in problems(rng):
         for setting in SETTINGS:
@@ -54,7 +54,7 @@ def main():
             for rep in range(reps):
                 t = time.perf_counter()
                 r = tc.sample(model, method="penalty-mala", control_variates=False,
-                              batch_size=300, noise_variance=setting, chains=4, draws=draws,
+                              batch_size=300, log_ratio_variance=setting, chains=4, draws=draws,
                               warmup=1000, seed=1000 + rep)
                 flat = r.draws.reshape(-1, r.draws.shape[2])
                 mb.append(np.mean((flat.mean(0) - mean) / sd))

@@ -17,7 +17,7 @@ from importlib.metadata import PackageNotFoundError, version
 from .checks import calibrate, check_on_twin, ks_check, sweep
 from .exceptions import (ConvergenceWarning, DataWarning, InputError, ModeNotFoundError,
                          NoisyLogRatioWarning, SamplingInterrupted, WorkerLostError)
-from .mcmc import SampleResult, sample
+from .mcmc import RunOptions, SampleResult, SamplerSettings, sample
 from .models import GaussianPrior, LinearRegression, LogisticRegression, PoissonRegression
 from .posterior import GaussianPosterior, LaplaceApproximation, conjugate_posterior, find_mode
 
@@ -34,6 +34,8 @@ __all__ = [
     "PoissonRegression",
     # sampling
     "sample",
+    "SamplerSettings",
+    "RunOptions",
     "SampleResult",
     # exact and approximate posteriors
     "conjugate_posterior",

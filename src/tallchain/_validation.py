@@ -1,5 +1,10 @@
-"""One message shape for every input check (private)."""
+"""One message shape for every input check, and the checks every layer shares (private).
 
+Every check raises `InputError` with the message ``"<field>: <problem>; <fix>"`` and, when it
+passes, returns the value standardised (a Python int for any integer, a float for any number).
+"""
+
+import difflib
 import math
 
 import numpy as np
@@ -55,12 +60,33 @@ def check_folder(name, path):
         fail(name, f'"{path}" is a file, not a folder', "give a folder (it is created when missing)")
 
 
+def is_integer(value):
+    """An integer of Python or numpy (not a bool)."""
+    return isinstance(value, (int, np.integer)) and not isinstance(value, (bool, np.bool_))
+
+
 def positive_int(name, value, minimum=1):
-    if isinstance(value, bool) or not isinstance(value, (int, np.integer)):
-        fail(name, f"must be an integer >= {minimum}, got {value!r}", f"give an integer >= {minimum}")
+    """``value`` as an int when it is an integer >= ``minimum``; else InputError naming ``name``."""
+    if not is_integer(value):
+        fail(name, f"must be an integer >= {minimum}, got {show_value(value)}",
+             f"give an integer >= {minimum}")
     if value < minimum:
         fail(name, f"must be >= {minimum}, got {value}", f"give an integer >= {minimum}")
     return int(value)
+
+
+def one_of(name, value, choices, what="value"):
+    """``value`` when it is one of ``choices`` (strings); else InputError with a suggestion."""
+    if not isinstance(value, str) or value not in choices:
+        fail(name, f"unknown {what} {show_value(value)}",
+             f"{did_you_mean(value, choices)}choose one of {', '.join(choices)}")
+    return value
+
+
+def did_you_mean(word, choices):
+    """``'did you mean "x"? '`` for the closest of ``choices`` to ``word``, or ``""``."""
+    near = difflib.get_close_matches(str(word), list(choices), n=1, cutoff=0.6)
+    return f'did you mean "{near[0]}"? ' if near else ""
 
 
 def spd_matrix_and_inverse(field, value, n, fix_shape):
@@ -82,13 +108,22 @@ def spd_matrix_and_inverse(field, value, n, fix_shape):
     return 0.5 * (m + m.T), 0.5 * (inv + inv.T)
 
 
-def check_seed(seed):
-    """The seeds `tallchain.sample` takes: an integer >= 0, None, a Generator or SeedSequence."""
+SEED_LIMIT = 2**64
+
+
+def check_seed(seed, name="seed"):
+    """The seeds `tallchain.sample` takes: an integer in [0, 2**64), None, a numpy Generator or
+    SeedSequence; returned with a numpy integer as a Python int.
+
+    Larger integers would seed numpy, but no output file can store them (NetCDF attributes
+    hold 64-bit integers at most), so they are refused before any work.
+    """
     if seed is None or isinstance(seed, (np.random.Generator, np.random.SeedSequence)):
-        return
-    if isinstance(seed, (bool, np.bool_)) or not isinstance(seed, (int, np.integer)) or seed < 0:
-        fail("seed", f"must be a non-negative integer, got {seed!r}",
+        return seed
+    if not is_integer(seed) or not 0 <= seed < SEED_LIMIT:
+        fail(name, f"must be an integer from 0 to 2**64 - 1, got {show_value(seed)}",
              "give an integer such as 1, or a numpy Generator")
+    return int(seed)
 
 
 def show_value(value):

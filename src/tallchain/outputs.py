@@ -51,7 +51,8 @@ def _jsonable(obj):
 def run_record(result, summary, wall_seconds=None):
     """The run.json content (keys of the interface contract plus the settings after tuning)."""
     return {
-        "settings": result.settings,
+        "settings": result.settings.record(),
+        "tuned": result.tuned,
         "coef_names": result.coef_names,
         "n_rows": result.n_rows,
         "setup_seconds": result.setup_seconds,
@@ -60,7 +61,7 @@ def run_record(result, summary, wall_seconds=None):
         else result.setup_seconds + result.sampling_seconds,
         "data_evaluations": result.data_evaluations,
         "data_evaluations_per_draw": result.data_evaluations
-        / max(1, result.n_chains * (result.settings["warmup"] + result.completed_draws)),
+        / max(1, result.n_chains * (result.settings.warmup + result.completed_draws)),
         "acceptance_rate": summary.run["acceptance_rate"],
         "log_ratio_sd_mean": summary.run["log_ratio_sd_mean"],
         "ess_bulk_min": summary.run["ess_bulk_min"],

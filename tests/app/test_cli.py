@@ -120,10 +120,12 @@ def test_options_override_the_config(tmp_path, rng, capsys):
                         "--draws", "40", "--chains", "1", "--warmup", "60", "--seed", "9",
                         "--step-size", "0.5", "--batch-size", "50", "--quiet")
     assert code == 0 and out == ""
-    settings = json.loads((tmp_path / "o" / "run.json").read_text())["settings"]
+    record = json.loads((tmp_path / "o" / "run.json").read_text())
+    settings = record["settings"]
     assert (settings["method"], settings["draws"], settings["chains"], settings["warmup"],
             settings["seed"], settings["step_size"], settings["batch_size"]) == \
-        ("penalty-rwm", 40, 1, 60, 9, [0.5], 50)
+        ("penalty-rwm", 40, 1, 60, 9, 0.5, 50)
+    assert record["tuned"]["step_size"] == [0.5] and record["tuned"]["batch_size"] == 50
 
 
 def test_csv_with_standardize_end_to_end_and_cached(tmp_path, rng, capsys, monkeypatch):
@@ -236,7 +238,7 @@ def test_pickled_array_exits_2(tmp_path, rng, capsys):
      r"sampler\.step_size \(from the command line\): must be > 0, got 0\.0"),
     (["--step-size", "-1"], "", FAST, r"sampler\.step_size \(from the command line\): must be > 0"),
     (["--batch-size", "1"], "", FAST,
-     r"sampler\.batch_size \(from the command line\): must be in \[2, "),
+     r"sampler\.batch_size \(from the command line\): must be >= 2, got 1"),
     ([], "", FAST + "batch_size = 1000\n",
      r"sampler\.batch_size: must be in \[2, 400\] \(N\), got 1000; give at least 2 rows"),
     (["--chains", "0"], "", FAST, r"sampler\.chains \(from the command line\): must be >= 1"),

@@ -47,21 +47,19 @@ def test_resolves_paths_defaults_and_given_sampler_keys(folder):
     assert cfg.data.y == DataSource(folder / "y.npy")
     assert cfg.data.add_intercept is True and cfg.data.standardize is False
     assert cfg.model.family == "logistic" and cfg.model.noise_sd is None
-    assert dict(cfg.sampler) == {"method": "penalty-rwm", "step_size": 0.5, "batch_size": 16,
-                                 "chains": 2}
+    assert cfg.sampler_given() == {"method": "penalty-rwm", "step_size": 0.5, "batch_size": 16,
+                                   "chains": 2}
+    assert cfg.sampler == tc.SamplerSettings(method="penalty-rwm", step_size=0.5, batch_size=16,
+                                             chains=2)   # the rest at their defaults
     assert cfg.output_dir == folder / "runs" / "run"
     with pytest.raises(AttributeError, match="cannot assign"):
         cfg.output_dir = folder
 
 
-def test_sampler_keys_are_the_options_of_sample():
-    runtime = {"progress", "parallel", "checkpoint", "resume", "checkpoint_seconds",
-               "preparation"}
-    where = {"scheduler", "workers"}   # the [compute] section
-    options = {name for name, p in inspect.signature(tc.sample).parameters.items()
-               if p.kind is inspect.Parameter.KEYWORD_ONLY} - runtime - where
-    assert set(config.SCHEMA["sampler"]) == options
-    assert set(config.SCHEMA["compute"]) == where
+def test_sampler_keys_are_the_fields_of_the_settings():
+    where = {"scheduler", "workers"}   # the [compute] section: run options of sample()
+    assert tuple(config.SCHEMA["sampler"]) == tc.SamplerSettings.names()
+    assert set(config.SCHEMA["compute"]) == where and where <= set(tc.RunOptions.names())
 
 
 def test_prior_settings_build_the_prior(folder):
@@ -97,13 +95,13 @@ def test_overrides_replace_keys_and_are_named_as_such(folder, tmp_path, monkeypa
     monkeypatch.chdir(tmp_path)
     cfg = _load(folder, "[sampler]\ndraws = 50\n",
                 overrides={"sampler.draws": 7, "output.dir": "elsewhere"})
-    assert cfg.sampler["draws"] == 7
+    assert cfg.sampler.draws == 7 and cfg.sampler_keys == {"draws"}
     assert cfg.output_dir == tmp_path / "elsewhere"
     with pytest.raises(InputError, match=r"^sampler\.chains \(from the command line\): must be "
                                          r">= 1, got 0"):
         _load(folder, overrides={"sampler.chains": 0})
     with pytest.raises(InputError, match=r"^sampler\.draws \(from the command line\): must be an "
-                                         r"integer, got 'many'"):
+                                         r"integer >= 1, got 'many'"):
         _load(folder, overrides={"sampler.draws": "many"})
 
 
@@ -118,11 +116,14 @@ def test_overrides_replace_keys_and_are_named_as_such(folder, tmp_path, monkeypa
     ("[samplr]\nchains = 2\n", r'^\[samplr\]: unknown section; did you mean "sampler"\?'),
     # wrong TOML types
     ("[sampler]\nchains = \"4\"\n",
-     r"^sampler\.chains: must be an integer, got '4'; give an integer"),
-    ("[sampler]\ncontrol_variates = 1\n", r"^sampler\.control_variates: must be true or false"),
-    ("[sampler]\ncv_order = true\n", r"^sampler\.cv_order: must be an integer, got True"),
-    ("[sampler]\nstep_size = [0.1]\n", r'^sampler\.step_size: must be a number or "auto"'),
-    ("[sampler]\nmass_matrix = [[1.0]]\n", r"^sampler\.mass_matrix: must be a string"),
+     r"^sampler\.chains: must be an integer >= 1, got '4'; give an integer >= 1$"),
+    ("[sampler]\ncontrol_variates = 1\n",
+     r"^sampler\.control_variates: must be True, False or None, got 1"),
+    ("[sampler]\nproxy_order = true\n", r"^sampler\.proxy_order: must be 1 or 2, got True"),
+    ("[sampler]\nstep_size = [0.1]\n",
+     r'^sampler\.step_size: must be a number > 0 or "auto", got \[0\.1\]'),
+    ("[sampler]\nmass_matrix = [[1.0], [2.0]]\n",
+     r"^sampler\.mass_matrix: must be laplace, laplace-diagonal, identity or a square matrix"),
     ("[output]\ndir = 3\n", r"^output\.dir: must be a string, got 3"),
     ("prior_sd = \"wide\"\n", r"^model\.prior_sd: must be a number or a list of numbers"),
     ("[sampler.extra]\na = 1\n", r"^sampler\.extra: unknown key"),
@@ -131,7 +132,7 @@ def test_overrides_replace_keys_and_are_named_as_such(folder, tmp_path, monkeypa
     ("[sampler]\nstep_size = -0.1\n", r"^sampler\.step_size: must be > 0, got -0\.1"),
     ("[sampler]\nstep_size = \"fast\"\n", r'^sampler\.step_size: must be a number > 0 or "auto", '
                                           r"got 'fast'"),
-    ("[sampler]\nbatch_size = 1\n", r"^sampler\.batch_size: must be in \[2, "),
+    ("[sampler]\nbatch_size = 1\n", r"^sampler\.batch_size: must be >= 2, got 1"),
     ("[sampler]\nbatch_size = \"big\"\n", r'^sampler\.batch_size: must be an integer or "auto"'),
     ("[sampler]\nchains = 0\n", r"^sampler\.chains: must be >= 1, got 0"),
     ("[sampler]\ndraws = 0\n", r"^sampler\.draws: must be >= 1, got 0"),
@@ -139,9 +140,12 @@ def test_overrides_replace_keys_and_are_named_as_such(folder, tmp_path, monkeypa
     ("[compute]\nscheduler = \"gpu\"\n", r"^compute\.scheduler: unknown scheduler 'gpu'"),
     ("[sampler]\nwarmup = -1\n", r"^sampler\.warmup: must be >= 0, got -1"),
     ("[sampler]\nwarmup = 10\n", r'^sampler\.warmup: is 10, too short to tune step_size="auto"'),
-    ("[sampler]\nseed = -3\n", r"^sampler\.seed: must be a non-negative integer, got -3"),
-    ("[sampler]\ncv_order = 3\n", r"^sampler\.cv_order: must be 1 or 2, got 3"),
-    ("[sampler]\nnoise_variance = \"fresh\"\n", r"^sampler\.noise_variance: unknown value 'fresh'"),
+    ("[sampler]\nseed = -3\n", r"^sampler\.seed: must be an integer from 0 to 2\*\*64 - 1, got -3"),
+    ("[sampler]\nseed = 18446744073709551616\n",
+     r"^sampler\.seed: must be an integer from 0 to 2\*\*64 - 1, got 18446744073709551616"),
+    ("[sampler]\nproxy_order = 3\n", r"^sampler\.proxy_order: must be 1 or 2, got 3"),
+    ("[sampler]\nlog_ratio_variance = \"fresh\"\n",
+     r"^sampler\.log_ratio_variance: unknown value 'fresh'"),
     ("[sampler]\nmass_matrix = \"dense\"\n", r"^sampler\.mass_matrix: unknown value 'dense'"),
     ("[sampler]\ninit = \"random\"\n", r"^sampler\.init: unknown value 'random'"),
     ("[sampler]\ntarget_log_ratio_sd = 0\n", r"^sampler\.target_log_ratio_sd: must be a finite number > 0"),

@@ -58,7 +58,7 @@ def test_sweep_numbers_do_not_depend_on_worker_count(linear):
 def test_sweep_finds_the_mode_once(linear, monkeypatch, family):
     # The mode and row caches are computed once and shared by the tuning run, the reference
     # run (logistic: not conjugate) and every grid point.
-    from tallchain.mcmc import _sampling as sampling
+    from tallchain.mcmc import _setup as sampling   # prepare() and sample() find the mode here
 
     model = linear if family == "linear" else tc.LogisticRegression(
         linear.X, (linear.y > np.median(linear.y)).astype(float))

@@ -59,8 +59,8 @@ def test_two_interrupts_and_two_resumes_equal_the_uninterrupted_run(model, tmp_p
     for key in full.stats:
         assert np.array_equal(done.stats[key], full.stats[key], equal_nan=True), key
     assert done.data_evaluations == full.data_evaluations
-    assert done.settings["batch_size"] == full.settings["batch_size"]
-    assert done.settings["step_size"] == full.settings["step_size"]
+    assert done.tuned["batch_size"] == full.tuned["batch_size"]
+    assert done.tuned["step_size"] == full.tuned["step_size"]
 
 
 def test_interrupted_result_keeps_completed_draws(model, tmp_path, monkeypatch):

@@ -9,7 +9,7 @@ import pytest
 import tallchain as tc
 from tallchain import executors
 from tallchain.checks import _calibration, _sweep, _twin, calibrate, check_on_twin, conjugate_twin, sweep
-from tallchain.mcmc import _sampling
+from tallchain.mcmc import _setup
 
 
 @pytest.fixture(scope="module")
@@ -41,7 +41,7 @@ def no_expensive_work(monkeypatch):
 
         return boom
 
-    for target, name in [(_sampling, "find_mode"), (_sweep, "prepare"), (_sweep, "sample"),
+    for target, name in [(_setup, "find_mode"), (_sweep, "prepare"), (_sweep, "sample"),
                          (_sweep, "reference_draws"), (_sweep, "conjugate_posterior"),
                          (_sweep, "run_tasks"), (_twin, "find_mode"), (_twin, "sample"),
                          (_twin, "conjugate_posterior"), (_calibration, "find_mode"),
@@ -69,9 +69,9 @@ CALIBRATE_CASES = [
     (dict(n_bins=2.5), r"n_bins: .* got 2.5"),
     (dict(n_bins=True), r"n_bins: .* got True"),
     # (c) seed
-    (dict(seed="abc"), r"seed: must be a non-negative integer, got 'abc'"),
-    (dict(seed=-1), r"seed: must be a non-negative integer, got -1"),
-    (dict(seed=1.5), r"seed: must be a non-negative integer, got 1.5"),
+    (dict(seed="abc"), r"seed: must be an integer from 0 to 2\*\*64 - 1, got 'abc'"),
+    (dict(seed=-1), r"seed: must be an integer from 0 to 2\*\*64 - 1, got -1"),
+    (dict(seed=1.5), r"seed: must be an integer from 0 to 2\*\*64 - 1, got 1.5"),
     # (d) scheduler, workers and sampler settings
     (dict(scheduler="nope"), r"scheduler: unknown scheduler 'nope'"),
     (dict(scheduler="threads"), r"scheduler: unknown scheduler 'threads'"),
@@ -82,11 +82,14 @@ CALIBRATE_CASES = [
     (dict(draws="many"), r"draws: must be an integer >= 1, got 'many'"),
     (dict(warmup=-1), r"warmup: must be >= 0, got -1"),
     (dict(step_size=-0.1), r"step_size: must be > 0, got -0.1"),
-    (dict(batch_size=1), r"batch_size: must be in \[2, 300\]"),
-    (dict(stepsize=0.1), r'stepsize: is not a setting of sample\(\); did you mean "step_size"'),
-    (dict(preparation=object()), r"preparation: cannot be passed to calibrate\(\)"),
-    (dict(parallel=False), r"parallel: cannot be passed to calibrate\(\)"),
-    (dict(checkpoint="x.ckpt"), r"checkpoint: cannot be passed to calibrate\(\)"),
+    (dict(batch_size=1), r"batch_size: must be >= 2, got 1; give an integer >= 2"),
+    (dict(batch_size=301), r"batch_size: must be in \[2, 300\] \(N\), got 301"),
+    (dict(stepsize=0.1), r'stepsize: is not a setting of calibrate\(\); did you mean "step_size"'),
+    (dict(preparation=object()), r"preparation: is a run option of sample\(\), not a setting "
+     r"calibrate\(\) takes"),
+    (dict(parallel=False), r"parallel: is a run option of sample\(\), not a setting calibrate"),
+    (dict(checkpoint="x.ckpt"), r"checkpoint: is a run option of sample\(\), not a setting "
+     r"calibrate"),
     (dict(progress="yes"), r"progress: must be True or False"),
     (dict(prior="flat"), r"prior: unknown calibration prior 'flat'"),
     (dict(level=1.5), r"level: must be a probability between 0 and 1"),
@@ -107,9 +110,9 @@ def test_calibrate_accepts_numpy_scalars_and_all_distinct_thinned_draws(linear, 
     picked = []
     real = calibration._replicate
 
-    def spy(model, prior, n_draws, seed, settings):
+    def spy(model, prior, n_draws, seed, settings, parallel):
         picked.append(n_draws)
-        return real(model, prior, n_draws, seed, settings)
+        return real(model, prior, n_draws, seed, settings, parallel)
 
     monkeypatch.setattr(calibration, "_replicate", spy)
     res = calibrate(linear, replications=np.int64(3), thinned_draws=np.int64(40),
@@ -117,7 +120,7 @@ def test_calibrate_accepts_numpy_scalars_and_all_distinct_thinned_draws(linear, 
                     scheduler="serial", method="mala", chains=2, draws=20, warmup=50)
     assert res.n_bins == 41 and res.n_draws == 40 and picked == [40, 40, 40]
     assert res.ranks.shape == (3, linear.n_coef) and res.ranks.max() <= 40
-    assert res.settings["chains"] == 2 and res.settings["warmup"] == 50
+    assert res.settings.chains == 2 and res.settings.warmup == 50
 
 
 def test_calibrate_takes_generator_and_seedsequence_seeds(linear):
@@ -160,15 +163,16 @@ SWEEP_CASES = [
     (dict(tolerance="x"), r"tolerance: must be a finite number > 0, got 'x'"),
     (dict(tolerance=np.inf), r"tolerance: must be a finite number > 0, got inf"),
     # (g) settings sweep sets itself
-    (dict(step_size=0.1), r"step_size: is set by sweep\(\) for each grid point; use "
+    (dict(step_size=0.1), r"step_size: is set by sweep\(\) itself; use "
      r"step_sizes="),
-    (dict(method="mala"), r"method: is set by sweep\(\) for each grid point; use methods="),
+    (dict(method="mala"), r"method: is set by sweep\(\) itself; use methods="),
     (dict(batch_size=100), r"batch_size: is set by sweep\(\) .*use batch_sizes="),
-    (dict(preparation=object()), r"preparation: is set by sweep\(\)"),
-    (dict(parallel=True), r"parallel: is set by sweep\(\)"),
+    (dict(preparation=object()), r"preparation: is a run option of sample\(\), not a setting "
+     r"sweep\(\) takes"),
+    (dict(parallel=True), r"parallel: is a run option of sample\(\), not a setting sweep"),
     # (h) everything else before prepare(), the tuning run and the reference run
-    (dict(seed="abc"), r"seed: must be a non-negative integer, got 'abc'"),
-    (dict(seed=-1), r"seed: must be a non-negative integer, got -1"),
+    (dict(seed="abc"), r"seed: must be an integer from 0 to 2\*\*64 - 1, got 'abc'"),
+    (dict(seed=-1), r"seed: must be an integer from 0 to 2\*\*64 - 1, got -1"),
     (dict(chains=0), r"chains: must be >= 1, got 0"),
     (dict(draws=0), r"draws: must be >= 1, got 0"),
     (dict(draws=2.5), r"draws: must be an integer >= 1, got 2.5"),
@@ -181,7 +185,7 @@ SWEEP_CASES = [
     (dict(gradient_batch="carried"), r'gradient_batch: "carried" applies to penalty-mala, '
      r"not sgld"),
     (dict(mass_matrix="unit"), r"mass_matrix: unknown value 'unit'"),
-    (dict(stepsize=0.1), r"stepsize: is not a setting of sample\(\)"),
+    (dict(stepsize=0.1), r"stepsize: is not a setting of sweep\(\)"),
     (dict(progress=None), r"progress: must be True or False"),
     (dict(on_row=3), r"on_row: must be callable, got int"),
 ]
@@ -215,11 +219,11 @@ TWIN_CASES = [
     (dict(tolerance=-1), r"tolerance: must be a finite number > 0, got -1"),
     (dict(tolerance="x"), r"tolerance: must be a finite number > 0, got 'x'"),
     (dict(tolerance=np.nan), r"tolerance: must be a finite number > 0, got nan"),
-    (dict(seed="abc"), r"seed: must be a non-negative integer, got 'abc'"),
-    (dict(seed=-1), r"seed: must be a non-negative integer, got -1"),
+    (dict(seed="abc"), r"seed: must be an integer from 0 to 2\*\*64 - 1, got 'abc'"),
+    (dict(seed=-1), r"seed: must be an integer from 0 to 2\*\*64 - 1, got -1"),
     (dict(method="malla"), r"method: unknown method 'malla'"),
     (dict(chains=0), r"chains: must be >= 1, got 0"),
-    (dict(stepsize=0.1), r"stepsize: is not a setting of sample\(\)"),
+    (dict(stepsize=0.1), r"stepsize: is not a setting of check_on_twin\(\)"),
 ]
 
 
@@ -236,7 +240,7 @@ def test_sweep_and_twin_refuse_bad_input_before_mode_tuning_reference_and_sampli
 
 @pytest.mark.parametrize("seed", ["abc", -1, 2.5])
 def test_conjugate_twin_checks_its_seed_before_the_mode(logistic, no_expensive_work, seed):
-    with pytest.raises(tc.InputError, match="seed: must be a non-negative integer"):
+    with pytest.raises(tc.InputError, match=r"seed: must be an integer from 0 to 2\*\*64 - 1"):
         conjugate_twin(logistic, seed=seed)
 
 

@@ -35,7 +35,8 @@ import pytest
 import tallchain as tc
 from tallchain.checks import ks_check
 from tallchain.exceptions import NoisyLogRatioWarning
-from tallchain.mcmc import _driver, _sampling as sampling, ess_bulk
+from tallchain.mcmc import _driver, ess_bulk
+from tallchain.mcmc._methods import BROKEN_METHODS, METHODS
 from tallchain.mcmc import _transition as _chain
 
 KS_TOL = 1.5
@@ -94,7 +95,7 @@ def rwm_run(linear_model):
 
 
 def _tuned_step(result):
-    return float(np.mean(result.settings["step_size"]))
+    return float(np.mean(result.tuned["step_size"]))
 
 
 def _report(label, check):
@@ -144,7 +145,7 @@ def test_power_rwm_with_uncorrected_minibatch_ratio_fails(rwm_run, exact_posteri
     # noise in the ratio (sd about 2.3 at 10 rows here). The package is expected to warn.
     with pytest.warns(NoisyLogRatioWarning, match="log-ratio sd is"):
         wrong = tc.sample(linear_model, method="naive-mh", step_size=_tuned_step(rwm_run),
-                          batch_size=10, control_variates=True, cv_order=1, chains=CHAINS,
+                          batch_size=10, control_variates=True, proxy_order=1, chains=CHAINS,
                           draws=DRAWS_RWM, warmup=WARMUP, seed=32)
     check = ks_check(wrong.draws, exact_posterior, coef_names=linear_model.coef_names,
                      tolerance=KS_TOL)
@@ -172,8 +173,8 @@ def test_step_size_is_frozen_after_warmup(run_name, request):
     for c in range(result.n_chains):
         assert np.ptp(warm[c]) > 0.0  # the step did adapt during warmup...
         assert np.all(post[c] == post[c, 0])  # ...and is one number per chain afterwards,
-        assert post[c, 0] == result.settings["step_size"][c]  # the frozen value, exactly
-    assert result.settings["target_accept"] == TARGETS[result.method]
+        assert post[c, 0] == result.tuned["step_size"][c]  # the frozen value, exactly
+    assert result.tuned["acceptance_target"] == TARGETS[result.method]
 
 
 @pytest.mark.slow
@@ -210,7 +211,7 @@ def test_data_evaluations_one_pass_per_iteration(run_name, request):
     # calls full_loglik once (+= N). The starting pass (init_full_state) and mode finding are
     # not counted: the counter covers warmup and draws (SampleResult docstring).
     result = request.getfixturevalue(run_name)
-    n_iter = result.settings["warmup"] + result.settings["draws"]
+    n_iter = result.settings.warmup + result.settings.draws
     assert result.data_evaluations == N_ROWS * n_iter * result.n_chains
     assert result.data_passes == n_iter * result.n_chains
 
@@ -282,8 +283,8 @@ def _assert_same_run(a, b):
         assert sa.keys() == sb.keys()
         for key in sa:
             assert sa[key].tobytes() == sb[key].tobytes(), (group, key)
-    assert a.settings["step_size"] == b.settings["step_size"]
-    assert a.settings["batch_size"] == b.settings["batch_size"]
+    assert a.tuned["step_size"] == b.tuned["step_size"]
+    assert a.tuned["batch_size"] == b.tuned["batch_size"]
     assert a.data_evaluations == b.data_evaluations
     assert a.nonfinite_count == b.nonfinite_count
     assert a.cd_fallback_count == b.cd_fallback_count
@@ -388,8 +389,8 @@ def test_power_glm_mala_without_proposal_term_fails(glm_with_reference, glm_mala
 
 def test_wrong_variant_is_private():
     # The power-check variant is reachable only by its private name, not offered to users.
-    assert WRONG_MALA not in sampling.METHODS
-    assert WRONG_MALA in sampling.BROKEN_METHODS
+    assert WRONG_MALA not in METHODS
+    assert WRONG_MALA in BROKEN_METHODS
     with pytest.raises(tc.InputError, match="unknown method 'mala-without-proposal-term'"):
         tc.sample(_glm("logistic"), method="mala-without-proposal-term", draws=5, warmup=0,
                   step_size=0.1)

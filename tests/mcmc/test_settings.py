@@ -1,13 +1,20 @@
-"""sample()'s up-front checks: every setting is refused with one line before any pass over the
-data (find_mode is patched to fail if it is reached), numpy scalars are numbers, and
-check_sample_settings runs the same checks for callers that sample later."""
+"""The sampler settings: one home for every name, default and constraint.
+
+Every bad value is refused by `SamplerSettings` (or `RunOptions`) in one line that names the
+field, what was got and the fix; `sample` refuses it before any pass over the data (the mode
+search is patched to fail if it is reached); every value comes back standardised; and the
+names of `sample`, the config's [sampler] section and the settings object are the same list.
+"""
+
+import dataclasses
+import json
 
 import numpy as np
 import pytest
 
 import tallchain as tc
-from tallchain.mcmc import _sampling as sampling
-from tallchain.mcmc import check_sample_settings
+from tallchain.app import _config
+from tallchain.mcmc import RunOptions, SamplerSettings, _setup
 
 
 @pytest.fixture(scope="module")
@@ -21,62 +28,157 @@ def model():
 def no_data_pass(monkeypatch):
     def reached(*args, **kwargs):
         raise AssertionError("find_mode was reached before the bad setting was refused")
-    monkeypatch.setattr(sampling, "find_mode", reached)
+    monkeypatch.setattr(_setup, "find_mode", reached)
 
 
-BAD = [
-    (dict(control_variates="no"), r"control_variates: must be True, False or None, got 'no'"),
-    (dict(parallel="no"), r"parallel: must be True or False, got 'no'"),
-    (dict(progress="yes"), r"progress: must be True or False"),
-    (dict(resume="yes", checkpoint="c.npz"), r"resume: must be True or False"),
-    (dict(method=["mala"]), r"method: unknown method \['mala'\]"),
-    (dict(init="centre"), r"init: unknown value 'centre'"),
-    (dict(init=np.zeros(5)), r"init: has shape \(5,\); give \(3,\) or \(4, 3\)"),
-    (dict(init=[0.0, np.nan, 0.0]), r"init: has shape \(4, 3\); give \(3,\) or \(4, 3\) finite"),
-    (dict(mass_matrix="laplace-diag"), r"mass_matrix: unknown value 'laplace-diag'"),
-    (dict(mass_matrix=None), r"mass_matrix: unknown value None"),
-    (dict(mass_matrix=-np.eye(3)), r"mass_matrix: "),
-    (dict(resume=True), r"resume: needs a checkpoint path"),
-    (dict(checkpoint_seconds=-1), r"checkpoint_seconds: must be a number > 0, got -1"),
-    (dict(preparation="x"), r"preparation: must come from tallchain\.mcmc\.prepare"),
-    (dict(seed="abc"), r"seed: must be a non-negative integer, got 'abc'"),
+# (settings, the whole message: field, problem and fix)
+BAD_SETTINGS = [
+    (dict(control_variates="no"),
+     r"^control_variates: must be True, False or None, got 'no'; give a bool \(None: on for "
+     r"minibatch methods\)$"),
+    (dict(method=["mala"]),
+     r'^method: unknown method \[\'mala\'\]; did you mean "mala"\? choose one of rwm, mala, .*sgld$'),
+    (dict(method="penalty_mala"),
+     r'^method: unknown method \'penalty_mala\'; did you mean "penalty-mala"\? choose one of '),
+    (dict(step_size=0), r'^step_size: must be > 0, got 0; give a positive number or "auto"$'),
+    (dict(step_size="tuned"),
+     r'^step_size: must be a number > 0 or "auto", got \'tuned\'; give a positive number or '
+     r'"auto"$'),
+    (dict(batch_size=1), r"^batch_size: must be >= 2, got 1; give an integer >= 2$"),
+    (dict(chains=0), r"^chains: must be >= 1, got 0; give an integer >= 1$"),
+    (dict(draws=2.5), r"^draws: must be an integer >= 1, got 2.5; give an integer >= 1$"),
+    (dict(proxy_order=3), r"^proxy_order: must be 1 or 2, got 3; use 2 \(second-order Taylor "
+                          r"proxies\) or 1 \(first-order\)$"),
+    (dict(init="centre"), r"^init: unknown value 'centre'; choose one of laplace, mode, "
+                          r"prior-mean$"),
+    (dict(init=[0.0, np.nan, 0.0]),
+     r"^init: contains nan at position \(1\); give finite starting values$"),
+    (dict(mass_matrix="laplace-diag"),
+     r'^mass_matrix: unknown value \'laplace-diag\'; did you mean "laplace-diagonal"\? choose '
+     r"one of laplace, laplace-diagonal, identity$"),
+    (dict(mass_matrix=None), r"^mass_matrix: unknown value None; choose one of laplace, "),
+    (dict(mass_matrix=-np.eye(3)), r"^mass_matrix: is not positive definite; give a symmetric "
+                                   r"positive definite matrix$"),
+    (dict(log_ratio_variance="same_batch"),
+     r"^log_ratio_variance: unknown value 'same_batch'; did you mean \"same-batch\"\? choose one of "),
+    (dict(seed="abc"), r"^seed: must be an integer from 0 to 2\*\*64 - 1, got 'abc'; give an "
+                       r"integer such as 1, or a numpy Generator$"),
+    (dict(seed=2**64), r"^seed: must be an integer from 0 to 2\*\*64 - 1, got 18446744073709551616"),
+    (dict(seed=-1), r"^seed: must be an integer from 0 to 2\*\*64 - 1, got -1"),
+    (dict(batch_floor=64, batch_ceiling=40),
+     r"^batch_ceiling: is 40, below batch_floor 64; give batch_ceiling >= batch_floor$"),
+    (dict(method="sgld", step_size="auto"),
+     r'^step_size: "auto" is not available for sgld \(it has no accept step to tune against\); '
+     r"give a number"),
+    (dict(warmup=10), r'^warmup: is 10, too short to tune step_size="auto"; give warmup >= 20'),
+    (dict(warmup=30), r'^warmup: is 30, too short to choose batch_size="auto"; give warmup >= 40'),
+    (dict(method="mala", gradient_batch="carried"),
+     r'^gradient_batch: "carried" applies to penalty-mala, not mala; use gradient_batch="fresh"'),
+]
+
+BAD_RUN_OPTIONS = [
+    (dict(parallel="no"), r"^parallel: must be True or False, got 'no'; give parallel=True or "
+                          r"False$"),
+    (dict(progress="yes"), r"^progress: must be True or False, got 'yes'"),
+    (dict(resume="yes", checkpoint="c.npz"), r"^resume: must be True or False, got 'yes'"),
+    (dict(resume=True), r"^resume: needs a checkpoint path; pass checkpoint=<file> "),
+    (dict(checkpoint_seconds=-1), r"^checkpoint_seconds: must be a finite number > 0, got -1; "
+                                  r"give the seconds between checkpoint writes, e.g. 30$"),
+    (dict(preparation="x"), r"^preparation: must come from tallchain\.mcmc\.prepare, got str; "
+                            r"pass prepare\(model\), or leave it out$"),
+    (dict(checkpoint=3), r"^checkpoint: must be a file path, got 3; give a path, or leave it out$"),
+    (dict(scheduler="gpu"), r"^scheduler: unknown scheduler 'gpu'; use \"threads\", "),
+    (dict(workers=0), r"^workers: must be a whole number >= 1, got 0; "),
 ]
 
 
-@pytest.mark.parametrize("settings, pattern", BAD)
-def test_a_bad_setting_is_refused_before_any_pass_over_the_data(model, no_data_pass, settings,
-                                                                 pattern):
+@pytest.mark.parametrize("settings, pattern", BAD_SETTINGS)
+def test_a_bad_setting_is_refused_by_the_settings_and_before_any_data_pass(
+        model, no_data_pass, settings, pattern):
+    with pytest.raises(tc.InputError, match=pattern):
+        SamplerSettings(**settings)
     with pytest.raises(tc.InputError, match=pattern):
         tc.sample(model, **settings)
+
+
+@pytest.mark.parametrize("options, pattern", BAD_RUN_OPTIONS)
+def test_a_bad_run_option_is_refused_before_any_data_pass(model, no_data_pass, options, pattern):
     with pytest.raises(tc.InputError, match=pattern):
-        check_sample_settings(model, **settings)
+        RunOptions(**options)
+    with pytest.raises(tc.InputError, match=pattern):
+        tc.sample(model, **options)
 
 
-@pytest.mark.parametrize("not_a_model", [np.zeros((5, 2)), None, "X.npy"])
-def test_something_else_than_a_model_is_refused(not_a_model):
-    with pytest.raises(tc.InputError, match=r"model: must be a LinearRegression, "
-                                            r"LogisticRegression or PoissonRegression, got"):
-        tc.sample(not_a_model)
+@pytest.mark.parametrize("settings, pattern", [
+    (dict(init=np.zeros(5)), r"^init: has shape \(5,\), expected \(3,\) or \(4, 3\); give one "
+                             r"starting point, or one per chain$"),
+    (dict(mass_matrix=np.eye(2)), r"^mass_matrix: has shape \(2, 2\), expected \(3, 3\); "),
+    (dict(batch_size=501), r"^batch_size: must be in \[2, 500\] \(N\), got 501; "),
+])
+def test_settings_that_do_not_fit_the_model_are_refused_before_any_data_pass(
+        model, no_data_pass, settings, pattern):
+    checked = SamplerSettings(**settings)      # fine without a model ...
+    with pytest.raises(tc.InputError, match=pattern):
+        checked.check_against(model)           # ... and refused against this one
+    with pytest.raises(tc.InputError, match=pattern):
+        tc.sample(model, **settings)
 
 
-def test_numpy_scalars_are_numbers(model):
+def test_replace_checks_again():
+    s = SamplerSettings(method="mala", step_size=0.5)
+    with pytest.raises(tc.InputError, match=r"^chains: must be >= 1, got 0"):
+        dataclasses.replace(s, chains=0)
+
+
+def test_values_come_back_standardised():
+    s = SamplerSettings(step_size=np.int64(1), chains=np.int32(2), draws=np.uint16(30),
+                        warmup=np.int64(50), seed=np.int64(2), control_variates=np.bool_(True),
+                        target_log_ratio_sd=np.float32(1.0), init=[[0.0, 1.0, 2.0]] * 2)
+    assert type(s.step_size) is float and s.step_size == 1.0
+    assert type(s.chains) is int and type(s.draws) is int and type(s.seed) is int
+    assert s.control_variates is True and type(s.target_log_ratio_sd) is float
+    assert s.init.dtype == np.float64 and not s.init.flags.writeable
+    assert dataclasses.replace(s) == s             # standardised values pass their rules again
+    json.dumps(s.record())                         # every setting can be written to run.json
+    assert s.record()["init"].startswith("array 2x3 sha1:")
+
+
+def test_numpy_scalars_run(model):
     r = tc.sample(model, method="mala", step_size=np.int64(1), chains=1, draws=20, warmup=0,
                   seed=np.int64(2))
     assert r.draws.shape == (1, 20, 3)
-    tc.sample(model, target_log_ratio_sd=np.float32(1.0), chains=1, draws=20, warmup=50,
-              seed=1, control_variates=np.bool_(True))
+    assert r.settings == SamplerSettings(method="mala", step_size=1.0, chains=1, draws=20,
+                                         warmup=0, seed=2)
 
 
-def test_check_sample_settings_names_an_unknown_keyword_and_spends_no_seed(model):
-    with pytest.raises(tc.InputError, match=r'step: is not a setting of sample\(\); did you mean '
-                                            r'"(step_size|seed)"\?'):
-        check_sample_settings(model, step=0.1)
-    rng = np.random.default_rng(9)
-    check_sample_settings(model, method="mala", step_size=0.5, seed=rng, draws=30, warmup=0)
-    after_check = tc.sample(model, method="mala", step_size=0.5, seed=rng, chains=1, draws=30, warmup=0)
-    fresh = tc.sample(model, method="mala", step_size=0.5, seed=np.random.default_rng(9), chains=1, draws=30,
-                      warmup=0)
-    assert np.array_equal(after_check.draws, fresh.draws)
+def test_an_unknown_keyword_is_named_with_a_suggestion(model, no_data_pass):
+    with pytest.raises(tc.InputError, match=r'^step: is not a setting of sample\(\); did you mean '
+                                            r'"(step_size|seed)"\? see help\(tallchain.SamplerSettings\)$'):
+        tc.sample(model, step=0.1)
+
+
+def test_options_replace_the_fields_of_given_settings(model):
+    base = SamplerSettings(method="mala", step_size=0.5, chains=1, draws=30, warmup=0, seed=3)
+    a = tc.sample(model, base, seed=4)
+    b = tc.sample(model, dataclasses.replace(base, seed=4))
+    assert a.settings.seed == 4 and np.array_equal(a.draws, b.draws)   # same code twice
+
+
+def test_one_list_of_names_for_sample_the_config_and_the_settings():
+    import inspect
+
+    params = list(inspect.signature(tc.sample).parameters)
+    assert params == ["model", "settings", *SamplerSettings.names(), *RunOptions.names()]
+    assert tuple(_config.SCHEMA["sampler"]) == SamplerSettings.names()
+    for name in SamplerSettings.names() + RunOptions.names():   # documented in sample()
+        assert f"\n        {name} : " in tc.sample.__doc__
+
+
+def test_something_else_than_a_model_is_refused():
+    for not_a_model in (np.zeros((5, 2)), None, "X.npy"):
+        with pytest.raises(tc.InputError, match=r"^model: must be a LinearRegression, "
+                                                r"LogisticRegression or PoissonRegression, got"):
+            tc.sample(not_a_model)
 
 
 def test_saving_somewhere_that_is_not_a_folder_is_one_line(model, tmp_path):

@@ -42,10 +42,8 @@ def _validate(args):
     from ..checks import check_on_twin
 
     config, model, out = _load(args)
-    settings = dict(config.sampler)
-    seed = settings.pop("seed", None)
     with warnings_as_lines(), config.named_fields():
-        check = check_on_twin(model, seed=seed, **settings)
+        check = check_on_twin(model, config.sampler)
     write_json(out / "validate.json", check.as_dict())
     if not args.quiet:
         k = check.ks
@@ -107,7 +105,9 @@ def _sweep(args):
         with open(partial, "a") as fh:
             fh.write(json.dumps(row) + "\n")
 
-    settings = dict(config.sampler)
+    # The grid sets method, step and batch size; the sweep's own defaults (seed 1) apply to
+    # the keys the config leaves out.
+    settings = config.sampler_given()
     for key in ("method", "step_size", "batch_size"):
         settings.pop(key, None)
     compute = config.compute
@@ -165,7 +165,9 @@ def _calibrate(args):
     from ..plots import plot_calibration
 
     config, model, out = _load(args)
-    settings = dict(config.sampler)
+    # A replication's own defaults (shorter chains) apply to the keys the config leaves out;
+    # the config's seed seeds the replications.
+    settings = config.sampler_given()
     seed = settings.pop("seed", None) or 1
     compute = config.compute
     t = time.perf_counter()

@@ -1,32 +1,28 @@
 """The TOML run configuration: schema, checks and the resolved settings.
 
 The config layer checks what only it knows (sections, key names, TOML types, which keys belong
-to which family, that files exist). The values themselves are checked by the code that uses
-them -- `tallchain.sample`, `tallchain.GaussianPrior`, the model constructors -- through a dry
-call on a tiny stand-in problem, so every rule lives in one place. Their messages name the
-argument (``step_size: ...``); `named_fields` renames it to the config key
-(``sampler.step_size: ...``).
+to which family, that files exist). The values themselves are checked by the objects that hold
+them, so every rule lives in one place: the ``[sampler]`` section builds a
+`tallchain.SamplerSettings` (its keys are that object's fields), the prior items a
+`tallchain.GaussianPrior`. Their messages name the argument (``step_size: ...``);
+`named_fields` renames it to the config key (``sampler.step_size: ...``).
 """
 
-import difflib
-import inspect
 import os
 import re
 import tomllib
-import warnings
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
-from types import MappingProxyType, SimpleNamespace
+from types import MappingProxyType
 
 import numpy as np
 
-from .._validation import check_folder, fail
+from .._validation import check_folder, did_you_mean, fail, one_of
 from ..data import ARRAY_SUFFIXES, DataSource, load_array
 from ..exceptions import InputError
-from ..mcmc import _sampling as sampling
+from ..mcmc import SamplerSettings
 from ..models import FAMILIES, GaussianPrior, LinearRegression
-from ..posterior import LaplaceApproximation, make_preconditioner
 
 
 def _is_number(v):
@@ -49,22 +45,15 @@ _NUMBER = ("a number", _is_number)
 _NUMBERS = ("a number or a list of numbers", lambda v: _is_number(v) or _is_number_list(v))
 _STR_LIST = ("a list of strings",
              lambda v: isinstance(v, list) and all(isinstance(e, str) for e in v))
-_STR_OR_NUMBER = ('a number or "auto"', lambda v: isinstance(v, str) or _is_number(v))
-_STR_OR_INT = ('an integer or "auto"', lambda v: isinstance(v, str) or _is_int(v))
 
 SCHEMA = {
     "data": {"x": _STR, "y": _STR, "add_intercept": _BOOL, "standardize": _BOOL,
              "columns": _STR_LIST, "offset": _STR},
     "model": {"family": _STR, "noise_sd": _NUMBER, "prior_mean": _NUMBERS, "prior_sd": _NUMBERS,
               "prior_cov": _STR},
-    # The keys are the keyword options of tallchain.sample but for the run-time ones
-    # (checkpointing, progress, threads, a preparation); tests/test_config.py checks it.
-    # Defaults live there.
-    "sampler": {"method": _STR, "step_size": _STR_OR_NUMBER, "batch_size": _STR_OR_INT,
-                "control_variates": _BOOL, "cv_order": _INT, "chains": _INT, "draws": _INT,
-                "warmup": _INT, "seed": _INT, "mass_matrix": _STR, "init": _STR,
-                "noise_variance": _STR, "gradient_batch": _STR, "target_log_ratio_sd": _NUMBER,
-                "batch_floor": _INT, "batch_ceiling": _INT},
+    # The fields of tallchain.SamplerSettings, which checks their values and holds the
+    # defaults.
+    "sampler": {name: None for name in SamplerSettings.names()},
     "output": {"dir": _STR},
     # Where the chains of a run, and the runs of sweeps and calibrations, execute
     # (tallchain.executors); --scheduler/--workers override.
@@ -150,9 +139,10 @@ class RunConfig:
         The config file (None when built from a dict).
     data : DataSettings
     model : ModelSettings
-    sampler : mapping of str to value
-        The ``[sampler]`` keys that were given, as keyword arguments of `tallchain.sample`
-        (the rest take that function's defaults).
+    sampler : SamplerSettings
+        The ``[sampler]`` section, every key not given at its default.
+    sampler_keys : frozenset of str
+        The ``[sampler]`` keys that were given (in the file or on the command line).
     output_dir : pathlib.Path
     compute : mapping
         The ``[compute]`` keys given: ``scheduler`` ("threads", "processes", "dask-local" or
@@ -165,10 +155,16 @@ class RunConfig:
     path: Path | None
     data: DataSettings
     model: ModelSettings
-    sampler: MappingProxyType
+    sampler: SamplerSettings
     output_dir: Path
     overridden: frozenset = frozenset()
     compute: MappingProxyType = MappingProxyType({})
+    sampler_keys: frozenset = frozenset()
+
+    def sampler_given(self):
+        """The ``[sampler]`` settings that were given, as keywords (for callers with defaults
+        of their own, such as a calibration's shorter chains)."""
+        return {key: getattr(self.sampler, key) for key in self.sampler_keys}
 
     @property
     def field_names(self):
@@ -264,8 +260,8 @@ def config_from_dict(raw, *, base_dir=".", stem="run", overrides=None, path=None
     with named_fields(_field_names(overridden)):
         model = _model_settings(raw.get("model", {}), raw.get("data", {}), base_dir)
         data = _data_settings(raw["data"], model.family, base_dir)
-        sampler = dict(raw.get("sampler", {}))
-        _dry_check_sampler(sampler)
+        given = raw.get("sampler", {})
+        sampler = SamplerSettings(**given)
         compute = dict(raw.get("compute", {}))
         _check_compute(compute)
     out = raw.get("output", {}).get("dir")
@@ -277,7 +273,8 @@ def config_from_dict(raw, *, base_dir=".", stem="run", overrides=None, path=None
             output_dir = (Path.cwd() if "output.dir" in overridden else base_dir) / output_dir
     output_dir = Path(os.path.normpath(output_dir))
     check_folder(_label("output.dir", overridden), output_dir)
-    return RunConfig(path=path, data=data, model=model, sampler=MappingProxyType(sampler),
+    return RunConfig(path=path, data=data, model=model, sampler=sampler,
+                     sampler_keys=frozenset(given),
                      output_dir=output_dir, overridden=overridden,
                      compute=MappingProxyType(compute))
 
@@ -311,6 +308,8 @@ def _check_shape(raw):
 
 
 def _check_value(section, key, value, label):
+    if SCHEMA[section][key] is None:   # checked by the object the section builds
+        return
     what, ok = SCHEMA[section][key]
     if not ok(value):
         fail(label, f"must be {what}, got {_show(value)}", f"give {what}")
@@ -323,9 +322,8 @@ def _check_required(raw):
 
 
 def _unknown(name, known, kind, label, section=None):
-    near = difflib.get_close_matches(name, list(known), n=1, cutoff=0.6)
     where = f" of [{section}]" if section else ""
-    fix = f'did you mean "{near[0]}"?' if near else \
+    fix = did_you_mean(name, known).strip() or \
         f"remove it; the {kind}s{where} are: {', '.join(known)}"
     fail(label, f"unknown {kind}", fix)
 
@@ -336,12 +334,7 @@ def _show(value):
 
 
 def _model_settings(table, data_table, base_dir):
-    family = table["family"]
-    if family not in FAMILIES:
-        near = difflib.get_close_matches(family, list(FAMILIES), n=1)
-        hint = f'did you mean "{near[0]}"? ' if near else ""
-        fail("model.family", f"unknown family {family!r}",
-             f"{hint}choose one of {', '.join(FAMILIES)}")
+    family = one_of("model.family", table["family"], tuple(FAMILIES), "family")
     if "noise_sd" in table and family != "linear":
         fail("noise_sd", f'is only used by family "linear", not "{family}"', "remove it")
     if "offset" in data_table and family != "poisson":
@@ -420,29 +413,6 @@ def _check_exists(source, field):
              "check the path (relative paths are relative to the folder of the config file)")
     if not source.path.is_file():
         fail(field, f'"{source.path}" is a folder, not a file', "give a .npy, .npz or .csv file")
-
-
-def _dry_check_sampler(settings):
-    """Run the checks of `tallchain.sample` on the settings with a stand-in one-coefficient model.
-
-    The number of rows is unknown until the data are loaded, so the upper bound of an integer
-    batch size is checked by `sample` itself.
-    """
-    defaults = {name: p.default for name, p in inspect.signature(sampling.sample).parameters.items()
-                if p.kind is inspect.Parameter.KEYWORD_ONLY}
-    s = {**defaults, **settings}
-    stand_in = SimpleNamespace(n_rows=2**62, n_coef=1, prior_mean=np.zeros(1))
-    laplace = LaplaceApproximation(mode=np.zeros(1), precision=np.eye(1), cov=np.eye(1),
-                                   n_evaluations=0, converged=True, message="stand-in")
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")  # sample() repeats its warnings on the real run
-        sampling._check_settings(stand_in, s["method"], s["step_size"], s["batch_size"],
-                                 s["chains"], s["draws"], s["warmup"], s["noise_variance"],
-                                 s["control_variates"], s["cv_order"], s["target_log_ratio_sd"],
-                                 s["gradient_batch"], s["batch_floor"], s["batch_ceiling"])
-    sampling._resolve_seed(s["seed"], 1)
-    make_preconditioner(s["mass_matrix"], 1, laplace)
-    sampling._initial_points(s["init"], stand_in, laplace, 1, np.random.default_rng(0))
 
 
 __all__ = ["RunConfig", "DataSettings", "ModelSettings", "load_config", "config_from_dict",

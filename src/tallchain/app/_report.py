@@ -7,10 +7,10 @@ import sys
 def print_summary(result, summary, *, file=None, standardized=False):
     """Print the coefficient table and the run's cost figures."""
     out = sys.stdout if file is None else file
-    s = result.settings
-    batch = f", batch size {s['batch_size']}" if s.get("batch_size") else ""
+    n_batch = result.tuned["batch_size"]
+    batch = f", batch size {n_batch}" if n_batch else ""
     print(f"{result.method}: {result.n_chains} chains x {result.n_draws} draws after "
-          f"{s['warmup']} warmup, N = {result.n_rows:,} rows{batch}", file=out)
+          f"{result.settings.warmup} warmup, N = {result.n_rows:,} rows{batch}", file=out)
     if standardized:
         print("fitted on standardised columns; coefficients below are on the original scale",
               file=out)

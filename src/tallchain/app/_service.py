@@ -53,7 +53,7 @@ def run_config(config, *, progress=False, resume=False, scheduler=None, workers=
     checkpoint = Path(config.output_dir) / CHECKPOINT_NAME
     try:
         with config.named_fields():
-            result = sample(model, **config.sampler, progress=progress, checkpoint=checkpoint,
+            result = sample(model, config.sampler, progress=progress, checkpoint=checkpoint,
                             resume=resume,
                             scheduler=option_or(scheduler, config.compute.get("scheduler", "threads")),
                             workers=option_or(workers, config.compute.get("workers")))

@@ -8,14 +8,14 @@ calibrated the ranks are uniform on {0, ..., L} (Talts, Betancourt, Simpson, Veh
 """
 
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 from scipy import stats
 
 from .._validation import check_flag, check_seed, fail, is_number, positive_int
 from ..executors import check_scheduler, check_workers, run_tasks, worker_count
-from ..mcmc import check_sample_settings, sample, spawn_seeds
+from ..mcmc import sample, settings_from, spawn_seeds
 from ..models import FAMILIES, GaussianPrior, check_model
 from ..posterior import find_mode
 
@@ -41,9 +41,8 @@ class CalibrationResult:
     coef_names : list of str
     prior : str
         "laplace" or "model".
-    settings : dict
-        The `tallchain.sample` settings of every replication, with the injected defaults
-        (``chains=2, draws=500, warmup=300`` unless given).
+    settings : SamplerSettings
+        The sampler settings of every replication (their seed is each replication's own).
     """
 
     ranks: np.ndarray
@@ -54,7 +53,7 @@ class CalibrationResult:
     passed: bool
     coef_names: list
     prior: str
-    settings: dict
+    settings: object
 
     def ecdf_bands(self, n_points):
         """Simultaneous 1 - level bands of the rank ECDF difference at ``n_points`` points
@@ -65,7 +64,7 @@ class CalibrationResult:
         return {"replications": int(self.ranks.shape[0]), "n_draws": self.n_draws,
                 "n_bins": self.n_bins, "level": self.level,
                 "per_coefficient_level": self.level / len(self.coef_names),
-                "passed": self.passed, "prior": self.prior, "settings": self.settings,
+                "passed": self.passed, "prior": self.prior, "settings": self.settings.record(),
                 "coefficients": [{"coef": n, "p_value": float(p),
                                   "verdict": "calibrated" if p > self.level / len(self.coef_names)
                                   else "miscalibrated"}
@@ -119,7 +118,7 @@ def simulate_response(model, beta, rng):
     return rng.poisson(np.exp(np.minimum(eta, 30.0))).astype(float)
 
 
-def _replicate(model, prior, n_draws, seed, settings):
+def _replicate(model, prior, n_draws, seed, settings, parallel):
     rng = np.random.default_rng(seed)
     mean, _, cov = prior.resolve(model.n_coef)
     beta = rng.multivariate_normal(mean, cov, method="cholesky")
@@ -133,7 +132,7 @@ def _replicate(model, prior, n_draws, seed, settings):
               check=False, **kw)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        r = sample(sim, seed=rng.integers(2**63), **settings)
+        r = sample(sim, replace(settings, seed=int(rng.integers(2**63))), parallel=parallel)
     flat = r.draws.reshape(-1, r.draws.shape[2])
     # thin to L draws, equally spaced over the pooled chains (thinning reduces the
     # autocorrelation that would otherwise make the ranks over-dispersed; Talts et al. 2018)
@@ -142,34 +141,31 @@ def _replicate(model, prior, n_draws, seed, settings):
 
 
 def _replicate_task(shared, seed):
-    model, prior, n_draws, settings = shared
-    return _replicate(model, prior, n_draws, seed, settings)
+    return _replicate(*shared[:3], seed, *shared[3:])
 
 
-# sample() settings that calibrate() sets itself for every replication, or that make no sense
-# across replications (each one samples its own simulated data set).
-_CALIBRATE_OWNS = {
-    "parallel": "calibrate() sets it from scheduler and workers",
-    "preparation": "each replication has its own simulated y, so its own mode",
-    "checkpoint": "replications would overwrite one checkpoint file",
-    "resume": "replications are not checkpointed",
-}
+# The defaults of a replication's sampler, where calibrate() is given no SamplerSettings.
+_REPLICATION_DEFAULTS = {"chains": 2, "draws": 500, "warmup": 300}
 
 
-def calibrate(model, *, replications=100, thinned_draws=99, prior="laplace", level=0.05, n_bins=10,
-              seed=1, workers=None, scheduler="processes", progress=False, **settings):
+def calibrate(model, settings=None, *, replications=100, thinned_draws=99, prior="laplace",
+              level=0.05, n_bins=10, seed=1, workers=None, scheduler="processes", progress=False,
+              **options):
     """Simulation-based calibration of a sampler setting on the model's X.
 
     Parameters
     ----------
     model : LinearRegression, LogisticRegression or PoissonRegression
         Its X (and offset, noise sd) are used; its y only to build the Laplace prior.
+    settings : SamplerSettings, optional
+        The sampler settings of every replication (their seed is replaced by each
+        replication's own). Default: ``SamplerSettings(chains=2, draws=500, warmup=300)``.
     replications : int, default=100
         R, an integer >= 2.
     thinned_draws : int, default=99
         L, thinned posterior draws per replication (ranks take L + 1 values): equally spaced
         over the ``chains * draws`` draws a replication keeps after warmup, so at most that
-        many. The sampler's own ``chains`` and ``draws`` go in ``settings``.
+        many. The sampler's own ``chains`` and ``draws`` are settings (below).
     prior : {"laplace", "model"}, default="laplace"
         Calibration prior: the Laplace approximation of the user's posterior (proper and near
         the region that matters) or the model's own prior. SBC holds for any prior used
@@ -188,11 +184,10 @@ def calibrate(model, *, replications=100, thinned_draws=99, prior="laplace", lev
         Where replications run: see `tallchain.executors`.
     progress : bool, default=False
         Show a progress line as replications finish.
-    **settings
-        `tallchain.sample` settings of every replication (method, step_size, batch_size,
-        control_variates, ...), with the defaults of `tallchain.sample` except
-        ``chains=2, draws=500, warmup=300``. ``parallel``, ``preparation``, ``checkpoint`` and
-        ``resume`` are not accepted (calibrate sets or cannot honour them).
+    **options
+        Settings of `tallchain.SamplerSettings` that replace those of ``settings`` (method,
+        step_size, batch_size, control_variates, ...). Run options (``preparation``,
+        ``checkpoint``, ...) are not accepted: every replication has its own simulated data.
 
     Returns
     -------
@@ -225,18 +220,12 @@ def calibrate(model, *, replications=100, thinned_draws=99, prior="laplace", lev
     check_scheduler(scheduler)
     check_workers(workers)
     check_flag("progress", progress)
-    for name, why in _CALIBRATE_OWNS.items():
-        if name in settings:
-            fail(name, f"cannot be passed to calibrate(): {why}", f"leave {name} out")
-    settings = dict(settings)
-    settings.setdefault("chains", 2)
-    settings.setdefault("draws", 500)
-    settings.setdefault("warmup", 300)
-    check_sample_settings(model, **settings)
-    available = int(settings["chains"]) * int(settings["draws"])
+    settings = settings_from(settings, options, owner="calibrate()",
+                             defaults=_REPLICATION_DEFAULTS).check_against(model)
+    available = settings.chains * settings.draws
     if draws > available:
         fail("thinned_draws", f"is {draws}, more than the {available} draws of a replication "
-             f"({settings['chains']} chains x {settings['draws']} draws after warmup), so draws "
+             f"({settings.chains} chains x {settings.draws} draws after warmup), so draws "
              "would be ranked twice", f"raise draws (or chains), or give thinned_draws <= "
              f"{available}")
 
@@ -247,16 +236,16 @@ def calibrate(model, *, replications=100, thinned_draws=99, prior="laplace", lev
         cal_prior = model.prior
     seeds = spawn_seeds(seed, replications)
     n_workers = worker_count(workers, replications)
-    settings["parallel"] = scheduler == "serial" or (scheduler == "processes" and n_workers == 1)
+    parallel = scheduler == "serial" or (scheduler == "processes" and n_workers == 1)
     ranks = np.zeros((replications, model.n_coef), dtype=np.int64)
     def _done(i, rk):
         ranks[i] = rk
 
-    run_tasks(_replicate_task, (model, cal_prior, draws, settings), seeds, scheduler=scheduler,
+    run_tasks(_replicate_task, (model, cal_prior, draws, settings, parallel), seeds,
+              scheduler=scheduler,
               workers=n_workers, on_result=_done, progress="calibrate" if progress else None)
     p = rank_uniformity_pvalues(ranks, draws, n_bins)
     passed = bool(np.all(p > level / model.n_coef))
-    kept = {k: v for k, v in settings.items() if k != "parallel"}
     return CalibrationResult(ranks=ranks, n_draws=draws, p_values=p, n_bins=n_bins, level=level,
                              passed=passed, coef_names=list(model.coef_names), prior=prior,
-                             settings=kept)
+                             settings=settings)

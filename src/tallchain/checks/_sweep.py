@@ -5,14 +5,14 @@ import math
 import os
 import time
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
 
-from .._validation import check_flag, check_seed, fail, is_number
+from .._validation import check_flag, fail, is_number, one_of
 from ..executors import check_scheduler, check_workers, run_tasks, worker_count
-from ..mcmc import METHODS, check_sample_settings, ess_bulk, prepare, sample, spawn_seeds
+from ..mcmc import METHODS, ess_bulk, prepare, sample, settings_from, spawn_seeds
 from ..models import check_model
 from ..posterior import conjugate_posterior
 from ._ks import ks_check
@@ -99,11 +99,12 @@ def reference_draws(model, *, cache_dir=None, draws=20_000, seed=0, preparation=
     return flat
 
 
-def _run_point(model, reference, tolerance, method, step, batch, seed, settings):
+def _run_point(model, reference, tolerance, settings, options):
+    method, step, batch = settings.method, settings.step_size, settings.batch_size
     t = time.perf_counter()
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        r = sample(model, method=method, step_size=step, batch_size=batch, seed=seed, **settings)
+        r = sample(model, settings, **options)
     seconds = time.perf_counter() - t
     k = ks_check(r.draws, reference, tolerance=tolerance)
     finite = bool(np.all(np.isfinite(r.draws)))
@@ -117,7 +118,7 @@ def _run_point(model, reference, tolerance, method, step, batch, seed, settings)
     else:
         verdict = "within noise" if ratio[j] <= tolerance else "biased"
     sd = r.stats["log_ratio_sd"]
-    iters = r.n_chains * (r.settings["warmup"] + r.n_draws)
+    iters = r.n_chains * (settings.warmup + r.n_draws)
     return {
         "method": method, "step_size": float(step),
         "batch_size": int(batch) if METHODS[method].minibatch else None,
@@ -132,20 +133,17 @@ def _run_point(model, reference, tolerance, method, step, batch, seed, settings)
 
 
 def _sweep_task(shared, task):
-    model, reference, tolerance, settings = shared
+    model, reference, tolerance, base, options = shared
     method, step, batch, seed = task
-    return _run_point(model, reference, tolerance, method, step, batch, seed, settings)
+    settings = replace(base, method=method, step_size=step, batch_size=batch, seed=seed)
+    return _run_point(model, reference, tolerance, settings, options)
 
 
-# sample() settings that sweep() sets itself, and what to use instead.
+# Settings that sweep() sets itself for each grid point, and what to use instead.
 _SWEEP_OWNS = {
     "method": "use methods=[...] (the methods of the grid)",
     "step_size": "use step_sizes=[...] (the step sizes of the grid)",
     "batch_size": "use batch_sizes=[...] (the batch sizes of the grid)",
-    "preparation": "leave it out (sweep prepares the model once itself)",
-    "parallel": "leave it out (sweep sets it from scheduler and workers)",
-    "checkpoint": "leave it out (grid points are not checkpointed; see done_rows)",
-    "resume": "leave it out (pass done_rows to skip finished grid points)",
 }
 
 
@@ -166,14 +164,9 @@ def _grid_values(field, values, what, example):
 
 
 def _check_grid(model, methods, step_sizes, batch_sizes):
-    from difflib import get_close_matches
-
     methods = _grid_values("methods", methods, "method names", '["penalty-mala", "sgld"]')
     for m in methods:
-        if not isinstance(m, str) or m not in METHODS:
-            near = get_close_matches(str(m), METHODS, n=1)
-            hint = f'did you mean "{near[0]}"? ' if near else ""
-            fail("methods", f"unknown method {m!r}", f"{hint}choose from {', '.join(METHODS)}")
+        one_of("methods", m, tuple(METHODS), "method")
     if step_sizes is not None:
         step_sizes = _grid_values("step_sizes", step_sizes, "numbers > 0", "[0.05, 0.1, 0.2]")
         for h in step_sizes:
@@ -191,15 +184,18 @@ def _check_grid(model, methods, step_sizes, batch_sizes):
     return methods, step_sizes, batch_sizes
 
 
-def sweep(model, *, methods=("penalty-mala", "sgld"), step_sizes=None, batch_sizes=None,
-          chains=4, draws=2000, warmup=500, seed=1, tolerance=1.5, workers=None,
-          scheduler="processes", cache_dir=None, progress=False, on_row=None, done_rows=None,
-          **settings):
+def sweep(model, settings=None, *, methods=("penalty-mala", "sgld"), step_sizes=None,
+          batch_sizes=None, tolerance=1.5, workers=None, scheduler="processes", cache_dir=None,
+          progress=False, on_row=None, done_rows=None, **options):
     """Run a grid of (method, step size, batch size) and measure bias against cost.
 
     Parameters
     ----------
     model : LinearRegression, LogisticRegression or PoissonRegression
+    settings : SamplerSettings, optional
+        The settings held fixed across the grid (chains, draws, warmup, seed, control
+        variates, ...); its method, step size and batch size are replaced by the grid's.
+        Default: ``SamplerSettings(seed=1)``, so that a sweep is reproducible.
     methods : sequence of str, default=("penalty-mala", "sgld")
         A non-empty list of method names (not a single string).
     step_sizes : sequence of float, optional
@@ -209,12 +205,6 @@ def sweep(model, *, methods=("penalty-mala", "sgld"), step_sizes=None, batch_siz
     batch_sizes : sequence of int, optional
         Batch sizes of the minibatch methods, integers in [2, N]. Default: the batch size
         chosen by that tuning run (``batch_size="auto"``).
-    chains, draws, warmup : int, default=4, 2000, 500
-        Per grid point. The tuning run uses 2 chains, 200 draws and ``max(warmup, 200)``
-        warmup iterations.
-    seed : int, numpy.random.Generator or SeedSequence, default=1
-        Grid point k gets child k of ``SeedSequence(seed)``: results do not depend on the
-        number of workers or the order of completion.
     tolerance : float, default=1.5
         A point is "within noise" when every coefficient's KS distance to the reference is at
         most ``tolerance`` times its floor; a finite number > 0.
@@ -230,11 +220,17 @@ def sweep(model, *, methods=("penalty-mala", "sgld"), step_sizes=None, batch_siz
         Called with each finished row (e.g. to write it out at once).
     done_rows : list of dict, optional
         Rows of an interrupted sweep over the same grid: those points are not run again.
-    **settings
-        Further `tallchain.sample` settings held fixed across the grid (``control_variates``,
-        ``mass_matrix``, ...). Not ``method``, ``step_size`` or ``batch_size`` (use
-        ``methods``, ``step_sizes``, ``batch_sizes``), nor ``preparation``, ``parallel``,
-        ``checkpoint`` or ``resume``.
+    **options
+        Settings of `tallchain.SamplerSettings` that replace those of ``settings`` (chains,
+        draws, warmup, seed, control_variates, ...). Not ``method``, ``step_size`` or
+        ``batch_size`` (use ``methods``, ``step_sizes``, ``batch_sizes``), nor a run option
+        (sweep prepares the model once and chooses where the points run).
+
+    Notes
+    -----
+    The tuning run that centres the grid uses 2 chains, 200 draws and ``max(warmup, 200)``
+    warmup iterations. Grid point k gets child k of ``SeedSequence(seed)``: results do not
+    depend on the number of workers or the order of completion.
 
     Returns
     -------
@@ -255,39 +251,36 @@ def sweep(model, *, methods=("penalty-mala", "sgld"), step_sizes=None, batch_siz
     check_model(model)
     methods, step_sizes, batch_sizes = _check_grid(model, methods, step_sizes, batch_sizes)
     tolerance = check_tolerance(tolerance)
-    check_seed(seed)
     check_scheduler(scheduler)
     check_workers(workers)
     check_flag("progress", progress)
     if on_row is not None and not callable(on_row):
         fail("on_row", f"must be callable, got {type(on_row).__name__}",
              "give a function of one row (a dict), or leave it out")
-    for name, fix in _SWEEP_OWNS.items():
-        if name in settings:
-            fail(name, "is set by sweep() for each grid point", fix)
+    base = settings_from(settings, options, owner="sweep()", owned=_SWEEP_OWNS,
+                         defaults={"seed": 1})
     tuner = next((m for m in methods if METHODS[m].adjusted), "penalty-mala")
-    # The grid points: numeric step and batch sizes (a tuned size when not given).
+    # Every grid point's settings (numeric step and batch sizes; a tuned size when not given)
+    # and the tuning run's are checked before any pass over the data.
     for m in methods:
-        check_sample_settings(model, method=m, step_size=(step_sizes or [1.0])[0],
-                              batch_size=(batch_sizes or [2])[0], chains=chains,
-                              draws=draws, warmup=warmup, seed=seed, **settings)
-    tuning = dict(settings, method=tuner, chains=2, draws=200, warmup=max(warmup, 200),
-                  seed=seed, batch_size=batch_sizes[0] if batch_sizes else "auto")
-    check_sample_settings(model, **tuning)
+        replace(base, method=m, step_size=(step_sizes or [1.0])[0],
+                batch_size=(batch_sizes or [2])[0]).check_against(model)
+    tuning = replace(base, method=tuner, chains=2, draws=200, warmup=max(base.warmup, 200),
+                     step_size="auto", batch_size=batch_sizes[0] if batch_sizes else "auto")
+    tuning.check_against(model)
 
     # The mode and row caches are computed here once and travel with the model to every
     # worker; neither the tuning run nor any grid point recomputes them.
-    cv = settings.get("control_variates")
-    orders = (0,) if cv is False else (settings.get("cv_order", 2), 0)
-    preparation = prepare(model, cv_orders=orders)
+    orders = (0,) if base.control_variates is False else (base.proxy_order, 0)
+    preparation = prepare(model, proxy_orders=orders)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        tuned = sample(model, preparation=preparation, **tuning)
-    h_star = float(np.mean(tuned.settings["step_size"]))
+        tuned = sample(model, tuning, preparation=preparation)
+    h_star = float(np.mean(tuned.tuned["step_size"]))
     if step_sizes is None:
         step_sizes = [h_star * f for f in DEFAULT_STEP_FACTORS]
     if batch_sizes is None:
-        batch_sizes = [tuned.settings["batch_size"] or 100]
+        batch_sizes = [tuned.tuned["batch_size"] or 100]
     grid = []
     for m in methods:
         for n in (batch_sizes if METHODS[m].minibatch else [None]):
@@ -297,15 +290,14 @@ def sweep(model, *, methods=("penalty-mala", "sgld"), step_sizes=None, batch_siz
     if model.family_name == "linear":
         reference, ref_kind = conjugate_posterior(model), "exact posterior"
     else:
-        reference, ref_kind = reference_draws(model, cache_dir=cache_dir, seed=seed,
+        reference, ref_kind = reference_draws(model, cache_dir=cache_dir, seed=base.seed,
                                               preparation=preparation), \
             "full-data mala run (cached)"
 
-    seeds = spawn_seeds(seed, len(grid))
+    seeds = spawn_seeds(base.seed, len(grid))
     n_workers = worker_count(workers, len(grid))
     local = scheduler == "serial" or (scheduler == "processes" and n_workers == 1)
-    point_settings = dict(settings, chains=chains, draws=draws, warmup=warmup, parallel=local,
-                          preparation=preparation)
+    run_options = {"parallel": local, "preparation": preparation}
     rows = [None] * len(grid)
     known = {(r["method"], r["step_size"], r["batch_size"]): r for r in (done_rows or [])}
     todo = []
@@ -321,7 +313,7 @@ def sweep(model, *, methods=("penalty-mala", "sgld"), step_sizes=None, batch_siz
             on_row(row)
 
     tasks = [(grid[i][0], grid[i][1], grid[i][2] or 2, seeds[i]) for i in todo]
-    run_tasks(_sweep_task, (model, reference, tolerance, point_settings), tasks,
+    run_tasks(_sweep_task, (model, reference, tolerance, base, run_options), tasks,
               scheduler=scheduler, workers=n_workers, on_result=_done,
               progress="sweep" if progress else None)
 

@@ -4,9 +4,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .._validation import positive_number
-from ..mcmc import check_sample_settings, sample
-from ..models import LinearRegression, _passes
+from .._validation import check_seed, positive_number
+from ..mcmc import sample, settings_from
+from ..models import LinearRegression, _passes, check_model
 from ..posterior import conjugate_posterior, find_mode
 from ._ks import ks_check
 
@@ -37,7 +37,8 @@ class TwinCheck:
 
     def as_dict(self):
         return {"passed": self.passed, "noise_sd": self.noise_sd, "response": self.response,
-                "method": self.result.method, "settings": self.result.settings,
+                "method": self.result.method, "settings": self.result.settings.record(),
+                "tuned": self.result.tuned,
                 "ks": self.ks.as_dict(), "notes": list(self.notes),
                 "acceptance_rate": self.result.acceptance_rate,
                 "log_ratio_sd_mean": float(np.nanmean(self.result.stats["log_ratio_sd"]))
@@ -63,9 +64,11 @@ def conjugate_twin(model, *, seed=None):
     ------
     InputError
         When ``model`` is not a regression model or ``seed`` is not a valid seed (an integer
-        >= 0, None, a numpy Generator or SeedSequence); raised before the mode is found.
+        from 0 to 2**64 - 1, None, a numpy Generator or SeedSequence); raised before the mode
+        is found.
     """
-    check_sample_settings(model, seed=seed)
+    check_model(model)
+    seed = check_seed(seed)
     if model.family_name == "linear":
         return model, "user"
     lap = find_mode(model)
@@ -100,18 +103,20 @@ def _linear_predictor(model, beta):
     return out
 
 
-def check_on_twin(model, *, tolerance=1.5, seed=None, **settings):
+def check_on_twin(model, settings=None, *, tolerance=1.5, **options):
     """Run a sampler setting on the conjugate twin and compare with the exact posterior.
 
     Parameters
     ----------
     model : LinearRegression, LogisticRegression or PoissonRegression
+    settings : SamplerSettings, optional
+        The sampler settings to check (default: ``SamplerSettings()``); its ``seed`` also
+        seeds the twin's simulated response (GLMs).
     tolerance : float, default=1.5
         KS distance allowed, in multiples of the noise floor 1.358/sqrt(ESS); finite, > 0.
-    seed : int, numpy.random.Generator or SeedSequence, optional
-        Seeds the twin's simulated response (GLMs) and the sampler.
-    **settings
-        Passed to `tallchain.sample` (method, step_size, batch_size, ...).
+    **options
+        Settings of `tallchain.SamplerSettings` that replace those of ``settings`` (method,
+        step_size, batch_size, seed, ...).
 
     Returns
     -------
@@ -127,14 +132,15 @@ def check_on_twin(model, *, tolerance=1.5, seed=None, **settings):
     ModeNotFoundError
         When the mode of a GLM cannot be found (see `tallchain.find_mode`).
     """
-    check_sample_settings(model, seed=seed, **settings)
+    check_model(model)
+    settings = settings_from(settings, options, owner="check_on_twin()").check_against(model)
     tolerance = check_tolerance(tolerance)
-    twin, response = conjugate_twin(model, seed=seed)
+    twin, response = conjugate_twin(model, seed=settings.seed)
     post = conjugate_posterior(twin)
-    result = sample(twin, seed=seed, **settings)
+    result = sample(twin, settings)
     check = ks_check(result.draws, post, coef_names=twin.coef_names, tolerance=tolerance)
     notes = []
-    if result.settings.get("control_variates") and result.settings.get("cv_order") == 2:
+    if settings.proxy_order_used == 2:
         notes.append("with second-order control variates the linear twin's log-ratio noise is "
                      "exactly zero: this check covers the proposal, tuning and chain, not the "
                      "noise correction; repeat with control_variates = false to test that")

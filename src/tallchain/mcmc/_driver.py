@@ -77,7 +77,7 @@ class ChainJob:
                 c.beta_star, c.aux, c.g_star, c.H_star,
                 p.mass, p.mass_inv, p.mass_inv_chol, int(n_batch), st.rng,
                 st.beta, st.cur_grad, st.cur_loglik, st.adapt, st.pooled, st.counters,
-                i0, n, self.warmup, self.adapt_step, s.target_accept, self.noise_cap,
+                i0, n, self.warmup, self.adapt_step, s.acceptance_target, self.noise_cap,
                 draws_out[k0:k0 + n], stats_out[k0:k0 + n])
             st.iteration += n
             if on_chunk is not None:

@@ -13,16 +13,26 @@ class MethodSpec:
     gradient: int
     ratio: int
     rule: int
-    target_accept: float
+    acceptance_target: float
     summary: str
 
     @property
     def minibatch(self):
+        """Some of the step works on a minibatch of rows."""
         return self.ratio == _chain.BATCH or self.gradient == _chain.BATCH
 
     @property
     def adjusted(self):
         return self.rule != acc.NONE
+
+    @property
+    def penalised(self):
+        """The acceptance test subtracts a noise penalty (penalty-rwm, penalty-mala)."""
+        return self.rule in (acc.PENALTY, acc.PENALTY_CD)
+
+    @property
+    def langevin(self):
+        return self.proposal != _chain.PROPOSAL_RW
 
     @property
     def targets_posterior(self):
@@ -60,5 +70,5 @@ BROKEN_METHODS = {
         "MALA with the proposal-density term dropped (wrong; for power checks only)"),
 }
 
-NOISE_VARIANCE = {"same-batch": _chain.VAR_SAME, "independent-batch": _chain.VAR_INDEPENDENT,
+LOG_RATIO_VARIANCE = {"same-batch": _chain.VAR_SAME, "independent-batch": _chain.VAR_INDEPENDENT,
                   "pooled": _chain.VAR_POOLED}

@@ -24,9 +24,12 @@ class SampleResult:
     warmup_stats : dict of str to ndarray of shape (n_chains, n_warmup)
         The same statistics during warmup.
     coef_names : list of str
-    method : str
-    settings : dict
-        Settings after tuning (step size per chain, batch size, ...).
+    settings : SamplerSettings
+        The settings of the run, as given (checked and standardised).
+    tuned : dict
+        What warmup chose: ``step_size`` (one per chain), ``batch_size`` (minibatch methods),
+        ``acceptance_target`` (the acceptance rate the step tuning aimed at, None for a given
+        step size) and ``mass_matrix`` (the kind of preconditioner used).
     n_rows : int
         Number of data rows N.
     data_evaluations : int
@@ -52,8 +55,8 @@ class SampleResult:
     stats: dict
     warmup_stats: dict
     coef_names: list
-    method: str
-    settings: dict
+    settings: object
+    tuned: dict
     n_rows: int
     data_evaluations: int
     nonfinite_count: int
@@ -64,6 +67,10 @@ class SampleResult:
     warmup_counts: dict = field(default_factory=dict)
     laplace_mode: np.ndarray | None = None
     warnings: list = field(default_factory=list)
+
+    @property
+    def method(self):
+        return self.settings.method
 
     @property
     def n_chains(self):
@@ -142,7 +149,6 @@ def to_arviz(result):
     """
     import arviz as az
 
-
     attrs = {
         "tallchain_version": _package_version(),
         "method": result.method,
@@ -154,8 +160,10 @@ def to_arviz(result):
         "sampling_seconds": float(result.sampling_seconds),
         "completed_draws": int(result.completed_draws),
     }
-    for key, val in result.settings.items():
+    for key, val in result.settings.record().items():
         attrs[f"setting_{key}"] = _attr_value(val)
+    for key, val in result.tuned.items():
+        attrs[f"tuned_{key}"] = _attr_value(val)
     data = {"posterior": {"beta": result.draws},
             "sample_stats": {k: v for k, v in result.stats.items()}}
     if result.warmup_stats and next(iter(result.warmup_stats.values())).shape[1]:

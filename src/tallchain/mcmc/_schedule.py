@@ -6,6 +6,9 @@ import numpy as np
 
 from . import _transition as _chain
 
+# The batch size of the first pilot phase of batch_size="auto".
+PILOT_BATCH = 64
+
 
 def batch_for_target(sd, n, n_rows, target_sd, floor, ceiling):
     """Solve N^2 (1 - m/N) S^2 / m = target^2 for m, with S^2 from the variances seen at n."""
@@ -36,19 +39,19 @@ class Schedule:
     is fixed from then on, so the chain stays valid).
     """
 
-    def __init__(self, spec, batch_size, n_rows, warmup, draws, target_sd, floor, ceiling,
-                 pilot):
-        self.n_rows, self.target_sd = n_rows, target_sd
-        self.floor = min(max(2, int(floor)), n_rows)
-        self.ceiling = max(self.floor, min(int(ceiling), n_rows))
-        total = warmup + draws
-        self.auto = spec.minibatch and batch_size == "auto" and spec.ratio == _chain.BATCH
+    def __init__(self, settings, n_rows, pilot=PILOT_BATCH):
+        spec, warmup = settings.spec, settings.warmup
+        self.n_rows, self.target_sd = n_rows, settings.target_log_ratio_sd
+        self.floor = min(settings.batch_floor, n_rows)
+        self.ceiling = max(self.floor, min(settings.batch_ceiling, n_rows))
+        total = warmup + settings.draws
+        self.auto = settings.auto_batch and spec.ratio == _chain.BATCH
         if not spec.minibatch:
             self.n_batch = 1
-        elif batch_size == "auto":
+        elif settings.batch_size == "auto":
             self.n_batch = int(np.clip(pilot, self.floor, self.ceiling))
         else:
-            self.n_batch = int(batch_size)
+            self.n_batch = settings.batch_size
         if self.auto:
             phase = warmup // 5
             # (end, rebatch after, restart the step tuning after)

@@ -4,7 +4,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .._validation import fail, spd_matrix_and_inverse
+from .._validation import one_of, spd_matrix_and_inverse
 
 
 @dataclass
@@ -20,22 +20,13 @@ class Preconditioner:
 MASS_MATRIX_KINDS = ("laplace", "laplace-diagonal", "identity")
 
 
-def check_mass_matrix(mass_matrix, n_coef):
-    """Refuse a mass-matrix setting that `make_preconditioner` would refuse, without the mode."""
-    if isinstance(mass_matrix, str) or mass_matrix is None:
-        if mass_matrix not in MASS_MATRIX_KINDS:
-            fail("mass_matrix", f"unknown value {mass_matrix!r}",
-                 'use "laplace", "laplace-diagonal", "identity" or an array')
-    else:
-        spd_matrix_and_inverse("mass_matrix", mass_matrix, n_coef,
-                               "give one row and column per coefficient")
-
-
 def make_preconditioner(mass_matrix, n_coef, laplace):
     """Build the preconditioner from a setting: "identity", "laplace", "laplace-diagonal" or an
-    (n_coef, n_coef) symmetric positive definite array."""
-    if isinstance(mass_matrix, str) or mass_matrix is None:
-        check_mass_matrix(mass_matrix, n_coef)
+    (n_coef, n_coef) symmetric positive definite array (checked by `tallchain.SamplerSettings`);
+    ``laplace`` is the `LaplaceApproximation` of the posterior (unused for the identity or an
+    array)."""
+    if isinstance(mass_matrix, str):
+        one_of("mass_matrix", mass_matrix, MASS_MATRIX_KINDS)
         if mass_matrix == "identity":
             mass_inv = np.eye(n_coef)
         elif mass_matrix == "laplace":
