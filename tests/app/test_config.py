@@ -1,6 +1,5 @@
 """The TOML config: resolution of paths and defaults, and one named message per bad input."""
 
-import inspect
 import textwrap
 
 import numpy as np

@@ -37,7 +37,6 @@ from tallchain.checks import ks_check
 from tallchain.exceptions import NoisyLogRatioWarning
 from tallchain.mcmc import _driver, ess_bulk
 from tallchain.mcmc._methods import BROKEN_METHODS, METHODS
-from tallchain.mcmc import _transition as _chain
 
 KS_TOL = 1.5
 WRONG_MALA = "_mala-without-proposal-term"
