@@ -9,6 +9,7 @@ import math
 
 import numpy as np
 
+from ._arrays import row_blocks, spd_inverse, symmetrized
 from .exceptions import InputError
 
 
@@ -22,11 +23,7 @@ def check_finite_matrix(name, a):
     if a.dtype.kind not in "fiu":
         fail(name, f"has dtype {a.dtype}, not numeric", "give a float or integer array")
     if a.dtype.kind == "f":
-        # Chunked so a memory-mapped X is never pulled into memory whole.
-        rows = a.shape[0]
-        step = max(1, 2**22 // max(1, a.size // max(rows, 1)))
-        for start in range(0, rows, step):
-            block = np.asarray(a[start:start + step])
+        for start, block in row_blocks(a, dtype=None):
             bad = ~np.isfinite(block)
             if bad.any():
                 r, *c = np.argwhere(bad)[0]
@@ -100,12 +97,10 @@ def spd_matrix_and_inverse(field, value, n, fix_shape):
     if not np.allclose(m, m.T, rtol=1e-10, atol=1e-12):
         fail(field, "is not symmetric", "give a symmetric positive definite matrix")
     try:
-        chol = np.linalg.cholesky(m)
+        inv = spd_inverse(m)
     except np.linalg.LinAlgError:
         fail(field, "is not positive definite", "give a symmetric positive definite matrix")
-    inv_chol = np.linalg.inv(chol)
-    inv = inv_chol.T @ inv_chol
-    return 0.5 * (m + m.T), 0.5 * (inv + inv.T)
+    return symmetrized(m), inv
 
 
 SEED_LIMIT = 2**64

@@ -32,9 +32,8 @@ import warnings
 from concurrent.futures import CancelledError, ProcessPoolExecutor, as_completed
 from concurrent.futures.process import BrokenProcessPool
 
-import numpy as np
 
-from ._validation import fail
+from ._validation import fail, is_integer
 from .exceptions import WorkerLostError
 
 _SHARED = None
@@ -116,8 +115,7 @@ def check_scheduler(scheduler, *, threads=False):
 
 def check_workers(workers):
     """Refuse a worker count that is not a whole number >= 1 (None means the default)."""
-    if workers is not None and (isinstance(workers, bool)
-                                or not isinstance(workers, (int, np.integer)) or workers < 1):
+    if workers is not None and (not is_integer(workers) or workers < 1):
         fail("workers", f"must be a whole number >= 1, got {workers!r}",
              "give the number of worker processes, or leave it out")
 

@@ -22,6 +22,15 @@ def atomic_write(path, write):
             tmp.unlink()
 
 
+def write_npz(path, **arrays):
+    """`numpy.savez` of ``arrays`` to ``path``, atomically (pickle-free arrays only)."""
+    def _write(tmp):
+        with open(tmp, "wb") as fh:   # a file object: savez adds no ".npz" to the name
+            np.savez(fh, **arrays)
+
+    atomic_write(path, _write)
+
+
 def write_json(path, obj):
     def _write(tmp):
         with open(tmp, "w") as fh:

@@ -22,7 +22,7 @@ from .._validation import check_folder, did_you_mean, fail, one_of
 from ..data import ARRAY_SUFFIXES, DataSource, load_array
 from ..exceptions import InputError
 from ..mcmc import SamplerSettings
-from ..models import FAMILIES, GaussianPrior, LinearRegression
+from ..models import FAMILIES, GaussianPrior, check_noise_sd
 
 
 def _is_number(v):
@@ -335,17 +335,18 @@ def _show(value):
 
 def _model_settings(table, data_table, base_dir):
     family = one_of("model.family", table["family"], tuple(FAMILIES), "family")
-    if "noise_sd" in table and family != "linear":
-        fail("noise_sd", f'is only used by family "linear", not "{family}"', "remove it")
-    if "offset" in data_table and family != "poisson":
-        fail("offset", f'is only used by family "poisson", not "{family}"', "remove it")
+    for key, given in (("noise_sd", table), ("offset", data_table)):
+        users = [name for name, cls in FAMILIES.items() if key in cls.family_options]
+        if key in given and family not in users:
+            fail(key, f'is only used by family {" or ".join(map(repr, users))}, not "{family}"'
+                 .replace("'", '"'), "remove it")
     if "prior_cov" in table and "prior_sd" in table:
         fail("prior cov", "is given together with prior_sd",
              "give one of them: prior_sd for independent coefficients, prior_cov for a full "
              "covariance")
     noise_sd = table.get("noise_sd")
     if noise_sd is not None:
-        LinearRegression(np.zeros((2, 1)), np.zeros(2), noise_sd=noise_sd, check=False)
+        check_noise_sd(noise_sd)
     mean, sd = (_tuple_or_float(table.get(k)) for k in ("prior_mean", "prior_sd"))
     cov = None
     if "prior_cov" in table:

@@ -24,13 +24,12 @@ def build_model(config):
     with config.named_fields():
         dataset = load_data(d.x, d.y, offset=d.offset, columns=d.columns,
                             add_intercept=d.add_intercept, standardize=d.standardize)
-        kw = {"prior": m.prior(), "add_intercept": d.add_intercept,
-              "coef_names": dataset.feature_names}
-        if m.family == "linear" and m.noise_sd is not None:
-            kw["noise_sd"] = m.noise_sd
-        if m.family == "poisson":
-            kw["offset"] = dataset.offset
-        model = FAMILIES[m.family](dataset.X, dataset.y, **kw)
+        family = FAMILIES[m.family]
+        options = {"noise_sd": m.noise_sd, "offset": dataset.offset}
+        model = family(dataset.X, dataset.y, prior=m.prior(), add_intercept=d.add_intercept,
+                       coef_names=dataset.feature_names,
+                       **{k: v for k, v in options.items()
+                          if k in family.family_options and v is not None})
     return model, dataset
 
 

@@ -13,10 +13,10 @@ from dataclasses import dataclass, replace
 import numpy as np
 from scipy import stats
 
-from .._validation import check_flag, check_seed, fail, is_number, positive_int
+from .._validation import check_flag, check_seed, fail, is_integer, is_number, positive_int
 from ..executors import check_scheduler, check_workers, run_tasks, worker_count
 from ..mcmc import sample, settings_from, spawn_seeds
-from ..models import FAMILIES, GaussianPrior, check_model
+from ..models import GaussianPrior, check_model
 from ..posterior import find_mode
 
 
@@ -103,33 +103,11 @@ def ecdf_bands(n_replications, n_points, level=0.05, n_sim=2000, seed=0):
     return z, lo, hi
 
 
-def simulate_response(model, beta, rng):
-    """y ~ model(X, beta): Gaussian with the known noise sd, Bernoulli, or Poisson."""
-    k = int(model.add_intercept)
-    eta = np.empty(model.n_rows)
-    block = 1 << 16
-    for s in range(0, model.n_rows, block):
-        eta[s:s + block] = (np.asarray(model.X[s:s + block], dtype=np.float64) @ beta[k:]
-                            + (beta[0] if k else 0.0) + model.offset[s:s + block])
-    if model.family_name == "linear":
-        return eta + model.noise_sd * rng.standard_normal(model.n_rows)
-    if model.family_name == "logistic":
-        return (rng.random(model.n_rows) < 1.0 / (1.0 + np.exp(-eta))).astype(float)
-    return rng.poisson(np.exp(np.minimum(eta, 30.0))).astype(float)
-
-
 def _replicate(model, prior, n_draws, seed, settings, parallel):
     rng = np.random.default_rng(seed)
     mean, _, cov = prior.resolve(model.n_coef)
     beta = rng.multivariate_normal(mean, cov, method="cholesky")
-    y = simulate_response(model, beta, rng)
-    cls = FAMILIES[model.family_name]
-    kw = {"noise_sd": model.noise_sd} if model.family_name == "linear" else {}
-    if model.family_name == "poisson":
-        kw["offset"] = model.offset
-    names = model.coef_names[int(model.add_intercept):]
-    sim = cls(model.X, y, prior=prior, add_intercept=model.add_intercept, coef_names=names,
-              check=False, **kw)
+    sim = model.with_response(model.simulate(beta, rng), prior=prior)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         r = sample(sim, replace(settings, seed=int(rng.integers(2**63))), parallel=parallel)
@@ -206,8 +184,7 @@ def calibrate(model, settings=None, *, replications=100, thinned_draws=99, prior
     check_model(model)
     replications = positive_int("replications", replications, minimum=2)
     draws = positive_int("thinned_draws", thinned_draws, minimum=1)
-    if isinstance(n_bins, (bool, np.bool_)) or not isinstance(n_bins, (int, np.integer)) \
-            or not 2 <= n_bins <= draws + 1:
+    if not is_integer(n_bins) or not 2 <= n_bins <= draws + 1:
         fail("n_bins", f"must be an integer from 2 to thinned_draws + 1 = {draws + 1}, "
              f"got {n_bins!r}", "give e.g. 10 (ranks take thinned_draws + 1 values)")
     n_bins = int(n_bins)

@@ -2,7 +2,6 @@
 
 import hashlib
 import math
-import os
 import time
 import warnings
 from dataclasses import dataclass, field, replace
@@ -10,10 +9,12 @@ from pathlib import Path
 
 import numpy as np
 
-from .._validation import check_flag, fail, is_number, one_of
+from .._arrays import row_blocks
+from .._validation import check_flag, fail, is_integer, is_number, one_of
 from ..executors import check_scheduler, check_workers, run_tasks, worker_count
 from ..mcmc import METHODS, ess_bulk, prepare, sample, settings_from, spawn_seeds
 from ..models import check_model
+from ..outputs import atomic_write, write_json, write_npz
 from ..posterior import conjugate_posterior
 from ._ks import ks_check
 from ._twin import check_tolerance
@@ -65,9 +66,8 @@ def model_fingerprint(model):
     h = hashlib.sha1()
     h.update(f"{model.family_name}|{model.add_intercept}|{model.noise_sd}|{model.X.shape}|"
              f"{model.X.dtype}".encode())
-    block = 1 << 16
-    for start in range(0, model.n_rows, block):
-        h.update(np.ascontiguousarray(model.X[start:start + block]).tobytes())
+    for _, block in row_blocks(model.X, dtype=None):
+        h.update(np.ascontiguousarray(block).tobytes())
     for arr in (model.y, model.offset, model.prior_mean, model.prior_prec):
         h.update(np.ascontiguousarray(arr).tobytes())
     return h.hexdigest()[:16]
@@ -93,9 +93,7 @@ def reference_draws(model, *, cache_dir=None, draws=20_000, seed=0, preparation=
     flat = r.draws[:, ::thin].reshape(-1, r.draws.shape[2])
     if path is not None:
         path.parent.mkdir(parents=True, exist_ok=True)
-        tmp = path.with_name(path.name + f".tmp-{os.getpid()}.npz")
-        np.savez(tmp, draws=flat)
-        os.replace(tmp, path)
+        write_npz(path, draws=flat)
     return flat
 
 
@@ -177,8 +175,7 @@ def _check_grid(model, methods, step_sizes, batch_sizes):
     if batch_sizes is not None:
         batch_sizes = _grid_values("batch_sizes", batch_sizes, "integers >= 2", "[100, 300]")
         for n in batch_sizes:
-            if isinstance(n, (bool, np.bool_)) or not isinstance(n, (int, np.integer)) \
-                    or not 2 <= n <= model.n_rows:
+            if not is_integer(n) or not 2 <= n <= model.n_rows:
                 fail("batch_sizes", f"must be integers from 2 to {model.n_rows} (N), got {n!r}",
                      "give whole numbers of rows, or leave batch_sizes out (the tuned size)")
     return methods, step_sizes, batch_sizes
@@ -287,7 +284,7 @@ def sweep(model, settings=None, *, methods=("penalty-mala", "sgld"), step_sizes=
             for h in step_sizes:
                 grid.append((m, float(h), None if n is None else int(n)))
 
-    if model.family_name == "linear":
+    if model.closed_form_posterior:
         reference, ref_kind = conjugate_posterior(model), "exact posterior"
     else:
         reference, ref_kind = reference_draws(model, cache_dir=cache_dir, seed=base.seed,
@@ -348,7 +345,6 @@ def recommend(rows):
 
 def write_sweep(result, directory):
     """Write sweep.csv, sweep.json and sweep.png into ``directory``."""
-    from ..outputs import atomic_write, write_json
     from ..plots import plot_sweep
 
     out = Path(directory)

@@ -69,7 +69,7 @@ def conjugate_twin(model, *, seed=None):
     """
     check_model(model)
     seed = check_seed(seed)
-    if model.family_name == "linear":
+    if model.closed_form_posterior:
         return model, "user"
     lap = find_mode(model)
     n = model.n_rows
@@ -78,11 +78,8 @@ def conjugate_twin(model, *, seed=None):
     noise_sd = 1.0 / np.sqrt(max(float(np.mean(-f2)), 1e-12))
     rng = np.random.default_rng(seed)
     beta = lap.mode + 0.1 * rng.multivariate_normal(np.zeros(model.n_coef), model.prior_cov)
-    y = _linear_predictor(model, beta) + noise_sd * rng.standard_normal(n)
-    names = model.coef_names[1:] if model.add_intercept else model.coef_names
-    twin = LinearRegression(model.X, y, noise_sd=noise_sd, prior=model.prior,
-                            add_intercept=model.add_intercept, coef_names=names, check=False)
-    return twin, "prior-predictive"
+    y = model.linear_predictor(beta, with_offset=False) + noise_sd * rng.standard_normal(n)
+    return model.with_response(y, family=LinearRegression, noise_sd=noise_sd), "prior-predictive"
 
 
 def check_tolerance(tolerance):
@@ -90,17 +87,6 @@ def check_tolerance(tolerance):
     return positive_number("tolerance", tolerance,
                            "give the KS distance allowed in multiples of its noise floor, "
                            "e.g. 1.5")
-
-
-def _linear_predictor(model, beta):
-    """X beta (+ intercept) in row blocks, so a memory-mapped X is never read whole."""
-    out = np.empty(model.n_rows)
-    k = int(model.add_intercept)
-    block = 1 << 16
-    for start in range(0, model.n_rows, block):
-        xb = np.asarray(model.X[start:start + block], dtype=np.float64) @ beta[k:]
-        out[start:start + block] = xb + (beta[0] if k else 0.0)
-    return out
 
 
 def check_on_twin(model, settings=None, *, tolerance=1.5, **options):

@@ -9,6 +9,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .._arrays import row_blocks
 from .._validation import check_finite_matrix, fail
 from ..exceptions import DataWarning
 
@@ -170,9 +171,7 @@ def standardize_columns(X, *, intercept, stats=None, memory_fraction=0.5):
 
 
 def _blocks(X):
-    rows = max(1, _BLOCK_BYTES // max(1, 8 * X.shape[1]))
-    for start in range(0, X.shape[0], rows):
-        yield np.asarray(X[start:start + rows], dtype=np.float64)
+    return (block for _, block in row_blocks(X, block_bytes=_BLOCK_BYTES))
 
 
 def _available_memory():

@@ -1,7 +1,6 @@
 """CSV files: parsed once, in chunks, into a memory-mapped .npy cache beside them (private)."""
 
 import csv
-import difflib
 import hashlib
 import itertools
 import json
@@ -12,7 +11,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .._validation import fail
+from .._validation import did_you_mean, fail
 from ..exceptions import DataWarning
 from ._sources import existing_file
 
@@ -114,10 +113,8 @@ def read_csv(path, *, response, columns=None, offset=None, cache=True):
 def _column_index(header, name, field, path):
     if name in header:
         return header.index(name)
-    near = difflib.get_close_matches(name, header, n=1)
-    hint = f'did you mean "{near[0]}"? ' if near else ""
     fail(field, f'column "{name}" is not in the header of {path.name}',
-         f"{hint}the columns are: {', '.join(header)}")
+         f"{did_you_mean(name, header)}the columns are: {', '.join(header)}")
 
 
 def _parse_csv(path, x_cols, r_cols, files):

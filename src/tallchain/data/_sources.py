@@ -1,13 +1,12 @@
 """Where arrays come from: DataSource paths and .npy/.npz files, never unpickled (private)."""
 
-import difflib
 import re
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
-from .._validation import fail
+from .._validation import did_you_mean, fail
 from ..exceptions import InputError
 
 #: File types accepted for a design matrix; ``.csv`` is not accepted for y or offset files.
@@ -85,8 +84,7 @@ def load_array(source, *, field="X"):
             with np.load(path, allow_pickle=False) as archive:
                 key = source.key or _DEFAULT_NPZ_KEY.get(field, field)
                 if key not in archive.files:
-                    near = difflib.get_close_matches(key, archive.files, n=1)
-                    hint = f'did you mean "{path.name}:{near[0]}"? ' if near else ""
+                    hint = did_you_mean(key, archive.files).replace('"', f'"{path.name}:', 1)
                     fail(field, f'{path.name} has no array "{key}" (it holds: '
                          f"{', '.join(archive.files) or 'nothing'})",
                          f'{hint}name the array as "{path.name}:<key>"')

@@ -3,10 +3,11 @@
 from .._validation import fail
 from ._families import FAMILIES, LinearRegression, LogisticRegression, PoissonRegression
 from ._glm import _GLM
+from ._inputs import check_noise_sd
 from ._prior import GaussianPrior
 
 __all__ = ["GaussianPrior", "LinearRegression", "LogisticRegression", "PoissonRegression",
-           "FAMILIES", "check_model"]
+           "FAMILIES", "check_model", "check_noise_sd"]
 
 
 def check_model(model):

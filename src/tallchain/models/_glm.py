@@ -2,6 +2,7 @@
 
 import numpy as np
 
+from .._arrays import row_blocks
 from .._validation import check_finite_matrix, check_flag, fail
 from . import _kernels, _passes
 from ._inputs import (as_design, check_coef_names, coef_vector, design_storage, float_vector,
@@ -133,3 +134,93 @@ class _GLM:
         out = np.empty(idx.shape[0])
         _kernels.batch_loglik(*self.kernel_args, coef_vector(beta, self.n_coef), idx, out)
         return out
+
+    # -- what the family decides ------------------------------------------------------------
+
+    #: Keyword options of the constructor that belong to the family (``noise_sd``, ``offset``).
+    family_options = ()
+    #: The posterior under a Gaussian prior is Gaussian and known in closed form
+    #: (`tallchain.conjugate_posterior`).
+    closed_form_posterior = False
+
+    @property
+    def feature_names(self):
+        """The names of the columns of X (the coefficient names without the intercept)."""
+        return self.coef_names[int(self.add_intercept):]
+
+    def linear_predictor(self, coef, *, with_offset=True):
+        """eta_i = x_i . beta (+ intercept) (+ offset_i) for every row, in row blocks, so a
+        memory-mapped X is never read whole.
+
+        Parameters
+        ----------
+        coef : array-like of shape (n_coef,)
+        with_offset : bool, default=True
+
+        Returns
+        -------
+        ndarray of shape (n_rows,)
+        """
+        beta = coef_vector(coef, self.n_coef)
+        k = int(self.add_intercept)
+        eta = np.empty(self.n_rows)
+        for start, xb in row_blocks(self.X):
+            stop = start + xb.shape[0]
+            eta[start:stop] = xb @ beta[k:] + (beta[0] if k else 0.0)
+            if with_offset:
+                eta[start:stop] += self.offset[start:stop]
+        return eta
+
+    def simulate(self, coef, rng=None):
+        """A response drawn from the model at ``coef``, one value per row of X.
+
+        Parameters
+        ----------
+        coef : array-like of shape (n_coef,)
+        rng : int or numpy.random.Generator, optional
+
+        Returns
+        -------
+        ndarray of shape (n_rows,)
+        """
+        return self._draw_response(self.linear_predictor(coef), np.random.default_rng(rng))
+
+    def with_response(self, y, *, prior=None, family=None, **options):
+        """The same design (X, intercept, column names) with another response.
+
+        X is not copied or scanned again; ``y`` is checked (finite values, and what the family
+        needs, such as labels 0 and 1).
+
+        Parameters
+        ----------
+        y : array-like of shape (n_rows,)
+        prior : GaussianPrior, optional
+            Default: this model's prior.
+        family : model class, optional
+            Another family on the same design (default: this model's). The family's own
+            options (noise sd, offset) carry over only to the same family.
+        **options
+            Family options of the new model (``noise_sd=``, ``offset=``).
+
+        Returns
+        -------
+        LinearRegression, LogisticRegression or PoissonRegression
+        """
+        cls = type(self) if family is None else family
+        kw = {name: getattr(self, name) for name in self.family_options
+              if name in cls.family_options}
+        kw.update(options)
+        new = cls(self.X, y, prior=self.prior if prior is None else prior,
+                  add_intercept=self.add_intercept, coef_names=self.feature_names, check=False,
+                  **kw)
+        check_finite_matrix("y", new.y)
+        new._check_response(new.y)
+        return new
+
+    def check_mode(self, mode, information):
+        """Raise `ModeNotFoundError` when the mode found is not a proper posterior mode for
+        this family (``information`` is the negative log-likelihood Hessian there); the
+        default accepts it."""
+
+    def _draw_response(self, eta, rng):
+        raise NotImplementedError

@@ -5,6 +5,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
+from .._arrays import row_blocks, spd_inverse
 from .._validation import fail
 
 
@@ -54,24 +55,20 @@ def conjugate_posterior(model):
     -------
     GaussianPosterior
     """
-    if getattr(model, "family_name", None) != "linear":
+    if not getattr(model, "closed_form_posterior", False):
         fail("model", f"is {type(model).__name__}",
              "conjugate_posterior needs a LinearRegression (known noise sd)")
     d = model.n_coef
     gram = np.zeros((d, d))
     xty = np.zeros(d)
-    block = max(1, 2**20 // max(1, d))
-    for start in range(0, model.n_rows, block):
-        xb = np.asarray(model.X[start:start + block], dtype=np.float64)
-        yb = model.y[start:start + block] - model.offset[start:start + block]
+    for start, xb in row_blocks(model.X):
+        yb = model.y[start:start + xb.shape[0]] - model.offset[start:start + xb.shape[0]]
         if model.add_intercept:
             xb = np.column_stack([np.ones(xb.shape[0]), xb])
         gram += xb.T @ xb
         xty += xb.T @ yb
     s2 = model.noise_sd**2
     precision = model.prior_prec + gram / s2
-    chol = np.linalg.cholesky(precision)
-    inv_chol = np.linalg.inv(chol)
-    cov = inv_chol.T @ inv_chol
+    cov = spd_inverse(precision)
     mean = cov @ (model.prior_prec @ model.prior_mean + xty / s2)
-    return GaussianPosterior(mean=mean, cov=0.5 * (cov + cov.T), coef_names=list(model.coef_names))
+    return GaussianPosterior(mean=mean, cov=cov, coef_names=list(model.coef_names))

@@ -4,6 +4,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .._arrays import spd_inverse
 from .._validation import one_of, spd_matrix_and_inverse
 
 
@@ -36,8 +37,7 @@ def make_preconditioner(mass_matrix, n_coef, laplace):
         kind = mass_matrix
         mass_inv = np.array(mass_inv, dtype=float)
         chol = np.linalg.cholesky(mass_inv)
-        inv_chol = np.linalg.inv(chol)
-        mass = inv_chol.T @ inv_chol
+        mass = spd_inverse(mass_inv)
     else:
         kind = "given"
         mass, mass_inv = spd_matrix_and_inverse("mass_matrix", mass_matrix, n_coef,

@@ -5,6 +5,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import optimize
 
+from .._arrays import spd_inverse, symmetrized
 from .._validation import fail, positive_int, positive_number
 from ..exceptions import ModeNotFoundError
 from ..models import check_model
@@ -93,18 +94,14 @@ def find_mode(model, *, start=None, tol=1e-9, max_iter=1000):
             f"{grad_norm:.3g} ({res.message}); check the data for separation (logistic) or "
             "huge counts (Poisson), or use a tighter prior")
     info = -model.log_likelihood_hessian(res.x)
-    if model.family_name == "logistic":
-        _check_separation(model, res.x, info)
-    precision = info + model.prior_prec
-    precision = 0.5 * (precision + precision.T)
+    model.check_mode(res.x, info)
+    precision = symmetrized(info + model.prior_prec)
     try:
-        chol = np.linalg.cholesky(precision)
+        cov = spd_inverse(precision)
     except np.linalg.LinAlgError as exc:
         raise ModeNotFoundError("mode finding: the Hessian at the mode is not negative "
                                 "definite; the posterior may be improper or multimodal") from exc
-    inv_chol = np.linalg.inv(chol)
-    cov = inv_chol.T @ inv_chol
-    return LaplaceApproximation(mode=res.x, precision=precision, cov=0.5 * (cov + cov.T),
+    return LaplaceApproximation(mode=res.x, precision=precision, cov=cov,
                                 n_evaluations=n_eval + 1, converged=True, message=str(res.message))
 
 
@@ -127,31 +124,3 @@ def _check_arguments(model, start, tol, max_iter):
         fail("start", f"contains NaN or inf at position {int(np.argmin(np.isfinite(x0)))}",
              "give finite starting values, or leave it out (the prior mean)")
     return x0
-
-
-def _check_separation(model, mode, info):
-    """Raise when logistic data are (quasi-)separated and the prior is too weak to hold the mode.
-
-    Separation shows as a likelihood that flattens along some direction v as |beta| grows: the
-    data curvature v' I(mode) v collapses (here: below 1e-6 of its value at the prior mean,
-    where every row still contributes), while the prior along v is far wider than the distance
-    the optimiser travelled. With an informative prior the posterior is proper and the mode is
-    kept: sampling then works, and no error is raised.
-    """
-    info0 = -model.log_likelihood_hessian(model.prior_mean)
-    evals, evecs = np.linalg.eigh(0.5 * (info0 + info0.T))
-    for lam0, v in zip(evals, evecs.T):
-        # A direction without information even at the prior mean is collinearity (e.g. a
-        # constant column beside the intercept), not separation: the prior decides it.
-        if lam0 <= 1e-8 * evals[-1]:
-            continue
-        collapsed = v @ info @ v < 1e-6 * lam0
-        prior_var = v @ model.prior_cov @ v
-        travelled = (v @ (mode - model.prior_mean)) ** 2
-        if collapsed and prior_var > 100.0 * travelled:
-            raise ModeNotFoundError(
-                "mode finding: the logistic likelihood keeps rising along a direction of the "
-                "coefficients (complete or quasi-complete separation): the maximum likelihood "
-                "estimate does not exist and the flat prior cannot hold the posterior; use an "
-                "informative prior (e.g. prior_sd = 2.5 on standardised features) or drop the "
-                "separating column")
