@@ -2,6 +2,8 @@
 data (find_mode is patched to fail if it is reached), numpy scalars are numbers, and
 check_sample_settings runs the same checks for callers that sample later."""
 
+import re
+
 import numpy as np
 import pytest
 
@@ -35,7 +37,8 @@ BAD = [
     (dict(init=[0.0, np.nan, 0.0]), r"init: has shape \(4, 3\); give \(3,\) or \(4, 3\) finite"),
     (dict(mass_matrix="laplace-diag"), r"mass_matrix: unknown value 'laplace-diag'"),
     (dict(mass_matrix=None), r"mass_matrix: unknown value None"),
-    (dict(mass_matrix=-np.eye(3)), r"mass_matrix: "),
+    (dict(mass_matrix=-np.eye(3)), r"^mass_matrix: is not positive definite; give a symmetric "
+                                   r"positive definite matrix$"),
     (dict(resume=True), r"resume: needs a checkpoint path"),
     (dict(checkpoint_seconds=-1), r"checkpoint_seconds: must be a number > 0, got -1"),
     (dict(preparation="x"), r"preparation: must come from tallchain\.mcmc\.prepare"),
@@ -43,13 +46,22 @@ BAD = [
 ]
 
 
+# The project's message shape: "field: problem; fix", on one line (_validation.fail).
+SHAPE = r"^(?P<field>\w+): [^;\n]+; [^\n]+$"
+
+
 @pytest.mark.parametrize("settings, pattern", BAD)
 def test_a_bad_setting_is_refused_before_any_pass_over_the_data(model, no_data_pass, settings,
                                                                  pattern):
-    with pytest.raises(tc.InputError, match=pattern):
+    with pytest.raises(tc.InputError, match=pattern) as refused:
         tc.sample(model, **settings)
-    with pytest.raises(tc.InputError, match=pattern):
+    with pytest.raises(tc.InputError, match=pattern) as checked:
         check_sample_settings(model, **settings)
+    # Both say the same, in the message shape, naming a setting that was given.
+    assert str(checked.value) == str(refused.value)
+    shape = re.match(SHAPE, str(refused.value))
+    assert shape is not None, str(refused.value)
+    assert shape["field"] in settings
 
 
 @pytest.mark.parametrize("not_a_model", [np.zeros((5, 2)), None, "X.npy"])
@@ -63,8 +75,12 @@ def test_numpy_scalars_are_numbers(model):
     r = tc.sample(model, method="mala", step_size=np.int64(1), chains=1, draws=20, warmup=0,
                   seed=np.int64(2))
     assert r.draws.shape == (1, 20, 3)
-    tc.sample(model, target_log_ratio_sd=np.float32(1.0), chains=1, draws=20, warmup=50,
-              seed=1, control_variates=np.bool_(True))
+    assert r.settings["step_size"] == [1.0] and r.settings["seed"] == 2
+    r = tc.sample(model, target_log_ratio_sd=np.float32(1.0), chains=1, draws=20, warmup=50,
+                  seed=1, control_variates=np.bool_(True))
+    assert r.draws.shape == (1, 20, 3) and np.all(np.isfinite(r.draws))
+    assert r.settings["control_variates"] is True
+    assert r.settings["target_log_ratio_sd"] == 1.0
 
 
 def test_check_sample_settings_names_an_unknown_keyword_and_spends_no_seed(model):
@@ -76,6 +92,7 @@ def test_check_sample_settings_names_an_unknown_keyword_and_spends_no_seed(model
     after_check = tc.sample(model, method="mala", step_size=0.5, seed=rng, chains=1, draws=30, warmup=0)
     fresh = tc.sample(model, method="mala", step_size=0.5, seed=np.random.default_rng(9), chains=1, draws=30,
                       warmup=0)
+    # the same code from the same generator state: bitwise equal
     assert np.array_equal(after_check.draws, fresh.draws)
 
 
