@@ -36,11 +36,6 @@ seed = 3
 """
 
 
-@pytest.fixture
-def rng():
-    return np.random.default_rng(21)
-
-
 def _logistic_data(rng, n=400):
     X = rng.standard_normal((n, 2))
     y = (rng.random(n) < 1.0 / (1.0 + np.exp(-(0.3 + X @ [1.0, -0.5])))).astype(float)
@@ -111,7 +106,7 @@ def test_run_on_worker_processes_writes_the_draws_of_a_run_in_threads(tmp_path, 
     assert code == 0
     a = az.from_netcdf(tmp_path / "threads" / "posterior.nc")["posterior"]["beta"].values
     b = az.from_netcdf(tmp_path / "procs" / "posterior.nc")["posterior"]["beta"].values
-    assert np.array_equal(a, b)
+    assert np.array_equal(a, b)  # the same kernel from the same seeds: bitwise
 
 
 def test_options_override_the_config(tmp_path, rng, capsys):

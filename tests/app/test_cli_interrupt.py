@@ -72,7 +72,7 @@ def test_signal_keeps_draws_and_resume_is_bitwise_identical(tmp_path, sig):
     assert resumed.returncode == 0, resumed.stderr
     a = az.from_netcdf(tmp_path / "full" / "posterior.nc")["posterior"]["beta"].values
     b = az.from_netcdf(tmp_path / "cut" / "posterior.nc")["posterior"]["beta"].values
-    assert np.array_equal(a, b)
+    assert np.array_equal(a, b)  # the same code resumed from its saved state: bitwise
     assert not ckpt.exists()
 
 
@@ -110,5 +110,5 @@ def test_an_interrupt_while_writing_the_outputs_keeps_every_draw_for_resume(tmp_
     assert cli.main(["run", str(tmp_path / "cut.toml"), "--resume", "--quiet"]) == 0
     a = az.from_netcdf(tmp_path / "full" / "posterior.nc")["posterior"]["beta"].values
     b = az.from_netcdf(tmp_path / "cut" / "posterior.nc")["posterior"]["beta"].values
-    assert np.array_equal(a, b)
+    assert np.array_equal(a, b)  # the same code resumed from its saved state: bitwise
     assert not (tmp_path / "cut" / "checkpoint.npz").exists()
