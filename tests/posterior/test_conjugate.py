@@ -17,6 +17,7 @@ import numpy as np
 import pytest
 import statsmodels.api as sm
 from numpy.testing import assert_allclose, assert_array_equal
+from scipy import stats
 from sklearn.datasets import load_diabetes
 from ulps import assert_ulps_close
 
@@ -96,7 +97,8 @@ def test_informative_prior_matches_bishop_3_53_3_54(rng, dtype):
 
 
 def test_marginal_and_sample(rng):
-    X = rng.normal(size=(30, 2))
+    # correlated columns, so that the posterior's correlations matter (-0.9 between slopes)
+    X = rng.normal(size=(30, 2)) @ np.array([[1.0, 0.9], [0.0, 0.3]])
     y = X @ np.array([1.0, -2.0]) + rng.normal(size=30)
     post = tc.conjugate_posterior(tc.LinearRegression(X, y, prior=tc.GaussianPrior(sd=3.0)))
     # scipy.stats.norm(loc, scale) returns loc + scale * 0 and scale * 1: one rounding at most
@@ -106,8 +108,25 @@ def test_marginal_and_sample(rng):
     assert draws.shape == (4000, 3)
     # the same code with the same seed twice: bitwise
     assert_array_equal(draws, post.sample(4000, rng=np.random.default_rng(5)))
-    # mean of 4000 draws: |error| < 5 standard errors (a > 5 sigma miss has probability ~6e-7)
-    assert np.all(np.abs(draws.mean(axis=0) - post.mean) < 5 * post.sd / np.sqrt(4000))
+
+    def mean_within_5_se(d):
+        # |error| < 5 standard errors (a > 5 sigma miss has probability ~6e-7 per coefficient)
+        return np.all(np.abs(d.mean(axis=0) - post.mean) < 5 * post.sd / np.sqrt(len(d)))
+
+    def mahalanobis_pvalue(d):
+        # squared Mahalanobis distances of exact draws are chi-square with n_coef degrees of
+        # freedom (scipy.stats.chi2); KS test, judged at level 1e-3
+        z = np.linalg.solve(np.linalg.cholesky(post.cov), (d - post.mean).T)
+        return stats.kstest(np.sum(z**2, axis=0), stats.chi2(df=3).cdf).pvalue
+
+    assert mean_within_5_se(draws)
+    assert mahalanobis_pvalue(draws) > 1e-3
+    # Power checks: draws shifted by 0.2 sd fail the first test; draws 10% too wide, or with
+    # the correlations dropped (independent marginals), fail the second.
+    assert not mean_within_5_se(draws + 0.2 * post.sd)
+    assert mahalanobis_pvalue(post.mean + 1.1 * (draws - post.mean)) < 1e-3
+    independent = post.mean + post.sd * np.random.default_rng(6).standard_normal((4000, 3))
+    assert mahalanobis_pvalue(independent) < 1e-3
 
 
 def test_rejects_non_linear_models(rng):
