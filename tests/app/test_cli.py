@@ -144,7 +144,13 @@ def test_csv_with_standardize_end_to_end_and_cached(tmp_path, rng, capsys, monke
     assert np.all(np.abs(mean - laplace.mode) < 4 * sd), (mean, laplace.mode, sd)
     assert [r["coef"] for r in rows] == ["intercept", "temp", "load"]
     record = json.loads((tmp_path / "a" / "run.json").read_text())
-    assert record["data"]["standardization"]["scale"][0] == pytest.approx(X[:, 0].std(), rel=1e-6)
+    st = record["data"]["standardization"]
+    # the recorded scale is the column's sd (its rounding is tested in tests/data/test_io.py)
+    assert st["scale"][0] == pytest.approx(X[:, 0].std(), rel=1e-6)
+    # Power check: the coefficients of the standardised columns, as the sampler saw them
+    # (b_z = b_x s, a_z = a_x + b_x . c), are not within 4 sd of the original-scale mode.
+    seen = np.r_[mean[0] + mean[1:] @ np.array(st["center"]), mean[1:] * np.array(st["scale"])]
+    assert not np.all(np.abs(seen - laplace.mode) < 4 * sd), (seen, laplace.mode, sd)
 
     # The second run memory-maps the cache and does not parse the CSV.
     def no_parse(*args, **kwargs):
