@@ -170,6 +170,7 @@ RUN = dict(method="penalty-mala", chains=2, draws=1500, warmup=600, seed=17)
 def _same_run(a, b):
     # The same kernel from the same chain states, wherever it ran: bitwise equal.
     assert np.array_equal(a.draws, b.draws)
+    assert a.stats.keys() == b.stats.keys() and "accepted" in a.stats
     for key in a.stats:
         assert np.array_equal(a.stats[key], b.stats[key], equal_nan=True), key
     assert a.data_evaluations == b.data_evaluations

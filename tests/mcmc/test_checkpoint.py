@@ -69,6 +69,7 @@ def test_two_interrupts_and_two_resumes_equal_the_uninterrupted_run(model, tmp_p
     assert count["n"] > 4
     # the same code resumed from its saved state: bitwise equal, statistics included
     assert np.array_equal(done.draws, full.draws)
+    assert done.stats.keys() == full.stats.keys() and "accepted" in full.stats
     for key in full.stats:
         assert np.array_equal(done.stats[key], full.stats[key], equal_nan=True), key
     assert done.data_evaluations == full.data_evaluations

@@ -279,7 +279,7 @@ def _assert_same_run(a, b):
     assert np.array_equal(a.draws, b.draws)
     for group in ("stats", "warmup_stats"):
         sa, sb = getattr(a, group), getattr(b, group)
-        assert sa.keys() == sb.keys()
+        assert sa.keys() == sb.keys() and "accepted" in sa
         for key in sa:
             assert sa[key].tobytes() == sb[key].tobytes(), (group, key)
     assert a.settings["step_size"] == b.settings["step_size"]
