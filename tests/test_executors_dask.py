@@ -187,12 +187,15 @@ def test_chains_on_a_cluster_or_processes_equal_chains_in_threads(model, threads
     _same_run(tc.sample(model, scheduler="processes", workers=2, **RUN), threads_run)
 
 
-def test_a_worker_killed_mid_run_is_replaced_and_its_chain_rerun(client):
-    # Full-data MALA on 30k rows: a chain's rounds last long enough for a busy worker to be caught.
-    rng = np.random.default_rng(4)
+def _big_logistic(rng):
+    """30k rows: a full-data MALA chain's rounds last long enough for a worker to be caught."""
     X = rng.standard_normal((30_000, 3))
     y = (rng.random(30_000) < 1 / (1 + np.exp(-(X @ [0.3, -0.2, 0.1])))).astype(float)
-    big = tc.LogisticRegression(X, y)
+    return tc.LogisticRegression(X, y)
+
+
+def test_a_worker_killed_mid_run_is_replaced_and_its_chain_rerun(client, rng):
+    big = _big_logistic(rng)
     settings = dict(method="mala", chains=2, draws=3000, warmup=500, seed=3)
     lost, killer = _start_killing_one_busy_worker(client)
     on_cluster = tc.sample(big, scheduler=client, **settings)
@@ -202,13 +205,10 @@ def test_a_worker_killed_mid_run_is_replaced_and_its_chain_rerun(client):
     _same_run(on_cluster, tc.sample(big, **settings))
 
 
-def test_a_run_whose_job_is_lost_with_its_workers_scatters_it_again(client, monkeypatch):
+def test_a_run_whose_job_is_lost_with_its_workers_scatters_it_again(client, rng, monkeypatch):
     # Every worker holding the scattered job is killed while a round runs: Dask cannot recover
     # scattered data, so the pool must scatter the job again and resend the cancelled rounds.
-    rng = np.random.default_rng(4)
-    X = rng.standard_normal((30_000, 3))
-    y = (rng.random(30_000) < 1 / (1 + np.exp(-(X @ [0.3, -0.2, 0.1])))).astype(float)
-    big = tc.LogisticRegression(X, y)
+    big = _big_logistic(rng)
     settings = dict(method="mala", chains=2, draws=1500, warmup=500, seed=3)
     scatters = _count_scatters(monkeypatch)
     lost, killer = _start_killing_the_holders_of(client, "ChainJob-")

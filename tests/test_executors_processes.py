@@ -81,7 +81,7 @@ def test_a_script_runs_workers_under_the_main_guard_and_is_told_so_without_it(tm
                    for line in lines[:-1]), lines
 
 
-def test_the_cli_reports_a_lost_worker_on_one_line(tmp_path, capsys, monkeypatch):
+def test_the_cli_reports_a_lost_worker_on_one_line(tmp_path, rng, capsys, monkeypatch):
     import numpy as np
 
     from tallchain import executors
@@ -91,7 +91,6 @@ def test_the_cli_reports_a_lost_worker_on_one_line(tmp_path, capsys, monkeypatch
         yield  # a generator, as the real one
 
     monkeypatch.setattr(TaskPool, "results", lost)
-    rng = np.random.default_rng(2)
     X = rng.standard_normal((300, 2))
     np.save(tmp_path / "X.npy", X)
     np.save(tmp_path / "y.npy", (rng.random(300) < 0.5).astype(float))

@@ -39,8 +39,7 @@ def _write(tmp_path, name):
 
 
 @pytest.mark.parametrize("sig", [signal.SIGTERM, signal.SIGINT])
-def test_signal_keeps_draws_and_resume_is_bitwise_identical(tmp_path, sig):
-    rng = np.random.default_rng(0)
+def test_signal_keeps_draws_and_resume_is_bitwise_identical(tmp_path, rng, sig):
     X = rng.standard_normal((20_000, 3))
     np.save(tmp_path / "X.npy", X)
     np.save(tmp_path / "y.npy", (rng.random(20_000) < 1 / (1 + np.exp(-X @ [1, -1, 0.5])))
@@ -76,12 +75,11 @@ def test_signal_keeps_draws_and_resume_is_bitwise_identical(tmp_path, sig):
     assert not ckpt.exists()
 
 
-def test_an_interrupt_while_writing_the_outputs_keeps_every_draw_for_resume(tmp_path, capsys,
+def test_an_interrupt_while_writing_the_outputs_keeps_every_draw_for_resume(tmp_path, rng, capsys,
                                                                            monkeypatch):
     from tallchain.app import _cli as cli
     from tallchain.app import _service
 
-    rng = np.random.default_rng(1)
     X = rng.standard_normal((2000, 3))
     np.save(tmp_path / "X.npy", X)
     np.save(tmp_path / "y.npy", (rng.random(2000) < 1 / (1 + np.exp(-X @ [1, -1, 0.5])))

@@ -112,8 +112,7 @@ def test_sweep_finds_the_mode_once(linear, monkeypatch, family):
     assert len(calls) == 1
 
 
-def test_twin_check_passes_a_sound_setting_and_fails_a_biased_one():
-    rng = np.random.default_rng(5)
+def test_twin_check_passes_a_sound_setting_and_fails_a_biased_one(rng):
     X = rng.standard_normal((4000, 3))
     y = (rng.random(4000) < 0.3).astype(float)
     model = tc.LogisticRegression(X, y)
