@@ -63,6 +63,16 @@ def test_correction_is_undefined_beyond_validity_bound(n):
     assert acceptance.validity_bound(400) == pytest.approx(400 / 4, rel=0.15)
 
 
+@pytest.mark.parametrize("n", [5, 41, 401])
+def test_validity_bound_is_the_first_bessel_zero(n):
+    # For odd n the order (n - 3)/2 is an integer and scipy.special.jn_zeros tabulates j_{nu,1}.
+    # validity_bound finds it by brentq (default xtol 2e-12, rtol 4 eps; scipy.optimize
+    # docs): the bound j^2/(n - 1) is good to twice j's relative error.
+    j = special.jn_zeros((n - 3) // 2, 1)[0]
+    rel = 2 * (2e-12 / j + 4 * EPS)
+    np.testing.assert_allclose(acceptance.validity_bound(n), j**2 / (n - 1), rtol=rel, atol=0)
+
+
 def test_exp_minus_u_b_is_unbiased_for_exp_minus_half_sigma2():
     # chi^2 = sigma^2 * Chi2_{n-1}/(n-1): E[e^{-u_B(chi^2)}] = e^{-sigma^2/2} (Ceperley & Dewing
     # 1999). The plug-in e^{-chi^2/2} has mean (1 + sigma^2/(n-1))^{-(n-1)/2} (chi-square mgf),
