@@ -32,7 +32,8 @@ GRID = dict(methods=["penalty-mala", "sgld"], step_sizes=[0.25, 0.5, 1.0, 2.0], 
 
 
 def _numbers(res):
-    """The table's numbers (timings aside), with NaN made comparable."""
+    """The table's numbers (timings aside), with NaN made comparable. Compared exactly: the
+    same kernel from the same per-point seeds, whatever scheduler ran it."""
     def same(v):
         return "nan" if isinstance(v, float) and v != v else v
     return [tuple(same(r[k]) for k in NUMBERS) for r in res.rows]
@@ -135,9 +136,9 @@ def test_resume_after_interrupt_runs_only_the_missing_points(model, local, tmp_p
     def stop_after_three(row):
         seen.append(row)
         if len(seen) == 3:
-            raise KeyboardInterrupt
+            raise KeyboardInterrupt("stop after three rows")
 
-    with pytest.raises(KeyboardInterrupt):
+    with pytest.raises(KeyboardInterrupt, match="^stop after three rows$"):
         sweep(model, scheduler="serial", cache_dir=tmp_path, on_row=stop_after_three, **GRID)
     rerun = []
     res = sweep(model, scheduler="serial", cache_dir=tmp_path, done_rows=seen,
@@ -167,7 +168,9 @@ RUN = dict(method="penalty-mala", chains=2, draws=1500, warmup=600, seed=17)
 
 
 def _same_run(a, b):
+    # The same kernel from the same chain states, wherever it ran: bitwise equal.
     assert np.array_equal(a.draws, b.draws)
+    assert a.stats.keys() == b.stats.keys() and "accepted" in a.stats
     for key in a.stats:
         assert np.array_equal(a.stats[key], b.stats[key], equal_nan=True), key
     assert a.data_evaluations == b.data_evaluations
@@ -184,12 +187,15 @@ def test_chains_on_a_cluster_or_processes_equal_chains_in_threads(model, threads
     _same_run(tc.sample(model, scheduler="processes", workers=2, **RUN), threads_run)
 
 
-def test_a_worker_killed_mid_run_is_replaced_and_its_chain_rerun(client):
-    # Full-data MALA on 30k rows: a chain's rounds last long enough for a busy worker to be caught.
-    rng = np.random.default_rng(4)
+def _big_logistic(rng):
+    """30k rows: a full-data MALA chain's rounds last long enough for a worker to be caught."""
     X = rng.standard_normal((30_000, 3))
     y = (rng.random(30_000) < 1 / (1 + np.exp(-(X @ [0.3, -0.2, 0.1])))).astype(float)
-    big = tc.LogisticRegression(X, y)
+    return tc.LogisticRegression(X, y)
+
+
+def test_a_worker_killed_mid_run_is_replaced_and_its_chain_rerun(client, rng):
+    big = _big_logistic(rng)
     settings = dict(method="mala", chains=2, draws=3000, warmup=500, seed=3)
     lost, killer = _start_killing_one_busy_worker(client)
     on_cluster = tc.sample(big, scheduler=client, **settings)
@@ -199,13 +205,10 @@ def test_a_worker_killed_mid_run_is_replaced_and_its_chain_rerun(client):
     _same_run(on_cluster, tc.sample(big, **settings))
 
 
-def test_a_run_whose_job_is_lost_with_its_workers_scatters_it_again(client, monkeypatch):
+def test_a_run_whose_job_is_lost_with_its_workers_scatters_it_again(client, rng, monkeypatch):
     # Every worker holding the scattered job is killed while a round runs: Dask cannot recover
     # scattered data, so the pool must scatter the job again and resend the cancelled rounds.
-    rng = np.random.default_rng(4)
-    X = rng.standard_normal((30_000, 3))
-    y = (rng.random(30_000) < 1 / (1 + np.exp(-(X @ [0.3, -0.2, 0.1])))).astype(float)
-    big = tc.LogisticRegression(X, y)
+    big = _big_logistic(rng)
     settings = dict(method="mala", chains=2, draws=1500, warmup=500, seed=3)
     scatters = _count_scatters(monkeypatch)
     lost, killer = _start_killing_the_holders_of(client, "ChainJob-")
@@ -233,7 +236,8 @@ def test_a_run_on_a_cluster_interrupted_and_resumed_in_threads_equals_the_whole_
 
     monkeypatch.setattr(_runners.TaskRunner, "run", run)
     ckpt = tmp_path / "run.ckpt.npz"
-    with pytest.raises(SamplingInterrupted) as stop:
+    with pytest.raises(SamplingInterrupted, match=r"^interrupted after \d+ draws per chain$") \
+            as stop:
         tc.sample(model, scheduler=client, checkpoint=ckpt, **RUN)
     assert stop.value.result.completed_draws < RUN["draws"] and ckpt.exists()
     _same_run(tc.sample(model, checkpoint=ckpt, resume=True, **RUN), threads_run)

@@ -25,8 +25,7 @@ dir = "{out}"
 
 
 @pytest.fixture()
-def folder(tmp_path):
-    rng = np.random.default_rng(1)
+def folder(tmp_path, rng):
     X = rng.standard_normal((3000, 2))
     np.save(tmp_path / "X.npy", X)
     np.save(tmp_path / "y.npy", 0.3 + X @ [1.0, -0.5] + rng.standard_normal(3000))

@@ -36,11 +36,6 @@ seed = 3
 """
 
 
-@pytest.fixture
-def rng():
-    return np.random.default_rng(21)
-
-
 def _logistic_data(rng, n=400):
     X = rng.standard_normal((n, 2))
     y = (rng.random(n) < 1.0 / (1.0 + np.exp(-(0.3 + X @ [1.0, -0.5])))).astype(float)
@@ -111,7 +106,7 @@ def test_run_on_worker_processes_writes_the_draws_of_a_run_in_threads(tmp_path, 
     assert code == 0
     a = az.from_netcdf(tmp_path / "threads" / "posterior.nc")["posterior"]["beta"].values
     b = az.from_netcdf(tmp_path / "procs" / "posterior.nc")["posterior"]["beta"].values
-    assert np.array_equal(a, b)
+    assert np.array_equal(a, b)  # the same kernel from the same seeds: bitwise
 
 
 def test_options_override_the_config(tmp_path, rng, capsys):
@@ -151,7 +146,13 @@ def test_csv_with_standardize_end_to_end_and_cached(tmp_path, rng, capsys, monke
     assert np.all(np.abs(mean - laplace.mode) < 4 * sd), (mean, laplace.mode, sd)
     assert [r["coef"] for r in rows] == ["intercept", "temp", "load"]
     record = json.loads((tmp_path / "a" / "run.json").read_text())
-    assert record["data"]["standardization"]["scale"][0] == pytest.approx(X[:, 0].std(), rel=1e-6)
+    st = record["data"]["standardization"]
+    # the recorded scale is the column's sd (its rounding is tested in tests/data/test_io.py)
+    assert st["scale"][0] == pytest.approx(X[:, 0].std(), rel=1e-6)
+    # Power check: the coefficients of the standardised columns, as the sampler saw them
+    # (b_z = b_x s, a_z = a_x + b_x . c), are not within 4 sd of the original-scale mode.
+    seen = np.r_[mean[0] + mean[1:] @ np.array(st["center"]), mean[1:] * np.array(st["scale"])]
+    assert not np.all(np.abs(seen - laplace.mode) < 4 * sd), (seen, laplace.mode, sd)
 
     # The second run memory-maps the cache and does not parse the CSV.
     def no_parse(*args, **kwargs):

@@ -39,8 +39,7 @@ def _write(tmp_path, name):
 
 
 @pytest.mark.parametrize("sig", [signal.SIGTERM, signal.SIGINT])
-def test_signal_keeps_draws_and_resume_is_bitwise_identical(tmp_path, sig):
-    rng = np.random.default_rng(0)
+def test_signal_keeps_draws_and_resume_is_bitwise_identical(tmp_path, rng, sig):
     X = rng.standard_normal((20_000, 3))
     np.save(tmp_path / "X.npy", X)
     np.save(tmp_path / "y.npy", (rng.random(20_000) < 1 / (1 + np.exp(-X @ [1, -1, 0.5])))
@@ -72,16 +71,15 @@ def test_signal_keeps_draws_and_resume_is_bitwise_identical(tmp_path, sig):
     assert resumed.returncode == 0, resumed.stderr
     a = az.from_netcdf(tmp_path / "full" / "posterior.nc")["posterior"]["beta"].values
     b = az.from_netcdf(tmp_path / "cut" / "posterior.nc")["posterior"]["beta"].values
-    assert np.array_equal(a, b)
+    assert np.array_equal(a, b)  # the same code resumed from its saved state: bitwise
     assert not ckpt.exists()
 
 
-def test_an_interrupt_while_writing_the_outputs_keeps_every_draw_for_resume(tmp_path, capsys,
+def test_an_interrupt_while_writing_the_outputs_keeps_every_draw_for_resume(tmp_path, rng, capsys,
                                                                            monkeypatch):
     from tallchain.app import _cli as cli
     from tallchain.app import _service
 
-    rng = np.random.default_rng(1)
     X = rng.standard_normal((2000, 3))
     np.save(tmp_path / "X.npy", X)
     np.save(tmp_path / "y.npy", (rng.random(2000) < 1 / (1 + np.exp(-X @ [1, -1, 0.5])))
@@ -110,5 +108,5 @@ def test_an_interrupt_while_writing_the_outputs_keeps_every_draw_for_resume(tmp_
     assert cli.main(["run", str(tmp_path / "cut.toml"), "--resume", "--quiet"]) == 0
     a = az.from_netcdf(tmp_path / "full" / "posterior.nc")["posterior"]["beta"].values
     b = az.from_netcdf(tmp_path / "cut" / "posterior.nc")["posterior"]["beta"].values
-    assert np.array_equal(a, b)
+    assert np.array_equal(a, b)  # the same code resumed from its saved state: bitwise
     assert not (tmp_path / "cut" / "checkpoint.npz").exists()

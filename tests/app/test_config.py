@@ -21,8 +21,7 @@ family = "logistic"
 
 
 @pytest.fixture
-def folder(tmp_path):
-    rng = np.random.default_rng(5)
+def folder(tmp_path, rng):
     np.save(tmp_path / "X.npy", rng.standard_normal((30, 2)))
     np.save(tmp_path / "y.npy", rng.integers(0, 2, 30).astype(float))
     return tmp_path

@@ -1,24 +1,51 @@
 """Data files: .npy memory maps, .npz keys, CSV parsing and its cache, column checks, scaling.
 
 Reference values are computed with plain NumPy on the same arrays (np.mean, np.std, and the
-linear predictor on both scales for the back-transform).
+linear predictor on both scales for the back-transform). Files are compared bit for bit (a
+value read back is the value written); sums computed in another order are compared in ulps.
 """
 
 import pickle
+import warnings
 from pathlib import Path
 
 import numpy as np
 import pytest
-from numpy.testing import assert_allclose, assert_array_equal
+from numpy.testing import assert_array_equal
+from ulps import assert_ulps_close
 
 from tallchain import data as io
 from tallchain.data import DataSource, _columns, _csv
 from tallchain.exceptions import DataWarning, InputError
 
 
-@pytest.fixture
-def rng():
-    return np.random.default_rng(11)
+def summation_ulps(n_rows, n_blocks=1):
+    """Allowed ulps between a column sum done by NumPy (row after row) and by the package (block
+    sums merged by Chan, Golub & LeVeque's update): summing n terms in any order errs by at
+    most (n - 1)/2 ulps of the sum of |terms| (Higham, Accuracy and Stability of Numerical
+    Algorithms, ch. 4; from memory), so two orders by n - 1; each block merge adds about 3
+    roundings."""
+    return n_rows + 3 * n_blocks
+
+
+def variance_size(X):
+    """The size against which a column's sd is rounded: the root mean square of the column.
+
+    Centring loses eps |mean| per value, so the variance is accurate to about n eps times its
+    condition number sqrt(1 + mean^2 / sd^2) (Chan, Golub & LeVeque, The American Statistician
+    37, 242, 1983; from memory), i.e. in ulps of sd * sqrt(1 + mean^2/sd^2) = rms."""
+    return np.sqrt(np.mean(np.square(X), axis=0))
+
+
+def assert_standardized(Z, X, centred, ulps):
+    """Z has sd 1 (and mean 0 when centred) up to the rounding of two summation orders."""
+    # Z.std = NumPy's sd of x / the package's: the sd's rounding (ulps of rms) in sd units
+    assert_ulps_close(Z.std(axis=0), 1.0, ulps=ulps, scale=variance_size(X) / X.std(axis=0))
+    if centred:
+        # Z's mean is (NumPy's mean of x - the package's centre) / sd: the centre's rounding
+        # (ulps of mean|x|) measured in sd units, plus the rounding of Z's own mean.
+        size = np.abs(X).mean(axis=0) / X.std(axis=0) + np.abs(Z).mean(axis=0)
+        assert_ulps_close(Z.mean(axis=0), 0.0, ulps=ulps, scale=size)
 
 
 def _write_csv(path, header, rows):
@@ -192,8 +219,12 @@ def test_column_stats_merge_blocks_like_numpy(tmp_path, rng, monkeypatch):
     np.save(tmp_path / "X.npy", X)
     monkeypatch.setattr(_columns, "_BLOCK_BYTES", 8 * 3 * 97)  # many uneven blocks
     stats = io.column_stats(io.load_array(tmp_path / "X.npy"))
-    assert_allclose(stats["mean"], X.mean(axis=0), rtol=1e-12)
-    assert_allclose(stats["sd"], X.std(axis=0), rtol=1e-10)
+    ulps = summation_ulps(1001, n_blocks=11)  # 97 rows a block
+    # The mean cancels where |mean| < sd: its rounding is relative to the mean of |x|.
+    assert_ulps_close(stats["mean"], X.mean(axis=0), ulps=ulps, scale=np.abs(X).mean(axis=0))
+    # The sd's rounding grows with |mean| / sd (1e4 in the last column, on purpose).
+    assert_ulps_close(stats["sd"], X.std(axis=0), ulps=ulps, scale=variance_size(X))
+    # min and max select one of the stored values: exact
     assert_array_equal(stats["min"], X.min(axis=0))
     assert_array_equal(stats["max"], X.max(axis=0))
 
@@ -212,34 +243,48 @@ def test_constant_and_duplicate_columns_warn(tmp_path, rng):
     X[:, 3] = X[:, 0]
     np.save(tmp_path / "X.npy", X)
     np.save(tmp_path / "y.npy", rng.integers(0, 2, 40).astype(float))
-    with pytest.warns(DataWarning) as record:
-        io.load_data(tmp_path / "X.npy", tmp_path / "y.npy")
-    texts = [str(w.message) for w in record]
-    assert any("constant column(s) x1" in t and "duplicate the intercept" in t
-               and "drop them from data.columns" in t for t in texts)
-    assert any("duplicate column(s) x3 = x0" in t for t in texts)
+    # Each warning has its own match (pytest re-emits the one the inner block does not match).
+    with pytest.warns(DataWarning, match=r"^duplicate column\(s\) x3 = x0: only their sum is "
+                                         r"informed by the data; drop the copies"):
+        with pytest.warns(DataWarning, match=r"^constant column\(s\) x1: their coefficients are "
+                                             r"informed by the prior alone and duplicate the "
+                                             r"intercept; drop them from data\.columns$"):
+            io.load_data(tmp_path / "X.npy", tmp_path / "y.npy")
 
 
 def test_columns_that_only_share_summaries_are_not_duplicates():
     X = np.array([[0.0, 1.0], [1.0, 0.0], [0.0, 1.0], [1.0, 0.0]])  # same mean, sd, min, max
-    io.check_columns(X, ["a", "b"], intercept=True)
+    stats = io.column_stats(X)
+    assert all(stats[k][0] == stats[k][1] for k in stats)  # the summaries do coincide
+    with warnings.catch_warnings(record=True) as record:
+        warnings.simplefilter("always")
+        io.check_columns(X, ["a", "b"], intercept=True)
+    assert [str(w.message) for w in record] == []
+    # Power check: a true copy of column a is flagged by the same call.
+    with pytest.warns(DataWarning, match=r"^duplicate column\(s\) c = a: only their sum is "
+                                         r"informed by the data; drop the copies"):
+        io.check_columns(np.column_stack([X, X[:, 0]]), ["a", "b", "c"], intercept=True)
 
 
 def test_standardize_back_transform_keeps_the_linear_predictor(rng):
     X = rng.standard_normal((200, 3)) * [2.0, 0.5, 7.0] + [1.0, -4.0, 30.0]
+    ulps = summation_ulps(200)
     for intercept in (True, False):
         Z, st = io.standardize_columns(X, intercept=intercept)
-        assert_allclose(Z.std(axis=0), 1.0, rtol=1e-12)
-        if intercept:
-            assert_allclose(Z.mean(axis=0), 0.0, atol=1e-12)
-        else:
+        assert_standardized(Z, X, intercept, ulps)
+        if not intercept:
             assert_array_equal(st.center, 0.0)
         draws = rng.standard_normal((2, 5, 3 + intercept))
         orig = st.to_original(draws)
         k = int(intercept)
         eta_z = np.einsum("cdj,nj->cdn", draws[..., k:], Z) + (draws[..., :1] if k else 0)
         eta_x = np.einsum("cdj,nj->cdn", orig[..., k:], X) + (orig[..., :1] if k else 0)
-        assert_allclose(eta_x, eta_z, rtol=1e-10, atol=1e-10)
+        # eta on the original scale is a sum of terms (b_j / s_j) x_j and a - sum b_j c_j / s_j
+        # much larger than eta when |c_j| >> s_j: relative to their sum of |terms|, each path
+        # rounds a few times per coefficient (d + 1 = 4 terms, the map back 3 roundings each).
+        size = (np.einsum("cdj,nj->cdn", np.abs(orig[..., k:]), np.abs(X))
+                + (np.abs(orig[..., :1]) + np.abs(draws[..., :1]) if k else 0))
+        assert_ulps_close(eta_x, eta_z, ulps=32, scale=size)
 
 
 def test_standardize_refuses_a_copy_that_does_not_fit(rng, monkeypatch):
@@ -254,8 +299,10 @@ def test_load_data_csv_with_standardize(tmp_path, rng):
     path = _write_csv(tmp_path / "d.csv", ["u", "v", "y"], values.tolist())
     ds = io.load_data(DataSource(path), "y", standardize=True)
     assert ds.feature_names == ["u", "v"] and ds.n_rows == 50
-    assert_allclose(ds.X.mean(axis=0), 0.0, atol=1e-12)
-    assert_allclose(ds.standardization.scale, values[:, :2].std(axis=0), rtol=1e-10)
+    # The CSV holds each value's repr, which reads back to the same float.
+    assert_standardized(ds.X, values[:, :2], True, summation_ulps(50))
+    assert_ulps_close(ds.standardization.scale, values[:, :2].std(axis=0),
+                      ulps=summation_ulps(50), scale=variance_size(values[:, :2]))
 
 
 def test_load_data_rejects_columns_for_arrays(tmp_path, rng):
@@ -268,13 +315,10 @@ def test_load_data_rejects_columns_for_arrays(tmp_path, rng):
         io.load_data(tmp_path / "X3.npy", tmp_path / "y.npy")
 
 
-def test_models_on_memory_mapped_files_pickle_as_paths(tmp_path):
+def test_models_on_memory_mapped_files_pickle_as_paths(tmp_path, rng):
     # Workers of a sweep get the file's path, not a copy of its bytes, and map it again.
-    import pickle
-
     import tallchain as tc
 
-    rng = np.random.default_rng(0)
     np.save(tmp_path / "X.npy", rng.standard_normal((50_000, 4)))
     np.save(tmp_path / "y.npy", (rng.random(50_000) < 0.5).astype(float))
     X = np.load(tmp_path / "X.npy", mmap_mode="r")
@@ -285,6 +329,7 @@ def test_models_on_memory_mapped_files_pickle_as_paths(tmp_path):
     back = pickle.loads(blob)
     assert np.array_equal(back.X, X) and np.array_equal(back.y, y)
     assert isinstance(back.X, np.memmap)
+    # the same kernel on the same bytes: bitwise equal
     assert back.log_likelihood(np.full(5, 0.1)) == model.log_likelihood(np.full(5, 0.1))
     # Power check: an in-memory X is pickled with its bytes.
     assert len(pickle.dumps(tc.LogisticRegression(np.array(X), np.array(y)))) > 1_600_000

@@ -1,5 +1,7 @@
 """Interrupting a run and resuming it gives the draws of the uninterrupted run, bit for bit."""
 
+from pathlib import Path
+
 import numpy as np
 import pytest
 
@@ -17,6 +19,14 @@ def model():
 
 
 SETTINGS = dict(chains=3, draws=1500, warmup=1200, seed=31)
+INTERRUPTED = r"^interrupted after \d+ draws per chain$"
+
+
+def assert_interrupted(exc, checkpoint):
+    """The message counts the draws the result keeps, and names where the checkpoint went."""
+    assert str(exc) == f"interrupted after {exc.result.completed_draws} draws per chain"
+    assert exc.checkpoint is not None and Path(exc.checkpoint) == Path(checkpoint)
+    assert Path(checkpoint).exists()
 
 
 def _interrupt_on_rounds(monkeypatch, rounds):
@@ -47,15 +57,19 @@ def test_two_interrupts_and_two_resumes_equal_the_uninterrupted_run(model, tmp_p
     full = tc.sample(model, method=method, **SETTINGS, **extra)
     ckpt = tmp_path / "run.ckpt.npz"
     count = _interrupt_on_rounds(monkeypatch, {2, 4})
-    with pytest.raises(SamplingInterrupted) as first:
+    with pytest.raises(SamplingInterrupted, match=INTERRUPTED) as first:
         tc.sample(model, method=method, checkpoint=ckpt, **SETTINGS, **extra)
+    assert_interrupted(first.value, ckpt)
     assert first.value.result.completed_draws < SETTINGS["draws"]
-    with pytest.raises(SamplingInterrupted) as second:
+    with pytest.raises(SamplingInterrupted, match=INTERRUPTED) as second:
         tc.sample(model, method=method, checkpoint=ckpt, resume=True, **SETTINGS, **extra)
+    assert_interrupted(second.value, ckpt)
     assert second.value.result.completed_draws >= first.value.result.completed_draws
     done = tc.sample(model, method=method, checkpoint=ckpt, resume=True, **SETTINGS, **extra)
     assert count["n"] > 4
+    # the same code resumed from its saved state: bitwise equal, statistics included
     assert np.array_equal(done.draws, full.draws)
+    assert done.stats.keys() == full.stats.keys() and "accepted" in full.stats
     for key in full.stats:
         assert np.array_equal(done.stats[key], full.stats[key], equal_nan=True), key
     assert done.data_evaluations == full.data_evaluations
@@ -65,8 +79,9 @@ def test_two_interrupts_and_two_resumes_equal_the_uninterrupted_run(model, tmp_p
 
 def test_interrupted_result_keeps_completed_draws(model, tmp_path, monkeypatch):
     _interrupt_on_rounds(monkeypatch, {3})
-    with pytest.raises(SamplingInterrupted) as info:
+    with pytest.raises(SamplingInterrupted, match=INTERRUPTED) as info:
         tc.sample(model, method="mala", checkpoint=tmp_path / "c.npz", **SETTINGS)
+    assert_interrupted(info.value, tmp_path / "c.npz")
     r = info.value.result
     assert 0 < r.completed_draws < SETTINGS["draws"]
     assert r.draws.shape == (3, r.completed_draws, 4) and np.all(np.isfinite(r.draws))
@@ -75,7 +90,7 @@ def test_interrupted_result_keeps_completed_draws(model, tmp_path, monkeypatch):
 def test_resume_with_other_settings_is_refused(model, tmp_path, monkeypatch):
     _interrupt_on_rounds(monkeypatch, {2})
     ckpt = tmp_path / "c.npz"
-    with pytest.raises(SamplingInterrupted):
+    with pytest.raises(SamplingInterrupted, match=INTERRUPTED):
         tc.sample(model, method="mala", checkpoint=ckpt, **SETTINGS)
     with pytest.raises(tc.InputError, match=r"resume: the checkpoint was made with other "
                                             r"settings \(seed\)"):

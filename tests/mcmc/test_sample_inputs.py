@@ -5,6 +5,7 @@ import functools
 
 import numpy as np
 import pytest
+from numpy_glm import mode_sd_tolerance
 
 import tallchain as tc
 from tallchain import executors
@@ -128,7 +129,8 @@ def test_calibrate_takes_generator_and_seedsequence_seeds(linear):
               chains=1, draws=20, warmup=50)
     a = calibrate(linear, seed=np.random.SeedSequence(5), **kw)
     b = calibrate(linear, seed=np.random.SeedSequence(5), **kw)
-    assert np.array_equal(a.ranks, b.ranks)
+    assert a.ranks.shape == (2, linear.n_coef)
+    assert np.array_equal(a.ranks, b.ranks)  # the same code and seed: bitwise
     c = calibrate(linear, seed=np.random.default_rng(5), **kw)
     assert c.ranks.shape == a.ranks.shape
 
@@ -209,7 +211,8 @@ def test_sweep_takes_a_seedsequence(linear):
               scheduler="serial")
     a = sweep(linear, seed=np.random.SeedSequence(9), **kw)
     b = sweep(linear, seed=np.random.SeedSequence(9), **kw)
-    assert a.rows[0]["ks_max"] == b.rows[0]["ks_max"]
+    assert len(a.rows) == len(b.rows) == 1
+    assert a.rows[0]["ks_max"] == b.rows[0]["ks_max"]  # the same code and seed: bitwise
 
 
 # ---------------------------------------------------------------- check_on_twin
@@ -289,7 +292,11 @@ def test_find_mode_accepts_numpy_scalars_and_a_start(logistic):
     ref = tc.find_mode(logistic)
     lap = tc.find_mode(logistic, tol=np.float32(1e-9), max_iter=np.int64(500),
                        start=ref.mode + 0.1)
-    np.testing.assert_allclose(lap.mode, ref.mode, atol=1e-5)
+    # Two L-BFGS runs from different starts each place the mode within its tolerance
+    # (numpy_glm.mode_sd_tolerance, in posterior sds): together within twice that.
+    sd = np.sqrt(np.diag(ref.cov))
+    np.testing.assert_allclose((lap.mode - ref.mode) / sd, 0.0, rtol=0,
+                               atol=2 * mode_sd_tolerance(logistic, ref.mode))
 
 
 # ---------------------------------------------------------------- not a model

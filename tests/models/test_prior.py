@@ -3,47 +3,59 @@ covariance, and its input errors)."""
 
 import numpy as np
 import pytest
-from numpy.testing import assert_allclose, assert_array_equal
+from numpy.testing import assert_array_equal
+from ulps import assert_ulps_close
 
 import tallchain as tc
 from tallchain import InputError
 
+# The diagonal priors below are sd**2 and 1/sd**2: one or two correctly rounded IEEE operations
+# (each within half an ulp), compared with the same closed form written here. 2 ulps.
+ROUNDED_TWICE = 2
 
-@pytest.fixture
-def rng():
-    return np.random.default_rng(1618)
+
+def _assert_diagonal_prior(resolved, mean, sd):
+    got_mean, prec, cov = resolved
+    sd = np.asarray(sd, dtype=float)
+    for arr in (got_mean, prec, cov):
+        assert arr.dtype == np.float64
+    assert_array_equal(got_mean, mean)  # the given values, copied: no arithmetic
+    assert_ulps_close(cov, np.diag(sd**2), ulps=ROUNDED_TWICE)
+    assert_ulps_close(prec, np.diag(1.0 / sd**2), ulps=ROUNDED_TWICE)
 
 
 def test_default_is_isotropic_sd_10():
-    mean, prec, cov = tc.GaussianPrior().resolve(3)
-    assert_array_equal(mean, np.zeros(3))
-    assert_allclose(cov, 100.0 * np.eye(3), rtol=1e-15, atol=0)
-    assert_allclose(prec, 0.01 * np.eye(3), rtol=1e-15, atol=0)
+    _assert_diagonal_prior(tc.GaussianPrior().resolve(3), np.zeros(3), np.full(3, 10.0))
 
 
 def test_isotropic_with_scalar_mean():
-    mean, prec, cov = tc.GaussianPrior(mean=1.5, sd=2.0).resolve(4)
-    assert_array_equal(mean, np.full(4, 1.5))
-    assert_allclose(cov, 4.0 * np.eye(4), rtol=1e-15, atol=0)
-    assert_allclose(prec, 0.25 * np.eye(4), rtol=1e-15, atol=0)
+    _assert_diagonal_prior(tc.GaussianPrior(mean=1.5, sd=2.0).resolve(4), np.full(4, 1.5),
+                           np.full(4, 2.0))
 
 
 def test_per_coefficient_sd_and_mean():
     sd = [1.0, 0.5, 4.0]
-    mean, prec, cov = tc.GaussianPrior(mean=[0.0, -1.0, 2.0], sd=sd).resolve(3)
-    assert_array_equal(mean, [0.0, -1.0, 2.0])
-    assert_allclose(cov, np.diag(np.square(sd)), rtol=1e-15, atol=0)
-    assert_allclose(prec, np.diag(1.0 / np.square(sd)), rtol=1e-15, atol=0)
+    _assert_diagonal_prior(tc.GaussianPrior(mean=[0.0, -1.0, 2.0], sd=sd).resolve(3),
+                           [0.0, -1.0, 2.0], sd)
 
 
 def test_full_covariance(rng):
     a = rng.normal(size=(4, 4))
-    cov_in = a @ a.T + 0.5 * np.eye(4)
+    c = a @ a.T + 0.5 * np.eye(4)
+    cov_in = 0.5 * (c + c.T)  # symmetric to the bit, whatever the BLAS did with a @ a.T
     mean, prec, cov = tc.GaussianPrior(mean=[1.0, 2.0, 3.0, 4.0], cov=cov_in, sd=-1.0).resolve(4)
-    assert_array_equal(cov, cov_in)  # sd is ignored when cov is given
+    # sd is ignored when cov is given; the matrix comes back as given (symmetrising a
+    # symmetric matrix, 0.5 * (m + m), is exact).
+    assert_array_equal(cov, cov_in)
     assert_array_equal(prec, prec.T)
-    assert_allclose(prec @ cov_in, np.eye(4), rtol=0, atol=1e-12)
-    assert_allclose(prec, np.linalg.inv(cov_in), rtol=1e-10, atol=1e-12)
+    # The precision (inverse through the Cholesky factor) against LAPACK's LU inverse: two
+    # backward-stable inversions each err by about n * cond(cov) * eps relative to the size
+    # of the inverse (Higham, Accuracy and Stability of Numerical Algorithms, ch. 14; from
+    # memory), so allow 4 n cond(cov) ulps of max|inverse|; same for the residual prec @ cov - I.
+    ulps = 4 * 4 * np.linalg.cond(cov_in)
+    inv = np.linalg.inv(cov_in)
+    assert_ulps_close(prec, inv, ulps=ulps, scale=np.abs(inv).max())
+    assert_ulps_close(prec @ cov_in, np.eye(4), ulps=ulps, scale=1.0)
     assert_array_equal(mean, [1.0, 2.0, 3.0, 4.0])
 
 
@@ -51,7 +63,7 @@ def test_model_resolves_prior_with_intercept_first(rng):
     X = rng.normal(size=(10, 2))
     y = rng.normal(size=10)
     model = tc.LinearRegression(X, y, prior=tc.GaussianPrior(sd=[5.0, 1.0, 2.0]))
-    assert_allclose(np.diag(model.prior_cov), [25.0, 1.0, 4.0], rtol=1e-15)
+    assert_ulps_close(np.diag(model.prior_cov), [25.0, 1.0, 4.0], ulps=ROUNDED_TWICE)
     with pytest.raises(InputError, match=r"prior sd: has 3 entries, expected 1 or 2"):
         tc.LinearRegression(X, y, add_intercept=False, prior=tc.GaussianPrior(sd=[5.0, 1.0, 2.0]))
     with pytest.raises(InputError, match=r"prior: must be a GaussianPrior, got float"):
@@ -91,9 +103,20 @@ def test_construction_errors(kwargs, match):
 
 
 def test_construction_accepts_numpy_and_integer_values():
-    tc.GaussianPrior(mean=np.float32(1.0), sd=np.int64(3))
-    tc.GaussianPrior(mean=[0, 1], sd=np.array([1.0, 2.0], dtype=np.float32))
-    tc.GaussianPrior(cov=np.eye(3, dtype=np.float32), sd=None)  # sd is ignored with cov
+    # numpy scalars, integers and float32 arrays are numbers: they resolve to the float64
+    # mean, precision and covariance the same values give as Python floats.
+    _assert_diagonal_prior(tc.GaussianPrior(mean=np.float32(1.0), sd=np.int64(3)).resolve(2),
+                           [1.0, 1.0], [3.0, 3.0])
+    _assert_diagonal_prior(
+        tc.GaussianPrior(mean=[0, 1], sd=np.array([1.0, 2.0], dtype=np.float32)).resolve(2),
+        [0.0, 1.0], [1.0, 2.0])
+    mean, prec, cov = tc.GaussianPrior(cov=np.eye(3, dtype=np.float32), sd=None).resolve(3)
+    assert mean.dtype == prec.dtype == cov.dtype == np.float64
+    assert_array_equal(mean, np.zeros(3))
+    assert_array_equal(cov, np.eye(3))  # sd is ignored with cov; float32 ones are exact
+    # the inverse of the identity through its Cholesky factor (the identity): exact up to the
+    # rounding of the LAPACK inverse, 2 ulps
+    assert_ulps_close(prec, np.eye(3), ulps=ROUNDED_TWICE)
 
 
 @pytest.mark.parametrize(("prior", "n", "match"), [
