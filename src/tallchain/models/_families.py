@@ -136,6 +136,7 @@ class LogisticRegression(_GLM):
                     "likelihood estimate does not exist and the flat prior cannot hold the "
                     "posterior; use an informative prior (e.g. prior_sd = 2.5 on standardised "
                     "features) or drop the separating column")
+        return 1   # the Hessian at the prior mean
 
     def _check_response(self, y):
         bad = np.flatnonzero((y != 0) & (y != 1))

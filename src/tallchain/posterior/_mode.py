@@ -23,16 +23,18 @@ class LaplaceApproximation:
     cov : ndarray of shape (n_coef, n_coef)
         Inverse of ``precision``.
     n_evaluations : int
-        Full-data passes spent: objective and gradient evaluations plus one for the Hessian.
-    converged : bool
+        Full-data passes spent: objective and gradient evaluations, one for the Hessian at the
+        mode, and those of the family's check of the mode (one more Hessian for logistic
+        regression, see `LogisticRegression.check_mode`).
     message : str
+        L-BFGS's own account of how it stopped. A `LaplaceApproximation` exists only for a
+        mode that met the tolerance (`find_mode` raises otherwise).
     """
 
     mode: np.ndarray
     precision: np.ndarray
     cov: np.ndarray
     n_evaluations: int
-    converged: bool
     message: str
 
 
@@ -49,7 +51,11 @@ def find_mode(model, *, start=None, tol=1e-9, max_iter=1000):
     start : array-like of shape (n_coef,), optional
         Finite starting point (default: the prior mean).
     tol : float, default=1e-9
-        Gradient tolerance (finite, > 0), relative to the gradient size at the start.
+        Gradient tolerance (finite, > 0), relative to the gradient size at the start: the mode
+        is accepted when the largest gradient component of the negative log posterior is at
+        most ``tol`` times that size, or at most 1e-6 times the objective's size (the
+        objective is a sum over N rows, so its rounding alone makes smaller gradients
+        unreachable on tall data).
     max_iter : int, default=1000
         Most L-BFGS iterations (an integer >= 1).
 
@@ -87,14 +93,14 @@ def find_mode(model, *, start=None, tol=1e-9, max_iter=1000):
                             options={"maxiter": max_iter, "gtol": gtol, "ftol": 0.0,
                                      "maxcor": 20})
     grad_norm = float(np.max(np.abs(res.jac))) if res.jac is not None else np.inf
-    converged = bool(np.all(np.isfinite(res.x)) and grad_norm <= max(gtol, 1e-6 * max(1.0, abs(res.fun))))
-    if not converged:
+    tolerance = max(gtol, 1e-6 * max(1.0, abs(res.fun)))
+    if not (np.all(np.isfinite(res.x)) and grad_norm <= tolerance):
         raise ModeNotFoundError(
             f"mode finding: L-BFGS stopped after {res.nit} iterations with gradient "
             f"{grad_norm:.3g} ({res.message}); check the data for separation (logistic) or "
             "huge counts (Poisson), or use a tighter prior")
     info = -model.log_likelihood_hessian(res.x)
-    model.check_mode(res.x, info)
+    check_passes = model.check_mode(res.x, info)
     precision = symmetrized(info + model.prior_prec)
     try:
         cov = spd_inverse(precision)
@@ -102,7 +108,8 @@ def find_mode(model, *, start=None, tol=1e-9, max_iter=1000):
         raise ModeNotFoundError("mode finding: the Hessian at the mode is not negative "
                                 "definite; the posterior may be improper or multimodal") from exc
     return LaplaceApproximation(mode=res.x, precision=precision, cov=cov,
-                                n_evaluations=n_eval + 1, converged=True, message=str(res.message))
+                                n_evaluations=n_eval + 1 + check_passes,
+                                message=str(res.message))
 
 
 def _check_arguments(model, start, tol, max_iter):
