@@ -400,8 +400,7 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
     # A resumed run takes this state from its checkpoint: no full pass per chain for it.
     needs_full_state = spec.adjusted and spec.ratio == _chain.FULL and not resume
     for st in states if needs_full_state else ():
-        _chain.init_full_state(*model.kernel_args, model.prior_mean, model.prior_prec, st.beta,
-                               st.cur_grad, st.cur_loglik)
+        _chain.init_full_state(model.glm_data, model.prior_arrays, st.arrays)
     n_total = warmup + draws
     all_draws = np.zeros((chains, n_total, model.n_coef))
     all_stats = np.full((chains, n_total, _chain.N_STATS), np.nan)
@@ -421,7 +420,6 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
     schedule = Schedule(spec, batch_size, model.n_rows, warmup, draws,
                                 target_log_ratio_sd, batch_floor, batch_ceiling, _PILOT_BATCH)
     ckpt = None
-    after_warmup = None
     if checkpoint is not None:
         identity = {"method": method, "step_size": str(step_size), "batch_size": str(batch_size),
                     "control_variates": cv, "cv_order": cv_order, "chains": chains,
@@ -432,18 +430,15 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
                     "n_rows": model.n_rows, "n_coef": model.n_coef, "family": model.family_name}
         ckpt = Checkpoint(checkpoint, identity)
         if resume:
-            after_warmup = ckpt.restore(states, schedule, runner)
+            ckpt.restore(states, schedule, runner)
 
     t_sample = time.perf_counter()
     interrupted = False
     try:
-        after_warmup = _driver.drive(runner, states, schedule, checkpoint=ckpt,
-                                     checkpoint_seconds=checkpoint_seconds,
-                                     after_warmup=after_warmup)
+        _driver.drive(runner, states, schedule, checkpoint=ckpt,
+                      checkpoint_seconds=checkpoint_seconds)
     except _driver.Interrupted:
         interrupted = True
-    if after_warmup is None:
-        after_warmup = np.zeros(_chain.N_COUNTERS, dtype=np.int64)
     chosen_batch = schedule.n_batch
     # Starting and stopping workers (seconds for a cluster) is set-up, not sampling: the
     # ESS per second of the draws does not depend on where they ran.
@@ -455,10 +450,9 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
     names = _chain.STAT_NAMES
     stats = {k: all_stats[:, warmup:warmup + n_done, j] for j, k in enumerate(names)}
     warm = {k: all_stats[:, :min(done, warmup), j] for j, k in enumerate(names)}
-    for key in ("accepted", "nonfinite"):
-        stats[key] = stats[key].astype(bool)
-        warm[key] = warm[key].astype(bool)
-    counters = np.sum([st.counters for st in states], axis=0)
+    for key, kind in _chain.STAT_TYPES.items():
+        stats[key] = stats[key].astype(kind)
+        warm[key] = warm[key].astype(kind)
     settings = {
         "method": method,
         "step_size": [float(math.exp(st.adapt[_chain.AD_LOG_H])) for st in states],
@@ -481,13 +475,7 @@ def sample(model, *, method="penalty-mala", step_size="auto", batch_size="auto",
     result = SampleResult(
         draws=all_draws[:, warmup:warmup + n_done].copy(), stats=stats, warmup_stats=warm,
         coef_names=list(model.coef_names), method=method, settings=settings,
-        n_rows=model.n_rows, data_evaluations=int(counters[_chain.CT_DATA_EVALS]),
-        nonfinite_count=int(counters[_chain.CT_NONFINITE] - after_warmup[_chain.CT_NONFINITE]),
-        cd_fallback_count=int(counters[_chain.CT_CD_FALLBACK]
-                              - after_warmup[_chain.CT_CD_FALLBACK]),
-        warmup_counts={"nonfinite": int(after_warmup[_chain.CT_NONFINITE]),
-                       "cd_fallback": int(after_warmup[_chain.CT_CD_FALLBACK])},
-        setup_seconds=setup_seconds, sampling_seconds=sampling_seconds,
+        n_rows=model.n_rows, setup_seconds=setup_seconds, sampling_seconds=sampling_seconds,
         completed_draws=n_done, laplace_mode=None if laplace is None else laplace.mode)
     if interrupted:
         raise SamplingInterrupted(result, checkpoint)
@@ -515,10 +503,11 @@ def _noise_advice(result, spec):
         msgs.append(f"the batch log-ratio terms are far from Gaussian (median |skewness| "
                     f"{skew:.2f}, excess kurtosis {kurt:.2f}; error term {err:.3f}); the penalty "
                     "correction may be biased: use a larger batch_size or control_variates=True")
-    if result.cd_fallback_count:
-        k = result.cd_fallback_count
-        msgs.append(f"{k} iteration{'s were' if k > 1 else ' was'} beyond the Ceperley-Dewing "
-                    "validity bound and used the plug-in correction; use a larger batch_size")
+    if result.penalty_beyond_bound_count:
+        k = result.penalty_beyond_bound_count
+        msgs.append(f"{k} iteration{'s were' if k > 1 else ' was'} beyond the validity bound of "
+                    "the Ceperley-Dewing penalty and used the plug-in sigma^2/2 instead; use a "
+                    "larger batch_size")
     if msgs:
         result.warnings.extend(msgs)
         warnings.warn("; and ".join(msgs), NoisyLogRatioWarning, stacklevel=3)
