@@ -115,7 +115,7 @@ def run_one(problem, target, seed, chains, draws, warmup, cv_order=1):
                 rms=float(np.sqrt(np.nanmean(sd**2))),
                 ess=float(np.min(ess)), eff=float(np.min(ess)) / evals_draws * 1e6,
                 ess_s=float(np.min(ess)) / r.sampling_seconds, ks=ks,
-                fallback=100.0 * r.cd_fallback_count / (chains * draws), per_row=per_row)
+                fallback=100.0 * r.penalty_beyond_bound_count / (chains * draws), per_row=per_row)
 
 
 def mean_se(values):
@@ -155,7 +155,7 @@ def main():
 
     header = ("| problem | target | batch n | acceptance | acc / pred | "
               "log-ratio sd mean, rms | min ESS | "
-              "ESS per 1e6 evals | ESS/s (run) | max KS/floor | CD fallback % |")
+              "ESS per 1e6 evals | ESS/s (run) | max KS/floor | penalty beyond bound % |")
     lines = [header, "|---" * (header.count("|") - 1) + "|"]
     curves, checks, per_rows = {}, [], set()
     for prob in problems(rng, ref_draws):
