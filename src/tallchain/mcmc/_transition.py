@@ -38,14 +38,15 @@ Tuning         adapt_step, n_warmup, target_accept,           ``_driver.ChainJob
 ChainArrays    beta, cur_grad, cur_loglik, adapt, pooled      ``_driver.ChainState.arrays``
 =============  =============================================  ================================
 
-An iteration is a sequence of small jitted steps: the gradient at the current point
-(`_gradient_at_current`), the proposal (`_propose`), the Metropolis-Hastings test
-(`_metropolis_test`: the proposal-density term c, the log target ratio on all rows or on a
-batch with its variance and penalty, the accept draw), the move, the step-size adaptation and
-the record of the iteration's statistics. Work arrays are allocated once per call
-(`_buffers`), never per iteration.
+An iteration reads: the gradient the proposal drifts along (cached, or `_batch_gradient` on a
+fresh batch), the proposal (`_propose`), the gradient at the proposal and the proposal-density
+term c (`_langevin_log_density` twice), the log target ratio on all rows or on a batch with
+its variance and penalty (`_noise`), the accept draw (`_accept`), the move (`_move`), the
+step-size adaptation (`_adapt_step_size`) and the record of the iteration's statistics
+(`_record`). `run_chain` calls the GLM and estimator kernels itself and the steps in between
+are leaves that take arrays (see the note above `_buffers` for why). Work arrays are
+allocated once per call (`_buffers`), never per iteration.
 """
-
 
 import math
 from collections import namedtuple
@@ -148,9 +149,16 @@ _Buffers = namedtuple("_Buffers", ["prop", "delta", "delta_prop", "grad", "grad_
 
 # What the log target ratio step returns: the estimate, its sd, the penalty subtracted from the
 # log acceptance ratio and whether Ceperley-Dewing fell back to sigma^2/2, the batch terms'
-# skewness and kurtosis, the rows read, and the full-data log-likelihood at the proposal.
+# skewness and kurtosis.
 _LogRatio = namedtuple("_LogRatio", ["value", "sd", "penalty", "beyond_bound", "skew",
-                                     "kurtosis", "rows_read", "loglik_prop"])
+                                     "kurtosis"])
+
+# How the steps take their arguments is set by what numba does per call: a function counts a
+# reference (an atomic add) for every array it holds across a call to another kernel, and for
+# every array member of a tuple it reads. So the loop reads the groups' members once per
+# kernel call, outside the loop, and calls the kernels itself; the steps it calls in between
+# are leaves that take arrays. (Steps that took the groups and called the kernels cost 1.2x
+# the transition of the single-body loop at N = 10^4.)
 
 
 @jit
@@ -163,14 +171,14 @@ def _buffers(d, n_batch):
 
 
 @jit
-def _batch_gradient(data, prior, rows, beta, delta, idx, buf, out):
+def _batch_gradient(data, prior, rows, beta, delta, idx, tmp, work, out):
     """Unbiased estimate of grad log pi(beta) from the rows in idx:
     grad log p(beta) + sum_i grad q_i(beta) + (N/n) sum_{i in idx} [grad l_i - grad q_i].
-    ``delta`` is beta - beta* (the row cache's reference point)."""
+    ``delta`` is beta - beta* (the row cache's reference point); ``tmp`` (n_coef,) and
+    ``work`` (3, n) are scratch."""
     n_rows = data.X.shape[0]
     d = beta.shape[0]
-    tmp = buf.tmp
-    cv_gradient_rows(data, rows, delta, idx, tmp, buf.work)
+    cv_gradient_rows(data, rows, delta, idx, tmp, work)
     scale = n_rows / idx.shape[0]
     if rows.order > 0:
         proxy_gradient_sum(rows, beta, out)
@@ -211,39 +219,34 @@ def init_full_state(data, prior, state):
 @jit
 def init_carried_gradient(data, prior, rows, state, rng, n_batch):
     """Draw the starting batch of a batch-as-state chain and its gradient at the start."""
-    beta = state.beta
+    beta, beta_star = state.beta, rows.beta_star
     buf = _buffers(beta.shape[0], n_batch)
-    draw_batch(rng, data.X.shape[0], buf.idx_grad)
-    for a in range(beta.shape[0]):
-        buf.delta[a] = beta[a] - rows.beta_star[a]
-    _batch_gradient(data, prior, rows, beta, buf.delta, buf.idx_grad, buf, state.cur_grad)
+    delta, idx = buf.delta, buf.idx_grad
+    draw_batch(rng, data.X.shape[0], idx)
+    _difference(beta, beta_star, delta)
+    _batch_gradient(data, prior, rows, beta, delta, idx, buf.tmp, buf.work, state.cur_grad)
 
 
 @jit
-def _gradient_at_current(data, prior, rows, codes, state, rng, buf):
-    """buf.grad = the gradient the proposal drifts along (Langevin only); returns rows read."""
-    read = 0
-    if codes.proposal == PROPOSAL_RW:
-        pass
-    elif codes.gradient == FULL or codes.gradient == CARRIED:
-        buf.grad[:] = state.cur_grad
-    else:
-        beta = state.beta
-        draw_batch(rng, data.X.shape[0], buf.idx_grad)
-        for a in range(beta.shape[0]):
-            buf.delta[a] = beta[a] - rows.beta_star[a]
-        _batch_gradient(data, prior, rows, beta, buf.delta, buf.idx_grad, buf, buf.grad)
-        read = buf.idx_grad.shape[0]
-    return read
+def _difference(a, b, out):
+    """out = a - b, elementwise."""
+    for j in range(out.shape[0]):
+        out[j] = a[j] - b[j]
 
 
 @jit
-def _propose(mass, codes, beta_star, beta, h, rng, buf):
-    """buf.prop = beta + sqrt(h) L xi (+ (h/2) M^{-1} buf.grad for Langevin), xi ~ N(0, I);
-    buf.delta and buf.delta_prop = beta and beta' minus the reference point beta*."""
+def _copy(src, dst):
+    """dst = src, elementwise."""
+    for j in range(dst.shape[0]):
+        dst[j] = src[j]
+
+
+@jit
+def _propose(mass, langevin, beta, grad, h, rng, xi, prop):
+    """prop = beta + sqrt(h) L xi (+ (h/2) M^{-1} grad for Langevin), xi ~ N(0, I) drawn into
+    ``xi``; L L^T = M^{-1}."""
     d = beta.shape[0]
-    langevin = codes.proposal != PROPOSAL_RW
-    chol, m_inv, xi, prop, grad = mass.mass_inv_chol, mass.mass_inv, buf.xi, buf.prop, buf.grad
+    chol, m_inv = mass.mass_inv_chol, mass.mass_inv
     for a in range(d):
         xi[a] = rng.standard_normal()
     sqrt_h = math.sqrt(h)
@@ -257,87 +260,22 @@ def _propose(mass, codes, beta_star, beta, h, rng, buf):
             for b in range(d):
                 drift += m_inv[a, b] * grad[b]
             prop[a] += 0.5 * h * drift
-    for a in range(d):
-        buf.delta[a] = beta[a] - beta_star[a]
-        buf.delta_prop[a] = prop[a] - beta_star[a]
 
 
 @jit
-def _proposal_term(data, prior, rows, mass, codes, state, rng, buf, h):
-    """c = log q(beta | beta') - log q(beta' | beta), with buf.grad_prop the gradient at beta'
-    (all rows, or the gradient batch: the same one, or a fresh one when it is carried).
-    Returns (c, full-data log-likelihood at beta' or 0, rows read)."""
-    prop = buf.prop
-    n_rows = data.X.shape[0]
-    c = 0.0
-    loglik_prop = 0.0
-    read = 0
-    if codes.proposal != PROPOSAL_RW:
-        if codes.gradient == FULL:
-            loglik_prop = full_loglik_grad(data, prop, buf.grad_prop, False, 0, n_rows)
-            add_prior_grad(prior, prop, buf.grad_prop)
-            read = n_rows
-        else:
-            if codes.gradient == CARRIED:
-                draw_batch(rng, n_rows, buf.idx_grad)
-            _batch_gradient(data, prior, rows, prop, buf.delta_prop, buf.idx_grad, buf,
-                            buf.grad_prop)
-            read = buf.idx_grad.shape[0]
-        if codes.proposal == PROPOSAL_LANGEVIN:
-            c = (_langevin_log_density(state.beta, prop, buf.grad_prop, h, mass, buf.z)
-                 - _langevin_log_density(prop, state.beta, buf.grad, h, mass, buf.z))
-    return c, loglik_prop, read
-
-
-@jit
-def _full_log_ratio(data, codes, state, buf, prior_diff, loglik_prop):
-    """The exact log target ratio; the log-likelihood at beta' is reused from the proposal
-    term when full-data MALA computed it there."""
-    read = 0
-    if not (codes.proposal != PROPOSAL_RW and codes.gradient == FULL):
-        loglik_prop = full_loglik(data, buf.prop, False, 0, data.X.shape[0])
-        read = data.X.shape[0]
-    return _LogRatio(prior_diff + loglik_prop - state.cur_loglik[0], 0.0, 0.0, False,
-                     math.nan, math.nan, read, loglik_prop)
-
-
-@jit
-def _pooled_variance(tuning, pooled, it, var):
-    """The pooled variance estimate: the mean of the batch estimates over the second half of
-    warmup, when step and batch have settled; the batch's own estimate until there is one."""
-    if it < tuning.n_warmup and 2 * it >= tuning.n_warmup and math.isfinite(var):
-        pooled[0] += var
-        pooled[1] += 1.0
-    if pooled[1] > 0.0:
-        var = pooled[0] / pooled[1]
-    return var
-
-
-@jit
-def _batch_log_ratio(data, rows, codes, tuning, state, rng, buf, it, prior_diff):
-    """The minibatch estimate of the log target ratio on a batch S2 drawn independently of
-    the gradient batch (METHODS.md sections 2-4), its variance and the noise penalty."""
-    n_rows = data.X.shape[0]
-    n_batch = buf.idx_ratio.shape[0]
-    draw_batch(rng, n_rows, buf.idx_ratio)
-    batch_residual_diffs(data, rows, buf.delta_prop, buf.delta, buf.idx_ratio, buf.diffs,
-                         buf.work)
-    read = n_batch
-    est, var, skew, kurt = scaled_sum_and_variance(buf.diffs, n_rows)
-    log_ratio = prior_diff + est
-    if rows.order > 0:
-        log_ratio += proxy_loglik_diff_sum(rows, buf.prop, state.beta)
-    if codes.variance == VAR_INDEPENDENT:
-        draw_batch(rng, n_rows, buf.idx_ratio)
-        batch_residual_diffs(data, rows, buf.delta_prop, buf.delta, buf.idx_ratio, buf.diffs,
-                             buf.work)
-        read += n_batch
-        _, var, _, _ = scaled_sum_and_variance(buf.diffs, n_rows)
-    elif codes.variance == VAR_POOLED:
-        var = _pooled_variance(tuning, state.pooled, it, var)
+def _noise(codes, tuning, pooled, it, var, n_batch):
+    """(sd, penalty, fell back) of a batch estimate with variance estimate ``var``. A pooled
+    variance is the mean of the batch estimates over the second half of warmup, when step and
+    batch have settled (the batch's own estimate until there is one), and is then frozen."""
+    if codes.variance == VAR_POOLED:
+        if it < tuning.n_warmup and 2 * it >= tuning.n_warmup and math.isfinite(var):
+            pooled[0] += var
+            pooled[1] += 1.0
+        if pooled[1] > 0.0:
+            var = pooled[0] / pooled[1]
     sd = math.sqrt(var) if var >= 0.0 else math.nan
     penalty, beyond = noise_penalty(codes.rule, var, n_batch, codes.variance == VAR_POOLED)
-    return _LogRatio(log_ratio, sd, penalty, beyond, skew, kurt, read, 0.0)
+    return sd, penalty, beyond
 
 
 @jit
@@ -353,40 +291,18 @@ def _accept(rng, log_ratio, c, penalty):
 
 
 @jit
-def _metropolis_test(data, prior, rows, mass, codes, tuning, state, rng, buf, h, it):
-    """The accept step of buf.prop: (log ratio record, log acceptance probability, accepted,
-    non-finite, rows read). Without an accept rule (SGLD) the move is always taken."""
-    # One return of variables typed on every path (numba unifies the types of returned tuples
-    # poorly when some hold literal constants).
-    ratio = _LogRatio(math.nan, math.nan, 0.0, False, math.nan, math.nan, 0, 0.0)
-    log_alpha = 0.0
-    accepted = True
-    nonfinite = False
-    read = 0
-    if codes.rule != NONE:
-        c, loglik_prop, read = _proposal_term(data, prior, rows, mass, codes, state, rng, buf,
-                                              h)
-        prior_diff = prior_logpdf_diff(prior, buf.prop, state.beta)
-        if codes.ratio == FULL:
-            ratio = _full_log_ratio(data, codes, state, buf, prior_diff, loglik_prop)
-        else:
-            ratio = _batch_log_ratio(data, rows, codes, tuning, state, rng, buf, it,
-                                     prior_diff)
-        log_alpha, accepted, nonfinite = _accept(rng, ratio.value, c, ratio.penalty)
-        read += ratio.rows_read
-    return ratio, log_alpha, accepted, nonfinite, read
-
-
-@jit
-def _move(codes, state, buf, loglik_prop):
+def _move(codes, beta, prop, cur_grad, grad_prop, cur_loglik, loglik_prop):
     """Take the proposal: beta = beta', with what is cached at beta'."""
-    state.beta[:] = buf.prop
+    for a in range(beta.shape[0]):
+        beta[a] = prop[a]
     if codes.gradient == FULL and codes.rule != NONE:
-        state.cur_loglik[0] = loglik_prop
+        cur_loglik[0] = loglik_prop
         if codes.proposal != PROPOSAL_RW:
-            state.cur_grad[:] = buf.grad_prop
+            for a in range(beta.shape[0]):
+                cur_grad[a] = grad_prop[a]
     elif codes.gradient == CARRIED:
-        state.cur_grad[:] = buf.grad_prop
+        for a in range(beta.shape[0]):
+            cur_grad[a] = grad_prop[a]
 
 
 @jit
@@ -463,18 +379,74 @@ def run_chain(data, prior, rows, mass, codes, tuning, state, rng, n_batch, first
     iterations far from the mode lingered in it for a thousand iterations, so short warmups
     ended at too large a step, acceptance 0.31 instead of 0.57.)
     """
-    buf = _buffers(state.beta.shape[0], n_batch)
+    beta, cur_grad, cur_loglik, adapt, pooled = state
+    buf = _buffers(beta.shape[0], n_batch)
+    prop, delta, delta_prop, grad, grad_prop, tmp, z, xi, idx_grad, idx_ratio, diffs, work = buf
+    beta_star, n_rows = rows.beta_star, data.X.shape[0]
+    langevin = codes.proposal != PROPOSAL_RW
     for k in range(draws_out.shape[0]):
         it = first + k
-        h = math.exp(state.adapt[AD_LOG_H])
-        read = _gradient_at_current(data, prior, rows, codes, state, rng, buf)
-        _propose(mass, codes, rows.beta_star, state.beta, h, rng, buf)
-        ratio, log_alpha, accepted, nonfinite, n = _metropolis_test(
-            data, prior, rows, mass, codes, tuning, state, rng, buf, h, it)
+        h = math.exp(adapt[AD_LOG_H])
+        read = 0
+        # the gradient the Langevin proposal drifts along: cached, or on a fresh batch S
+        if langevin and codes.gradient == BATCH:
+            draw_batch(rng, n_rows, idx_grad)
+            _difference(beta, beta_star, delta)
+            _batch_gradient(data, prior, rows, beta, delta, idx_grad, tmp, work, grad)
+            read += n_batch
+        elif langevin:
+            _copy(cur_grad, grad)
+        _propose(mass, langevin, beta, grad, h, rng, xi, prop)
+        _difference(beta, beta_star, delta)
+        _difference(prop, beta_star, delta_prop)
+        ratio = _LogRatio(math.nan, math.nan, 0.0, False, math.nan, math.nan)
+        log_alpha, accepted, nonfinite, loglik_prop, c = 0.0, True, False, 0.0, 0.0
+        if codes.rule != NONE:
+            # the gradient at beta' (all rows; the batch S, or a fresh one when it is carried)
+            # and the proposal-density term c
+            if langevin and codes.gradient == FULL:
+                loglik_prop = full_loglik_grad(data, prop, grad_prop, False, 0, n_rows)
+                add_prior_grad(prior, prop, grad_prop)
+                read += n_rows
+            elif langevin:
+                if codes.gradient == CARRIED:
+                    draw_batch(rng, n_rows, idx_grad)
+                _batch_gradient(data, prior, rows, prop, delta_prop, idx_grad, tmp, work,
+                                grad_prop)
+                read += n_batch
+            if codes.proposal == PROPOSAL_LANGEVIN:
+                # c = log q(beta | beta') - log q(beta' | beta) (METHODS.md section 3)
+                c = (_langevin_log_density(beta, prop, grad_prop, h, mass, z)
+                     - _langevin_log_density(prop, beta, grad, h, mass, z))
+            prior_diff = prior_logpdf_diff(prior, prop, beta)
+            if codes.ratio == FULL:
+                # exact; full-data MALA has the log-likelihood at beta' from its gradient pass
+                if not (langevin and codes.gradient == FULL):
+                    loglik_prop = full_loglik(data, prop, False, 0, n_rows)
+                    read += n_rows
+                ratio = _LogRatio(prior_diff + loglik_prop - cur_loglik[0], 0.0, 0.0, False,
+                                  math.nan, math.nan)
+            else:
+                # on a batch S2 independent of S, with its variance (METHODS.md sections 2, 4)
+                draw_batch(rng, n_rows, idx_ratio)
+                batch_residual_diffs(data, rows, delta_prop, delta, idx_ratio, diffs, work)
+                read += n_batch
+                est, var, skew, kurt = scaled_sum_and_variance(diffs, n_rows)
+                value = prior_diff + est
+                if rows.order > 0:
+                    value += proxy_loglik_diff_sum(rows, prop, beta)
+                if codes.variance == VAR_INDEPENDENT:
+                    draw_batch(rng, n_rows, idx_ratio)
+                    batch_residual_diffs(data, rows, delta_prop, delta, idx_ratio, diffs, work)
+                    read += n_batch
+                    _, var, _, _ = scaled_sum_and_variance(diffs, n_rows)
+                sd, penalty, beyond = _noise(codes, tuning, pooled, it, var, n_batch)
+                ratio = _LogRatio(value, sd, penalty, beyond, skew, kurt)
+            log_alpha, accepted, nonfinite = _accept(rng, ratio.value, c, ratio.penalty)
         if accepted:
-            _move(codes, state, buf, ratio.loglik_prop)
+            _move(codes, beta, prop, cur_grad, grad_prop, cur_loglik, loglik_prop)
         if it < tuning.n_warmup and tuning.adapt_step:
-            _adapt_step_size(tuning, codes.rule, state.adapt, it, log_alpha, ratio.sd)
-        draws_out[k, :] = state.beta
+            _adapt_step_size(tuning, codes.rule, adapt, it, log_alpha, ratio.sd)
+        _copy(beta, draws_out[k])
         _record(stats_out[k], codes.rule, ratio, log_alpha, accepted, nonfinite, h, n_batch,
-                read + n)
+                read)

@@ -161,12 +161,16 @@ def row_dot(X, i, w):
 
 
 @jit
-def linear_predictor(data, i, beta):
-    """eta_i = [beta_0] + sum_j X[i, j] beta_{j + intercept} + offset_i."""
-    acc = row_dot(data.X, i, beta[data.intercept:])
-    if data.intercept:
+def linear_predictor(X, offset, intercept, i, beta):
+    """eta_i = [beta_0] + sum_j X[i, j] beta_{j + intercept} + offset_i.
+
+    Takes the arrays, not the GLMData: a kernel reads its members once, outside its row loop
+    (numba counts a reference for every read of a tuple's array member).
+    """
+    acc = row_dot(X, i, beta[intercept:])
+    if intercept:
         acc += beta[0]
-    return acc + data.offset[i]
+    return acc + offset[i]
 
 
 @jit
@@ -186,10 +190,11 @@ def log_norm_const(family, y_i, noise_sd):
 @jit
 def batch_loglik(data, beta, idx, out):
     """out[k] = l_{idx[k]}(beta), constants included."""
-    family, y, noise_sd = data.family, data.y, data.noise_sd
+    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, data.noise_sd
+    intercept = data.intercept
     for k in range(idx.shape[0]):
         i = idx[k]
-        eta = linear_predictor(data, i, beta)
+        eta = linear_predictor(X, offset, intercept, i, beta)
         out[k] = loglik_eta(family, eta, y[i], noise_sd, log_norm_const(family, y[i], noise_sd))
 
 
@@ -243,13 +248,14 @@ def full_loglik_grad(data, beta, grad, with_const, lo, hi):
 @jit
 def full_hessian(data, beta, hess, lo, hi):
     """hess = sum_{lo <= i < hi} f''(eta_i) x_i x_i^T (the log-likelihood Hessian; overwritten)."""
-    family, X, y, noise_sd, intercept = data.family, data.X, data.y, data.noise_sd, data.intercept
+    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, data.noise_sd
+    intercept = data.intercept
     p = X.shape[1]
     d = p + intercept
     hess[:, :] = 0.0
     xi = np.empty(d)
     for i in range(lo, hi):
-        w = d2loglik_eta(family, linear_predictor(data, i, beta), y[i], noise_sd)
+        w = d2loglik_eta(family, linear_predictor(X, offset, intercept, i, beta), y[i], noise_sd)
         if intercept:
             xi[0] = 1.0
         for j in range(p):
@@ -267,9 +273,10 @@ def full_hessian(data, beta, hess, lo, hi):
 def full_eta_derivatives(data, beta, eta, f1, f2, lo, hi):
     """eta[i], f1[i], f2[i] = eta_i, f'(eta_i), f''(eta_i) at beta for lo <= i < hi (the row
     cache of the control variates)."""
-    family, y, noise_sd = data.family, data.y, data.noise_sd
+    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, data.noise_sd
+    intercept = data.intercept
     for i in range(lo, hi):
-        e = linear_predictor(data, i, beta)
+        e = linear_predictor(X, offset, intercept, i, beta)
         eta[i] = e
         f1[i] = dloglik_eta(family, e, y[i], noise_sd)
         f2[i] = d2loglik_eta(family, e, y[i], noise_sd)
