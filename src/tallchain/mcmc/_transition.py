@@ -147,9 +147,9 @@ cached at beta (or the carried batch's gradient), the dual-averaging state ``ada
 _Buffers = namedtuple("_Buffers", ["prop", "delta", "delta_prop", "grad", "grad_prop", "tmp",
                                    "z", "xi", "idx_grad", "idx_ratio", "diffs", "work"])
 
-# What the log target ratio step returns: the estimate, its sd, the penalty subtracted from the
-# log acceptance ratio and whether Ceperley-Dewing fell back to sigma^2/2, the batch terms'
-# skewness and kurtosis.
+# An iteration's log target ratio: the value used (exact or estimated), its sd, the penalty
+# subtracted from the log acceptance ratio and whether Ceperley-Dewing fell back to sigma^2/2,
+# the batch terms' skewness and kurtosis.
 _LogRatio = namedtuple("_LogRatio", ["value", "sd", "penalty", "beyond_bound", "skew",
                                      "kurtosis"])
 
