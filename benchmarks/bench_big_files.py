@@ -48,7 +48,7 @@ CHILD_FIT = textwrap.dedent("""
     time.sleep(0.05)
     print(json.dumps({"peak": peak[0], "base": base, "wall": wall,
                       "setup": r.setup_seconds, "sampling": r.sampling_seconds,
-                      "batch": r.settings["batch_size"], "acc": r.acceptance_rate}))
+                      "batch": r.tuned["batch_size"], "acc": r.acceptance_rate}))
 """)
 
 CHILD_CSV = textwrap.dedent("""

@@ -110,12 +110,12 @@ def run_one(problem, target, seed, chains, draws, warmup, proxy_order=1):
         ks = float(np.max(ks_check(r.draws, problem.reference).ratio))
     sd = r.stats["log_ratio_sd"]
     pred = MALA_ACCEPT * float(np.nanmean(2.0 * stats.norm.cdf(-sd / 2.0)))
-    return dict(batch=r.settings["batch_size"], acc=r.acceptance_rate,
+    return dict(batch=r.tuned["batch_size"], acc=r.acceptance_rate,
                 acc_ratio=r.acceptance_rate / pred, sd=float(np.nanmean(sd)),
                 rms=float(np.sqrt(np.nanmean(sd**2))),
                 ess=float(np.min(ess)), eff=float(np.min(ess)) / evals_draws * 1e6,
                 ess_s=float(np.min(ess)) / r.sampling_seconds, ks=ks,
-                fallback=100.0 * r.cd_fallback_count / (chains * draws), per_row=per_row)
+                fallback=100.0 * r.penalty_beyond_bound_count / (chains * draws), per_row=per_row)
 
 
 def mean_se(values):
@@ -155,7 +155,7 @@ def main():
 
     header = ("| problem | target | batch n | acceptance | acc / pred | "
               "log-ratio sd mean, rms | min ESS | "
-              "ESS per 1e6 evals | ESS/s (run) | max KS/floor | CD fallback % |")
+              "ESS per 1e6 evals | ESS/s (run) | max KS/floor | penalty beyond bound % |")
     lines = [header, "|---" * (header.count("|") - 1) + "|"]
     curves, checks, per_rows = {}, [], set()
     for prob in problems(rng, ref_draws):

@@ -62,11 +62,12 @@ def make_data(n, rng):
 def time_full_pass(model, repeats=5):
     beta = np.zeros(model.n_coef)
     grad = np.empty(model.n_coef)
-    _kernels.full_loglik_grad(*model.kernel_args, beta, grad)
+    data = model.glm_data
+    _kernels.full_loglik_grad(data, beta, grad, True, 0, model.n_rows)
     times = []
     for _ in range(repeats):
         t = time.perf_counter()
-        _kernels.full_loglik_grad(*model.kernel_args, beta, grad)
+        _kernels.full_loglik_grad(data, beta, grad, True, 0, model.n_rows)
         times.append(time.perf_counter() - t)
     return float(np.median(times))
 
@@ -101,7 +102,7 @@ def main():
         wall = time.perf_counter() - t
         iters = chains * (draws + warmup)
         per_it = r.sampling_seconds / iters
-        nb = r.settings["batch_size"]
+        nb = r.tuned["batch_size"]
         # Floor: the same rows a transition reads (3 batches: gradient at theta and theta' on
         # one batch, the log-ratio on another), drawn and summed with nothing else done.
         read_iters = 20_000

@@ -96,7 +96,7 @@ def numpy_mala(model, pre, start, h, n_iter, rng):
     beta = start.copy()
     ll, grad = loglik_grad(beta)
     draws = np.empty((n_iter, d))
-    accept_prob = np.empty(n_iter)
+    acceptance_probability = np.empty(n_iter)
     accepted = np.zeros(n_iter, dtype=bool)
     sqrt_h = math.sqrt(h)
     for k in range(n_iter):
@@ -106,12 +106,12 @@ def numpy_mala(model, pre, start, h, n_iter, rng):
         prior_diff = -0.5 * float((prop - beta) @ P @ (prop + beta - 2.0 * m))
         c = log_q(beta, prop, grad_prop) - log_q(prop, beta, grad)
         log_alpha = min(0.0, prior_diff + ll_prop - ll + c)
-        accept_prob[k] = math.exp(log_alpha)
+        acceptance_probability[k] = math.exp(log_alpha)
         if math.log(rng.random()) < log_alpha:
             beta, ll, grad = prop, ll_prop, grad_prop
             accepted[k] = True
         draws[k] = beta
-    return draws, accept_prob, accepted
+    return draws, acceptance_probability, accepted
 
 
 def _mcse_of_mean(x):
@@ -154,7 +154,7 @@ def bench_family(family, args):
         t_numpy.append(time.perf_counter() - t0)
 
     # --- the two loops compute the same thing -------------------------------------------------
-    nb_accept = res.stats["accept_prob"][0]
+    nb_accept = res.stats["acceptance_probability"][0]
     sd = np.sqrt(np.diag(laplace.cov))
     path_gap = float(np.max(np.abs(res.draws[0] - np_draws) / sd))
     same_decisions = float(np.mean(res.stats["accepted"][0] == np_accepted))

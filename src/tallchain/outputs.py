@@ -78,7 +78,7 @@ def run_record(result, summary, wall_seconds=None):
         "ess_per_data_pass": summary.run["ess_per_data_pass"],
         "data_passes": summary.run["data_passes"],
         "nonfinite_count": result.nonfinite_count,
-        "cd_fallback_count": result.cd_fallback_count,
+        "penalty_beyond_bound_count": result.penalty_beyond_bound_count,
         "warmup_counts": result.warmup_counts,
         "completed_draws": result.completed_draws,
         "warnings": list(result.warnings) + list(summary.warnings),

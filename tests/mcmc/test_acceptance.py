@@ -24,19 +24,31 @@ EPS = np.finfo(np.float64).eps
 # --- Ceperley-Dewing correction ----------------------------------------------------------------
 
 
+def rounding_size(chi2, n):
+    """The size, in absolute units of u_B, that rounding in the two evaluations of u_B scales
+    with. The kernel sums the alternating series of 0F1(; b; -x), whose partial sums grow to
+    about e^{2x/b} = e^{chi^2} times the total, so e^{-u_B} is within about e^{chi^2} u
+    relative, u_B within e^{chi^2} u absolute (the kernel's docstring). The closed form adds
+    log Gamma(b), (1 - b)/2 log x and log J_{b-1}(2 sqrt x), each within u of its size, so u_B
+    is within u times the sum of their sizes."""
+    chi2 = np.asarray(chi2, dtype=float)
+    b = 0.5 * (n - 1.0)
+    x = 0.25 * (n - 1.0) * chi2
+    j = special.jv(b - 1.0, 2.0 * np.sqrt(x))
+    return (np.exp(chi2) + abs(special.gammaln(b)) + np.abs(0.5 * (1.0 - b) * np.log(x))
+            + np.abs(np.log(np.abs(j))))
+
+
 @pytest.mark.parametrize("n", [5, 10, 30, 100, 200])
 def test_series_kernel_matches_bessel_closed_form(n):
-    # reference: scipy.special.jv through the closed form e^{-u_B} = Gamma(b) x^{(1-b)/2} J_{b-1}(2 sqrt x)
+    # reference: scipy.special.jv through the closed form e^{-u_B} = Gamma(b) x^{(1-b)/2} J_{b-1}(2 sqrt x).
+    # Two methods, each within a few u of rounding_size: the series adds up to a few dozen
+    # terms (each rounding within u of a partial sum), scipy's jv is within a few ulps of J away
+    # from its zeros (0.95 of the bound keeps it away): 16 ulps of rounding_size for both.
     chi2 = np.linspace(0.01, 0.95 * min(acceptance.validity_bound(n), 8.0), 25)
-    # Both sides cancel: the closed form adds log-space terms far larger than u_B (gammaln(b)
-    # is 360 at n = 200 where u_B is 0.005), and the kernel's alternating series has terms up
-    # to about e^{chi^2} times its sum (its docstring). Relative to the sum of those sizes each
-    # side is a few roundings, and scipy's jv and gammaln a few ulps (from memory): 32 ulps.
-    b, x = 0.5 * (n - 1), 0.25 * (n - 1) * chi2
-    size = (abs(special.gammaln(b)) + np.abs(0.5 * (1 - b) * np.log(x))
-            + np.abs(np.log(special.jv(b - 1, 2 * np.sqrt(x)))) + np.exp(chi2))
     assert_ulps_close(acceptance.ceperley_dewing_penalty(chi2, n),
-                      acceptance.ceperley_dewing_closed_form(chi2, n), ulps=32, scale=size)
+                      acceptance.ceperley_dewing_closed_form(chi2, n), ulps=16,
+                      scale=rounding_size(chi2, n))
 
 
 @pytest.mark.parametrize("n", [10, 100, 1000])
@@ -73,6 +85,26 @@ def test_validity_bound_is_the_first_bessel_zero(n):
     np.testing.assert_allclose(acceptance.validity_bound(n), j**2 / (n - 1), rtol=rel, atol=0)
 
 
+def test_noise_penalty_and_log_accept_probability_by_rule():
+    # The penalty each rule subtracts and whether Ceperley-Dewing fell back (its definition in
+    # _acceptance_kernels; the same operations, so exact), and log min(1, e^z) with -inf for a
+    # non-finite z.
+    n = 10
+    bound = acceptance.validity_bound(n)
+    for var in (0.0, 0.3, 0.9 * bound, 1.1 * bound):
+        assert K.noise_penalty(K.EXACT, var, n, False) == (0.0, False)
+        assert K.noise_penalty(K.PLUGIN, var, n, False) == (0.0, False)
+        assert K.noise_penalty(K.PENALTY, var, n, False) == (0.5 * var, False)
+        assert K.noise_penalty(K.PENALTY_CD, var, n, True) == (0.5 * var, False)  # known variance
+        pen, beyond = K.noise_penalty(K.PENALTY_CD, var, n, False)
+        assert beyond == (var > bound)
+        assert pen == (0.5 * var if beyond else K.ceperley_dewing_penalty(var, n))
+    assert K.log_accept_probability(-1.0, 0.25, 0.5) == -1.25
+    assert K.log_accept_probability(1.0, 0.25, 0.5) == 0.0
+    for bad in (math.nan, math.inf, -math.inf):
+        assert K.log_accept_probability(bad, 0.0, 0.0) == -math.inf
+
+
 def test_exp_minus_u_b_is_unbiased_for_exp_minus_half_sigma2():
     # chi^2 = sigma^2 * Chi2_{n-1}/(n-1): E[e^{-u_B(chi^2)}] = e^{-sigma^2/2} (Ceperley & Dewing
     # 1999). The plug-in e^{-chi^2/2} has mean (1 + sigma^2/(n-1))^{-(n-1)/2} (chi-square mgf),
@@ -85,12 +117,10 @@ def test_exp_minus_u_b_is_unbiased_for_exp_minus_half_sigma2():
     unbiased = special.hyp0f1(0.5 * (n - 1), -0.25 * (n - 1) * chi2)
     ok = unbiased > 0
     assert ok.mean() > 0.95
-    # The kernel sums the alternating series of 0F1(; b; -x), whose terms add up in size to
-    # 0F1(; b; +x) (scipy.special.hyp0f1): a few ulps of that on each side (scipy's from
-    # memory), and exp(-log) rounds twice more. 32 ulps of 0F1(; b; +x).
-    some = chi2[ok][:2000]
-    assert_ulps_close(np.exp(-acceptance.ceperley_dewing_penalty(some, n)), unbiased[ok][:2000],
-                      ulps=32, scale=special.hyp0f1(0.5 * (n - 1), 0.25 * (n - 1) * some))
+    # (relative to e^{-u_B}: rounding_size of both evaluations, as in the closed-form test)
+    c, f = chi2[ok][:2000], unbiased[ok][:2000]
+    assert_ulps_close(np.exp(-acceptance.ceperley_dewing_penalty(c, n)), f, ulps=16,
+                      scale=f * rounding_size(c, n))
     plug_in = np.exp(-0.5 * chi2)
     target = math.exp(-0.5 * sigma2)
     for est, should_pass in ((unbiased, True), (plug_in, False)):

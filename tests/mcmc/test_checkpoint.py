@@ -98,3 +98,23 @@ def test_resume_with_other_settings_is_refused(model, tmp_path, monkeypatch):
                   **dict(SETTINGS, seed=32))
     with pytest.raises(tc.InputError, match="resume: no checkpoint at"):
         tc.sample(model, method="mala", checkpoint=tmp_path / "none.npz", resume=True, **SETTINGS)
+
+
+def test_a_checkpoint_of_an_older_version_is_refused(model, tmp_path, monkeypatch):
+    # Version 2 still stored integer counters beside the chains; the counts now come from the
+    # per-iteration statistics, so such a file cannot be resumed.
+    import json
+
+    _interrupt_on_rounds(monkeypatch, {2})
+    ckpt = tmp_path / "c.npz"
+    with pytest.raises(SamplingInterrupted):
+        tc.sample(model, method="mala", checkpoint=ckpt, **SETTINGS)
+    with np.load(ckpt) as z:
+        arrays = dict(z)
+    meta = json.loads(str(arrays["meta"]))
+    meta["version"] = 2
+    arrays["meta"] = np.array(json.dumps(meta))
+    np.savez(ckpt, **arrays)
+    with pytest.raises(tc.InputError, match=r"resume: the checkpoint was made with other "
+                                            r"settings \(checkpoint version\)"):
+        tc.sample(model, method="mala", checkpoint=ckpt, resume=True, **SETTINGS)

@@ -11,7 +11,7 @@ What is checked, and against what:
   two-sample KS floor 1.358 sqrt(1/ESS + 1/n_ref).
 * Step-size adaptation: frozen after warmup; post-warmup acceptance near 0.574 (MALA, Roberts &
   Rosenthal, JRSS B 60, 1998) or 0.234 (RWM, Roberts, Gelman & Gilks, Ann. Appl. Probab. 1997).
-* Reproducibility, cost counters and the non-finite counter (exact identities, no tolerance).
+* Reproducibility, the rows read and the non-finite iterations (exact identities, no tolerance).
 
 Every statistical test has a power check: the same test, applied to a deliberately wrong
 variant, must fail.
@@ -199,16 +199,16 @@ def test_power_mistuned_step_leaves_acceptance_band(run_name, request, linear_mo
     assert abs(rate - target) > band
 
 
-# --- counters ----------------------------------------------------------------------------------
+# --- rows read and non-finite iterations -------------------------------------------------------
 
 
 @pytest.mark.slow
 @pytest.mark.parametrize("run_name", ["mala_run", "rwm_run"])
 def test_data_evaluations_one_pass_per_iteration(run_name, request):
-    # _chain.run_chain: MALA reuses the gradient cached at the current state and evaluates
-    # log-likelihood and gradient at the proposal in one pass (full_loglik_grad, += N); RWM
-    # calls full_loglik once (+= N). The starting pass (init_full_state) and mode finding are
-    # not counted: the counter covers warmup and draws (SampleResult docstring).
+    # _transition: MALA reuses the gradient cached at the current state and evaluates
+    # log-likelihood and gradient at the proposal in one pass (full_loglik_grad, N rows read);
+    # RWM calls full_loglik once (N rows). The starting pass (init_full_state) and mode finding
+    # are not counted: data_evaluations sums the rows_read statistic of warmup and draws.
     result = request.getfixturevalue(run_name)
     n_iter = result.settings.warmup + result.settings.draws
     assert result.data_evaluations == N_ROWS * n_iter * result.n_chains
@@ -232,15 +232,15 @@ def test_data_evaluations_exact_count(rng, method, chains, warmup, draws):
 def test_no_nonfinite_on_healthy_problem(run_name, request):
     result = request.getfixturevalue(run_name)
     assert result.nonfinite_count == 0
-    assert result.warmup_counts == {"nonfinite": 0, "cd_fallback": 0}
+    assert result.warmup_counts == {"nonfinite": 0, "penalty_beyond_bound": 0}
     assert not result.stats["nonfinite"].any()
     assert not result.warmup_stats["nonfinite"].any()
-    assert result.cd_fallback_count == 0
+    assert result.penalty_beyond_bound_count == 0
 
 
 @pytest.mark.parametrize("method", ["mala", "rwm"])
-def test_power_nonfinite_counter_counts(rng, method):
-    # Power check for the counter: an absurd fixed step sends the Poisson linear predictor past
+def test_power_nonfinite_iterations_are_counted(rng, method):
+    # Power check for the count: an absurd fixed step sends the Poisson linear predictor past
     # exp overflow (eta > 709.78), so the log target ratio is -inf or NaN; every such iteration
     # must be counted, and rejected.
     X = rng.standard_normal((200, 2))
@@ -284,7 +284,7 @@ def _assert_same_run(a, b):
     assert a.tuned["batch_size"] == b.tuned["batch_size"]
     assert a.data_evaluations == b.data_evaluations
     assert a.nonfinite_count == b.nonfinite_count
-    assert a.cd_fallback_count == b.cd_fallback_count
+    assert a.penalty_beyond_bound_count == b.penalty_beyond_bound_count
 
 
 @pytest.mark.parametrize("method", ["mala", "penalty-mala"])

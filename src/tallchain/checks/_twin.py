@@ -74,7 +74,7 @@ def conjugate_twin(model, *, seed=None):
     lap = find_mode(model)
     n = model.n_rows
     eta, f1, f2 = np.empty(n), np.empty(n), np.empty(n)
-    _passes.eta_derivatives(model.kernel_args, lap.mode, eta, f1, f2)
+    _passes.eta_derivatives(model.glm_data, lap.mode, eta, f1, f2)
     noise_sd = 1.0 / np.sqrt(max(float(np.mean(-f2)), 1e-12))
     rng = np.random.default_rng(seed)
     beta = lap.mode + 0.1 * rng.multivariate_normal(np.zeros(model.n_coef), model.prior_cov)

@@ -31,10 +31,11 @@ def noise_advice(result):
         msgs.append(f"the batch log-ratio terms are far from Gaussian (median |skewness| "
                     f"{skew:.2f}, excess kurtosis {kurt:.2f}; error term {err:.3f}); the penalty "
                     "correction may be biased: use a larger batch_size or control_variates=True")
-    if result.cd_fallback_count:
-        k = result.cd_fallback_count
-        msgs.append(f"{k} iteration{'s were' if k > 1 else ' was'} beyond the Ceperley-Dewing "
-                    "validity bound and used the plug-in correction; use a larger batch_size")
+    if result.penalty_beyond_bound_count:
+        k = result.penalty_beyond_bound_count
+        msgs.append(f"{k} iteration{'s were' if k > 1 else ' was'} beyond the validity bound of "
+                    "the Ceperley-Dewing penalty and used the plug-in sigma^2/2 instead; use a "
+                    "larger batch_size")
     if msgs:
         result.warnings.extend(msgs)
         warnings.warn("; and ".join(msgs), NoisyLogRatioWarning, stacklevel=3)

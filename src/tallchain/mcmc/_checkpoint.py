@@ -8,7 +8,7 @@ import numpy as np
 
 from .._validation import fail
 
-CHECKPOINT_VERSION = 2
+CHECKPOINT_VERSION = 3
 
 
 class Checkpoint:
@@ -22,14 +22,13 @@ class Checkpoint:
         self.path = Path(path)
         self.identity = identity
 
-    def write(self, states, schedule, runner, after_warmup):
+    def write(self, states, schedule, runner):
         done = max(st.iteration for st in states)
         meta = {
             "version": CHECKPOINT_VERSION,
             "identity": self.identity,
             "segment": schedule.segment,
             "n_batch": schedule.n_batch,
-            "after_warmup": None if after_warmup is None else [int(v) for v in after_warmup],
             "chains": [{"iteration": st.iteration, "carried_ready": st.carried_ready,
                         "rng": st.rng.bit_generator.state} for st in states],
         }
@@ -40,7 +39,6 @@ class Checkpoint:
             "cur_loglik": np.stack([st.cur_loglik for st in states]),
             "adapt": np.stack([st.adapt for st in states]),
             "pooled": np.stack([st.pooled for st in states]),
-            "counters": np.stack([st.counters for st in states]),
         }
         self.path.parent.mkdir(parents=True, exist_ok=True)
         tmp = self.path.with_name(f".{self.path.name}.tmp-{os.getpid()}.npz")
@@ -52,7 +50,7 @@ class Checkpoint:
                 tmp.unlink()
 
     def restore(self, states, schedule, runner):
-        """Load the snapshot into fresh states; returns the end-of-warmup counters (or None)."""
+        """Load the snapshot into fresh states, the schedule and the runner's arrays."""
         if not self.path.exists():
             fail("resume", f"no checkpoint at {self.path}", "run once without --resume first")
         with np.load(self.path, allow_pickle=False) as z:
@@ -60,6 +58,8 @@ class Checkpoint:
             if meta.get("version") != CHECKPOINT_VERSION or meta["identity"] != self.identity:
                 changed = sorted(k for k in set(self.identity) | set(meta["identity"])
                                  if self.identity.get(k) != meta["identity"].get(k))
+                if meta.get("version") != CHECKPOINT_VERSION:
+                    changed.insert(0, "checkpoint version")
                 fail("resume", f"the checkpoint was made with other settings ({', '.join(changed)})",
                      "resume with the settings and data of the interrupted run, or start anew")
             done = z["draws"].shape[1]
@@ -71,11 +71,8 @@ class Checkpoint:
                 st.cur_loglik[:] = z["cur_loglik"][c]
                 st.adapt[:] = z["adapt"][c]
                 st.pooled[:] = z["pooled"][c]
-                st.counters[:] = z["counters"][c]
                 st.iteration = meta["chains"][c]["iteration"]
                 st.carried_ready = meta["chains"][c]["carried_ready"]
                 st.rng.bit_generator.state = meta["chains"][c]["rng"]
         schedule.segment = meta["segment"]
         schedule.n_batch = meta["n_batch"]
-        aw = meta["after_warmup"]
-        return None if aw is None else np.array(aw, dtype=np.int64)

@@ -18,9 +18,11 @@ from contextlib import contextmanager
 import numpy as np
 
 from . import _transition as _chain
+from ._methods import LOG_RATIO_VARIANCE
 
 CHUNK = 256
 ROUND = 4 * CHUNK
+
 
 class ChainState:
     """Everything one chain carries between kernel calls (and what a checkpoint stores)."""
@@ -33,10 +35,16 @@ class ChainState:
         self.adapt[_chain.AD_LOG_H] = log_h
         self.adapt[_chain.AD_MU] = adapt_mu
         self.pooled = np.zeros(2)
-        self.counters = np.zeros(_chain.N_COUNTERS, dtype=np.int64)
         self.rng = rng
         self.iteration = 0
         self.carried_ready = False
+
+    @property
+    def arrays(self):
+        """The state arrays as the kernel takes them: ``ChainArrays(beta, cur_grad,
+        cur_loglik, adapt, pooled)`` (views of this state's arrays, updated in place)."""
+        return _chain.ChainArrays(self.beta, self.cur_grad, self.cur_loglik, self.adapt,
+                                  self.pooled)
 
 
 class Interrupted(Exception):
@@ -46,13 +54,23 @@ class Interrupted(Exception):
 class ChainJob:
     """What every chain of a run shares: the model, the method's codes, the row cache, the
     preconditioner and the tuning settings. When chains run as tasks it travels once per worker.
+
+    The kernel's argument groups of the model, row cache and preconditioner are built from them
+    at each `advance` (views, no copies); a job keeps only the objects, so that a model on a
+    memory-mapped file still pickles as its path.
     """
 
-    def __init__(self, model, spec, grad_code, var_code, noise_cap, cache, pre, warmup,
-                 adapt_step):
+    def __init__(self, model, settings, cache, pre):
+        spec = settings.spec
         self.model, self.spec, self.cache, self.pre = model, spec, cache, pre
-        self.grad_code, self.var_code, self.noise_cap = grad_code, var_code, noise_cap
-        self.warmup, self.adapt_step = warmup, adapt_step
+        gradient = _chain.CARRIED if settings.gradient_batch == "carried" else spec.gradient
+        self.codes = _chain.MethodCodes(spec.proposal, gradient, spec.ratio, spec.rule,
+                                        LOG_RATIO_VARIANCE[settings.log_ratio_variance])
+        # Penalty methods aim at the exact-method rate times the share that the noise lets
+        # through (see run_chain); target_log_ratio_sd caps the noise level used for that share.
+        noise_cap = settings.target_log_ratio_sd if spec.penalised else 0.0
+        self.tuning = _chain.Tuning(settings.adapts_step, settings.warmup,
+                                    spec.acceptance_target, noise_cap)
 
     def advance(self, st, draws_out, stats_out, base, until, n_batch, stop=None, on_chunk=None):
         """Run chain state ``st`` up to iteration ``until``, chunk by chunk, in place.
@@ -60,33 +78,24 @@ class ChainJob:
         ``draws_out[k]`` and ``stats_out[k]`` receive iteration ``base + k``. The kernel keeps
         its whole state in ``st``, so how a stretch is cut into chunks or calls changes nothing.
         """
-        m, s, c, p = self.model, self.spec, self.cache, self.pre
-        if self.grad_code == _chain.CARRIED and not st.carried_ready:
-            _chain.init_carried_gradient(m.family, m.X, c.aux, m.noise_sd, int(m.add_intercept),
-                                         m.prior_mean, m.prior_prec, c.order, c.beta_star,
-                                         c.g_star, c.H_star, int(n_batch), st.rng, st.beta,
-                                         st.cur_grad)
+        data, prior = self.model.glm_data, self.model.prior_arrays
+        rows, mass, n_batch = self.cache.rows, self.pre.matrices, int(n_batch)
+        if self.codes.gradient == _chain.CARRIED and not st.carried_ready:
+            _chain.init_carried_gradient(data, prior, rows, st.arrays, st.rng, n_batch)
             st.carried_ready = True
         while st.iteration < until and not (stop is not None and stop.is_set()):
             n = min(CHUNK, until - st.iteration)
             i0 = st.iteration
             k0 = i0 - base
-            _chain.run_chain(
-                *m.kernel_args, m.prior_mean, m.prior_prec,
-                s.proposal, self.grad_code, s.ratio, s.rule, self.var_code, c.order,
-                c.beta_star, c.aux, c.g_star, c.H_star,
-                p.mass, p.mass_inv, p.mass_inv_chol, int(n_batch), st.rng,
-                st.beta, st.cur_grad, st.cur_loglik, st.adapt, st.pooled, st.counters,
-                i0, n, self.warmup, self.adapt_step, s.acceptance_target, self.noise_cap,
-                draws_out[k0:k0 + n], stats_out[k0:k0 + n])
+            _chain.run_chain(data, prior, rows, mass, self.codes, self.tuning, st.arrays,
+                             st.rng, n_batch, i0, draws_out[k0:k0 + n], stats_out[k0:k0 + n])
             st.iteration += n
             if on_chunk is not None:
                 on_chunk(n)
 
 
-def drive(runner, states, schedule, *, checkpoint=None, checkpoint_seconds=30.0,
-          after_warmup=None):
-    """Run the schedule to the end. Returns the counters summed over chains at the end of warmup.
+def drive(runner, states, schedule, *, checkpoint=None, checkpoint_seconds=30.0):
+    """Run the schedule to the end; the draws and statistics land in the runner's arrays.
 
     Raises Interrupted (after writing the checkpoint) when the user interrupts.
     """
@@ -109,30 +118,24 @@ def drive(runner, states, schedule, *, checkpoint=None, checkpoint_seconds=30.0,
                         runner.run(states, target, schedule.n_batch, pool)
                     except Interrupted:
                         if checkpoint is not None:
-                            checkpoint.write(states, schedule, runner, after_warmup)
+                            checkpoint.write(states, schedule, runner)
                         raise
                     if runner.bar is not None:
                         _show_progress(runner, states)
                     if checkpoint is not None and time.monotonic() - last_write > checkpoint_seconds:
-                        checkpoint.write(states, schedule, runner, after_warmup)
+                        checkpoint.write(states, schedule, runner)
                         last_write = time.monotonic()
-                at_warmup_end = end == schedule.warmup
-                if at_warmup_end and after_warmup is None:
-                    after_warmup = np.sum([st.counters for st in states], axis=0)
                 schedule.finish_segment(states, runner.all_stats, start)
-                if at_warmup_end and checkpoint is not None:
+                if end == schedule.warmup and checkpoint is not None:
                     # Warmup (tuning) is the part most costly to lose: keep it at once.
-                    checkpoint.write(states, schedule, runner, after_warmup)
+                    checkpoint.write(states, schedule, runner)
                     last_write = time.monotonic()
     finally:
         if runner.bar is not None:
             runner.bar.close()
             runner.bar = None
-    if after_warmup is None:
-        after_warmup = np.sum([st.counters for st in states], axis=0)
     if checkpoint is not None:
-        checkpoint.write(states, schedule, runner, after_warmup)
-    return after_warmup
+        checkpoint.write(states, schedule, runner)
 
 
 @contextmanager

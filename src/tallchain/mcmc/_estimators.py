@@ -4,9 +4,12 @@ Control variates use Taylor proxies of each l_i around a reference point beta* (
 For a GLM, l_i depends on beta only through eta_i, which is linear in beta, so the Taylor proxy
 in beta is the Taylor proxy of f in eta:
     q_i(beta) = f(eta*_i) + f'*_i (eta_i - eta*_i) + 1/2 f''*_i (eta_i - eta*_i)^2
-(METHODS.md section 4). ``cv_order`` is 0 (none), 1 or 2; the arrays eta*, f'*, f''* are
-cached once per run (the row cache below), together with g* = sum_i grad l_i(beta*) and
-H* = sum_i Hess l_i(beta*).
+(METHODS.md section 4). The row cache (``rows``, a `tallchain.posterior.RowCache`) holds the
+control-variate order (0: none, 1 or 2), beta*, the per-row eta*, f'*, f''* cached once per
+run, and g* = sum_i grad l_i(beta*), H* = sum_i Hess l_i(beta*). ``data`` is the model's
+`GLMData`, ``prior`` its `PriorArrays`.
+
+The pure-NumPy references of these kernels, under the same names, are in ``_reference.py``.
 """
 
 import math
@@ -15,9 +18,10 @@ from ..models._kernels import dloglik_eta, jit, loglik_diff_eta, row_dot
 
 
 @jit
-def prior_logpdf_diff(prior_mean, prior_prec, beta_new, beta_old):
+def prior_logpdf_diff(prior, beta_new, beta_old):
     """log p(beta_new) - log p(beta_old) for a Gaussian prior with precision P:
     -1/2 [(b'-m)'P(b'-m) - (b-m)'P(b-m)] = -1/2 (b'-b)' P (b'+b-2m)."""
+    prior_mean, prior_prec = prior.mean, prior.precision
     d = beta_new.shape[0]
     acc = 0.0
     for a in range(d):
@@ -29,8 +33,9 @@ def prior_logpdf_diff(prior_mean, prior_prec, beta_new, beta_old):
 
 
 @jit
-def add_prior_grad(prior_mean, prior_prec, beta, out):
+def add_prior_grad(prior, beta, out):
     """out += -P (beta - m)."""
+    prior_mean, prior_prec = prior.mean, prior.precision
     d = beta.shape[0]
     for a in range(d):
         s = 0.0
@@ -57,13 +62,15 @@ AUX_F2 = 3
 
 
 @jit
-def cv_gradient_rows(family, X, aux, noise_sd, intercept, delta, idx, cv_order, out, work):
+def cv_gradient_rows(data, rows, delta, idx, out, work):
     """out = sum over idx of [grad l_i(beta) - grad q_i(beta)] (out overwritten), where
     delta = beta - beta*.
 
-    cv_order 0 gives the plain sum of gradients; 1 subtracts f'*_i x_i (Baker et al. 2019);
+    Order 0 gives the plain sum of gradients; 1 subtracts f'*_i x_i (Baker et al. 2019);
     2 also subtracts f''*_i (eta_i - eta*_i) x_i, the gradient of the second-order proxy.
     """
+    family, X, noise_sd, intercept = data.family, data.X, data.noise_sd, data.intercept
+    aux, cv_order = rows.aux, rows.order
     n = idx.shape[0]
     p = X.shape[1]
     w = delta[intercept:]
@@ -98,8 +105,9 @@ def cv_gradient_rows(family, X, aux, noise_sd, intercept, delta, idx, cv_order, 
 
 
 @jit
-def proxy_gradient_sum(cv_order, g_star, H_star, beta, beta_star, out):
+def proxy_gradient_sum(rows, beta, out):
     """out = sum_i grad q_i(beta) = g* (+ H* (beta - beta*) for the second-order proxy)."""
+    cv_order, g_star, H_star, beta_star = rows.order, rows.g_star, rows.H_star, rows.beta_star
     d = beta.shape[0]
     for a in range(d):
         out[a] = g_star[a]
@@ -111,8 +119,9 @@ def proxy_gradient_sum(cv_order, g_star, H_star, beta, beta_star, out):
 
 
 @jit
-def proxy_loglik_diff_sum(cv_order, g_star, H_star, beta_new, beta_old, beta_star):
+def proxy_loglik_diff_sum(rows, beta_new, beta_old):
     """Q(b') - Q(b) = g*'(b'-b) + 1/2 (b'-b)' H* (b'+b-2b*)  (METHODS.md section 4)."""
+    cv_order, g_star, H_star, beta_star = rows.order, rows.g_star, rows.H_star, rows.beta_star
     d = beta_new.shape[0]
     acc = 0.0
     for a in range(d):
@@ -127,10 +136,11 @@ def proxy_loglik_diff_sum(cv_order, g_star, H_star, beta_new, beta_old, beta_sta
 
 
 @jit
-def batch_residual_diffs(family, X, aux, noise_sd, intercept, delta_new, delta_old, idx,
-                         cv_order, out, work):
+def batch_residual_diffs(data, rows, delta_new, delta_old, idx, out, work):
     """out[k] = D_i - [q_i(b') - q_i(b)] for i = idx[k], with D_i = l_i(b') - l_i(b) and
     delta_new = b' - beta*, delta_old = b - beta* (passes and ``work`` as above)."""
+    family, X, noise_sd, intercept = data.family, data.X, data.noise_sd, data.intercept
+    aux, cv_order = rows.aux, rows.order
     n = idx.shape[0]
     p = X.shape[1]
     w1 = delta_new[intercept:]

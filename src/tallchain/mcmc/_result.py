@@ -17,10 +17,15 @@ class SampleResult:
     draws : ndarray of shape (n_chains, n_draws, n_coef)
         Post-warmup draws.
     stats : dict of str to ndarray of shape (n_chains, n_draws)
-        Per-iteration statistics after warmup: ``accepted``, ``accept_prob``, ``log_ratio``
-        (the log target ratio used, exact or estimated), ``log_ratio_sd`` (its estimated sd;
-        0 for exact methods, NaN for SGLD), ``step_size``, ``batch_size``, ``nonfinite``,
-        ``log_ratio_skew`` and ``log_ratio_kurtosis`` (of the batch log-ratio terms).
+        Per-iteration statistics after warmup: ``accepted`` (bool), ``acceptance_probability``
+        (min(1, e^(log ratio + c - penalty)); 1 for SGLD), ``log_ratio`` (the log target ratio
+        used, exact or estimated), ``log_ratio_sd`` (its estimated sd; 0 for exact methods,
+        NaN for SGLD), ``step_size``, ``batch_size``, ``nonfinite`` (bool: the log acceptance
+        ratio was NaN or infinite, and the move rejected), ``log_ratio_skew`` and
+        ``log_ratio_kurtosis`` (of the batch log-ratio terms), ``rows_read`` (int: per-datum
+        likelihood or gradient evaluations of the iteration) and ``penalty_beyond_bound``
+        (bool: the estimated variance was beyond the validity bound of the Ceperley-Dewing
+        penalty, and the plug-in sigma^2/2 was subtracted instead).
     warmup_stats : dict of str to ndarray of shape (n_chains, n_warmup)
         The same statistics during warmup.
     coef_names : list of str
@@ -32,15 +37,6 @@ class SampleResult:
         step size) and ``mass_matrix`` (the kind of preconditioner used).
     n_rows : int
         Number of data rows N.
-    data_evaluations : int
-        Per-datum likelihood or gradient evaluations during warmup and sampling (row visits).
-    nonfinite_count : int
-        Iterations after warmup whose log acceptance ratio was NaN or infinite (rejected).
-    cd_fallback_count : int
-        Iterations after warmup where the Ceperley-Dewing correction was outside its validity
-        bound and the plug-in sigma^2/2 was used instead.
-    warmup_counts : dict
-        The same two counts during warmup (``nonfinite``, ``cd_fallback``).
     setup_seconds, sampling_seconds : float
         Data checks, mode finding, and starting and stopping the workers; warmup and draws.
     completed_draws : int
@@ -58,13 +54,9 @@ class SampleResult:
     settings: object
     tuned: dict
     n_rows: int
-    data_evaluations: int
-    nonfinite_count: int
-    cd_fallback_count: int
     setup_seconds: float
     sampling_seconds: float
     completed_draws: int
-    warmup_counts: dict = field(default_factory=dict)
     laplace_mode: np.ndarray | None = None
     warnings: list = field(default_factory=list)
 
@@ -79,6 +71,29 @@ class SampleResult:
     @property
     def n_draws(self):
         return self.draws.shape[1]
+
+    @property
+    def data_evaluations(self):
+        """Per-datum likelihood or gradient evaluations during warmup and sampling (row
+        visits): the sum of the ``rows_read`` statistic."""
+        return int(self.stats["rows_read"].sum() + self.warmup_stats["rows_read"].sum())
+
+    @property
+    def nonfinite_count(self):
+        """Iterations after warmup whose log acceptance ratio was NaN or infinite (rejected)."""
+        return int(self.stats["nonfinite"].sum())
+
+    @property
+    def penalty_beyond_bound_count(self):
+        """Iterations after warmup whose variance estimate was beyond the validity bound of the
+        Ceperley-Dewing penalty, so that the plug-in sigma^2/2 was subtracted instead."""
+        return int(self.stats["penalty_beyond_bound"].sum())
+
+    @property
+    def warmup_counts(self):
+        """The two counts above during warmup: ``{"nonfinite": ..., "penalty_beyond_bound": ...}``."""
+        return {key: int(self.warmup_stats[key].sum())
+                for key in ("nonfinite", "penalty_beyond_bound")}
 
     @property
     def data_passes(self):
@@ -155,7 +170,7 @@ def to_arviz(result):
         "n_rows": int(result.n_rows),
         "data_evaluations": int(result.data_evaluations),
         "nonfinite_count": int(result.nonfinite_count),
-        "cd_fallback_count": int(result.cd_fallback_count),
+        "penalty_beyond_bound_count": int(result.penalty_beyond_bound_count),
         "setup_seconds": float(result.setup_seconds),
         "sampling_seconds": float(result.sampling_seconds),
         "completed_draws": int(result.completed_draws),

@@ -21,7 +21,7 @@ class Runner:
 
     def __init__(self, job, all_draws, all_stats, progress, parallel):
         self.job = job
-        self.spec, self.warmup = job.spec, job.warmup
+        self.spec, self.warmup = job.spec, job.tuning.n_warmup
         self.all_draws, self.all_stats = all_draws, all_stats
         self.progress, self.parallel = progress, parallel
         self.stop = threading.Event()

@@ -13,7 +13,6 @@ from . import _driver
 from . import _transition as _chain
 from ._advice import noise_advice
 from ._checkpoint import Checkpoint
-from ._methods import LOG_RATIO_VARIANCE
 from ._result import SampleResult
 from ._runners import Runner, TaskRunner
 from ._schedule import Schedule
@@ -80,29 +79,27 @@ def sample(model, settings=None, **options):
     # A resumed run takes this state from its checkpoint: no full pass per chain for it.
     if spec.adjusted and spec.ratio == _chain.FULL and not run.resume:
         for st in states:
-            _chain.init_full_state(*model.kernel_args, model.prior_mean, model.prior_prec,
-                                   st.beta, st.cur_grad, st.cur_loglik)
+            _chain.init_full_state(model.glm_data, model.prior_arrays, st.arrays)
     runner = _runner(model, settings, run, setup)
     schedule = Schedule(settings, model.n_rows)
-    ckpt = after_warmup = None
+    ckpt = None
     if run.checkpoint is not None:
         ckpt = Checkpoint(run.checkpoint, checkpoint_identity(model, settings))
         if run.resume:
-            after_warmup = ckpt.restore(states, schedule, runner)
+            ckpt.restore(states, schedule, runner)
 
     t_sample = time.perf_counter()
     interrupted = False
     try:
-        after_warmup = _driver.drive(runner, states, schedule, checkpoint=ckpt,
-                                     checkpoint_seconds=run.checkpoint_seconds,
-                                     after_warmup=after_warmup)
+        _driver.drive(runner, states, schedule, checkpoint=ckpt,
+                      checkpoint_seconds=run.checkpoint_seconds)
     except _driver.Interrupted:
         interrupted = True
     # Starting and stopping workers (seconds for a cluster) is set-up, not sampling: the
     # ESS per second of the draws does not depend on where they ran.
     timings = (setup_seconds + runner.pool_seconds,
                time.perf_counter() - t_sample - runner.pool_seconds)
-    result = _result(model, settings, setup, states, runner, schedule, after_warmup, timings)
+    result = _result(model, settings, setup, states, runner, schedule, timings)
     if interrupted:
         raise SamplingInterrupted(result, run.checkpoint)
     noise_advice(result)
@@ -127,17 +124,10 @@ def checkpoint_identity(model, settings):
 
 def _runner(model, settings, run, setup):
     """The chains' shared job, and where they advance (threads here, or tasks elsewhere)."""
-    spec = settings.spec
     n_total = settings.warmup + settings.draws
     all_draws = np.zeros((settings.chains, n_total, model.n_coef))
     all_stats = np.full((settings.chains, n_total, _chain.N_STATS), np.nan)
-    var_code = LOG_RATIO_VARIANCE[settings.log_ratio_variance]
-    grad_code = _chain.CARRIED if settings.gradient_batch == "carried" else spec.gradient
-    # Penalty methods aim at the exact-method rate times the share that the noise lets through
-    # (see run_chain); target_log_ratio_sd caps the noise level used for that share.
-    noise_cap = settings.target_log_ratio_sd if spec.penalised else 0.0
-    job = _driver.ChainJob(model, spec, grad_code, var_code, noise_cap, setup.cache,
-                           setup.preconditioner, settings.warmup, settings.adapts_step)
+    job = _driver.ChainJob(model, settings, setup.cache, setup.preconditioner)
     if run.scheduler in ("threads", "serial"):
         return Runner(job, all_draws, all_stats, run.progress,
                       run.parallel and run.scheduler == "threads")
@@ -145,21 +135,18 @@ def _runner(model, settings, run, setup):
                       worker_count(run.workers, settings.chains))
 
 
-def _result(model, settings, setup, states, runner, schedule, after_warmup, timings):
+def _result(model, settings, setup, states, runner, schedule, timings):
     """The `SampleResult` of the completed iterations (all of them, or those before an
     interruption)."""
-    if after_warmup is None:
-        after_warmup = np.zeros(_chain.N_COUNTERS, dtype=np.int64)
     warmup, spec = settings.warmup, settings.spec
     done = min(st.iteration for st in states)
     n_done = max(0, done - warmup)
     all_stats = runner.all_stats
     stats = {k: all_stats[:, warmup:warmup + n_done, j] for j, k in enumerate(_chain.STAT_NAMES)}
     warm = {k: all_stats[:, :min(done, warmup), j] for j, k in enumerate(_chain.STAT_NAMES)}
-    for key in ("accepted", "nonfinite"):
-        stats[key] = stats[key].astype(bool)
-        warm[key] = warm[key].astype(bool)
-    counters = np.sum([st.counters for st in states], axis=0)
+    for key, kind in _chain.STAT_TYPES.items():
+        stats[key] = stats[key].astype(kind)
+        warm[key] = warm[key].astype(kind)
     tuned = {
         "step_size": [float(math.exp(st.adapt[_chain.AD_LOG_H])) for st in states],
         "batch_size": int(schedule.n_batch) if spec.minibatch else None,
@@ -169,11 +156,5 @@ def _result(model, settings, setup, states, runner, schedule, after_warmup, timi
     return SampleResult(
         draws=runner.all_draws[:, warmup:warmup + n_done].copy(), stats=stats,
         warmup_stats=warm, coef_names=list(model.coef_names), settings=settings, tuned=tuned,
-        n_rows=model.n_rows, data_evaluations=int(counters[_chain.CT_DATA_EVALS]),
-        nonfinite_count=int(counters[_chain.CT_NONFINITE] - after_warmup[_chain.CT_NONFINITE]),
-        cd_fallback_count=int(counters[_chain.CT_CD_FALLBACK]
-                              - after_warmup[_chain.CT_CD_FALLBACK]),
-        warmup_counts={"nonfinite": int(after_warmup[_chain.CT_NONFINITE]),
-                       "cd_fallback": int(after_warmup[_chain.CT_CD_FALLBACK])},
-        setup_seconds=timings[0], sampling_seconds=timings[1], completed_draws=n_done,
+        n_rows=model.n_rows, setup_seconds=timings[0], sampling_seconds=timings[1], completed_draws=n_done,
         laplace_mode=None if setup.laplace is None else setup.laplace.mode)

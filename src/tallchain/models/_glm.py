@@ -100,24 +100,32 @@ class _GLM:
                 state[name] = state[name].open()
         self.__dict__.update(state)
 
-    # Arguments shared by every kernel call: (family, X, y, offset, noise_sd, intercept).
     @property
-    def kernel_args(self):
-        return (self.family, self.X, self.y, self.offset, self.noise_sd, int(self.add_intercept))
+    def glm_data(self):
+        """The data as every GLM kernel takes it: ``GLMData(family, X, y, offset, noise_sd,
+        intercept)``, built from the arrays the model keeps (no copy)."""
+        return _kernels.GLMData(self.family, self.X, self.y, self.offset, self.noise_sd,
+                                int(self.add_intercept))
+
+    @property
+    def prior_arrays(self):
+        """The prior as the kernels take it: ``PriorArrays(mean, precision)``."""
+        return _kernels.PriorArrays(self.prior_mean, self.prior_prec)
 
     def log_likelihood(self, beta):
         """Full-data log-likelihood sum_i l_i(beta)."""
-        return _kernels.full_loglik(*self.kernel_args, coef_vector(beta, self.n_coef))
+        return _kernels.full_loglik(self.glm_data, coef_vector(beta, self.n_coef), True, 0,
+                                    self.n_rows)
 
     def log_likelihood_grad(self, beta):
         """Full-data log-likelihood and its gradient, in one pass over the rows (parallel over
         rows on tall data)."""
-        return _passes.loglik_grad(self.kernel_args, beta)
+        return _passes.loglik_grad(self.glm_data, beta)
 
     def log_likelihood_hessian(self, beta):
         """Full-data log-likelihood Hessian sum_i f''(eta_i) x_i x_i^T (parallel over rows on
         tall data)."""
-        return _passes.hessian(self.kernel_args, beta)
+        return _passes.hessian(self.glm_data, beta)
 
     def log_prior(self, beta):
         """Log prior density up to its normalising constant."""
@@ -132,7 +140,7 @@ class _GLM:
         """l_i(beta) for each index in ``rows``."""
         idx = np.ascontiguousarray(rows, dtype=np.int64)
         out = np.empty(idx.shape[0])
-        _kernels.batch_loglik(*self.kernel_args, coef_vector(beta, self.n_coef), idx, out)
+        _kernels.batch_loglik(self.glm_data, coef_vector(beta, self.n_coef), idx, out)
         return out
 
     # -- what the family decides ------------------------------------------------------------

@@ -4,15 +4,17 @@ Every model is a GLM: with linear predictor eta_i = x_i . beta (+ intercept) (+ 
 per-datum log-likelihood is l_i(beta) = f(eta_i; y_i), and its gradient is f'(eta_i) x_i.
 The family is a small integer code, so one compiled kernel serves all families.
 
-Kernels take plain arrays: ``X`` of shape (N, p) in float32 or float64 (never copied),
-``y`` and ``offset`` of shape (N,), ``intercept`` (0 or 1: coefficient 0 is the intercept),
-and an index batch ``idx`` (int64). They touch only the rows in ``idx``.
+Every kernel that reads rows takes the model's data as its first argument, one `GLMData`
+(``model.glm_data``). Batch kernels touch only the rows of an index batch ``idx`` (int64);
+serial full-data kernels sum the rows [lo, hi), so that the parallel kernels run them on
+blocks of rows without slicing.
 
-The pure-NumPy references in ``_reference.py`` compute the same quantities and are the
-documentation of what is computed here.
+The pure-NumPy references in ``_reference.py`` carry the names of these kernels, compute the
+same quantities and are the documentation of what is computed here.
 """
 
 import math
+from collections import namedtuple
 
 import numba
 import numpy as np
@@ -33,6 +35,31 @@ pjit = numba.njit(parallel=True, **_OPTIONS)
 
 # The parallel set-up passes split the rows into blocks of this size, whatever the thread count.
 BLOCK_ROWS = 4096
+
+GLMData = namedtuple("GLMData", ["family", "X", "y", "offset", "noise_sd", "intercept"])
+GLMData.__doc__ = """The data of a GLM as the kernels take it (numba reads a namedtuple as a typed struct).
+
+Attributes
+----------
+family : int
+    ``LINEAR``, ``LOGISTIC`` or ``POISSON``.
+X : ndarray of shape (N, p), float32 or float64, C order
+    The design matrix as the model keeps it (possibly a memory map; never copied).
+y, offset : ndarray of shape (N,), float64
+noise_sd : float
+    The linear family's known noise sd (unused by the others).
+intercept : int
+    1 when coefficient 0 is an intercept (X has no column of ones), else 0.
+"""
+
+PriorArrays = namedtuple("PriorArrays", ["mean", "precision"])
+PriorArrays.__doc__ = """A Gaussian prior N(mean, precision^{-1}) as the kernels take it.
+
+Attributes
+----------
+mean : ndarray of shape (n_coef,)
+precision : ndarray of shape (n_coef, n_coef)
+"""
 
 
 @jit
@@ -134,8 +161,12 @@ def row_dot(X, i, w):
 
 
 @jit
-def linear_predictor(X, i, beta, intercept, offset):
-    """eta_i = [beta_0] + sum_j X[i, j] beta_{j + intercept} + offset_i."""
+def linear_predictor(X, offset, intercept, i, beta):
+    """eta_i = [beta_0] + sum_j X[i, j] beta_{j + intercept} + offset_i.
+
+    Takes the arrays, not the GLMData: a kernel reads its members once, outside its row loop
+    (numba counts a reference for every read of a tuple's array member).
+    """
     acc = row_dot(X, i, beta[intercept:])
     if intercept:
         acc += beta[0]
@@ -152,74 +183,36 @@ def log_norm_const(family, y_i, noise_sd):
 
 
 # ---------------------------------------------------------------------------------------------
-# Batch kernels (rows in idx only)
+# Batch kernel (rows in idx only): the model's pointwise log-likelihood
 # ---------------------------------------------------------------------------------------------
 
 
 @jit
-def batch_loglik(family, X, y, offset, noise_sd, intercept, beta, idx, out):
-    """out[k] = l_{idx[k]}(beta)."""
+def batch_loglik(data, beta, idx, out):
+    """out[k] = l_{idx[k]}(beta), constants included."""
+    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, data.noise_sd
+    intercept = data.intercept
     for k in range(idx.shape[0]):
         i = idx[k]
-        eta = linear_predictor(X, i, beta, intercept, offset)
+        eta = linear_predictor(X, offset, intercept, i, beta)
         out[k] = loglik_eta(family, eta, y[i], noise_sd, log_norm_const(family, y[i], noise_sd))
 
 
-@jit
-def batch_loglik_diff(family, X, y, offset, noise_sd, intercept, beta_new, beta_old, idx, out):
-    """out[k] = l_i(beta_new) - l_i(beta_old) for i = idx[k]."""
-    for k in range(idx.shape[0]):
-        i = idx[k]
-        e1 = linear_predictor(X, i, beta_new, intercept, offset)
-        e0 = linear_predictor(X, i, beta_old, intercept, offset)
-        out[k] = loglik_diff_eta(family, e1, e0, y[i], noise_sd)
-
-
-@jit
-def batch_grad_sum(family, X, y, offset, noise_sd, intercept, beta, idx, out):
-    """out = sum_{i in idx} grad l_i(beta) (out is overwritten)."""
-    p = X.shape[1]
-    out[:] = 0.0
-    for k in range(idx.shape[0]):
-        i = idx[k]
-        r = dloglik_eta(family, linear_predictor(X, i, beta, intercept, offset), y[i], noise_sd)
-        if intercept:
-            out[0] += r
-        for j in range(p):
-            out[j + intercept] += r * X[i, j]
-
-
-@jit
-def batch_grad_rows(family, X, y, offset, noise_sd, intercept, beta, idx, out):
-    """out[k, :] = grad l_{idx[k]}(beta): per-datum gradients (for tests and diagnostics)."""
-    p = X.shape[1]
-    for k in range(idx.shape[0]):
-        i = idx[k]
-        r = dloglik_eta(family, linear_predictor(X, i, beta, intercept, offset), y[i], noise_sd)
-        if intercept:
-            out[k, 0] = r
-        for j in range(p):
-            out[k, j + intercept] = r * X[i, j]
-
-
 # ---------------------------------------------------------------------------------------------
-# Full-data kernels (for the exact samplers and mode finding)
+# Serial full-data kernels over the rows [lo, hi) (exact samplers, mode finding, set-up)
 # ---------------------------------------------------------------------------------------------
 
 
 @jit
-def full_loglik(family, X, y, offset, noise_sd, intercept, beta):
-    """sum_i l_i(beta)."""
-    return full_loglik_shifted(family, X, y, offset, noise_sd, intercept, beta, True)
-
-
-@jit
-def full_loglik_shifted(family, X, y, offset, noise_sd, intercept, beta, with_const):
-    """As `full_loglik`, optionally without the per-datum constants (see full_loglik_grad_shifted)."""
-    w = beta[intercept:]
-    b0 = beta[0] if intercept else 0.0
+def full_loglik(data, beta, with_const, lo, hi):
+    """sum_{lo <= i < hi} l_i(beta); with ``with_const`` False the per-datum constants
+    (-log s sqrt(2 pi), -log y!) are left out: MCMC needs only differences, and the constants
+    cost a log or lgamma per row."""
+    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, data.noise_sd
+    w = beta[data.intercept:]
+    b0 = beta[0] if data.intercept else 0.0
     acc = 0.0
-    for i in range(X.shape[0]):
+    for i in range(lo, hi):
         eta = row_dot(X, i, w) + b0 + offset[i]
         c = log_norm_const(family, y[i], noise_sd) if with_const else 0.0
         acc += loglik_eta(family, eta, y[i], noise_sd, c)
@@ -227,23 +220,18 @@ def full_loglik_shifted(family, X, y, offset, noise_sd, intercept, beta, with_co
 
 
 @jit
-def full_loglik_grad(family, X, y, offset, noise_sd, intercept, beta, grad):
-    """sum_i l_i(beta), with sum_i grad l_i(beta) written into grad; one pass over the rows."""
-    return full_loglik_grad_shifted(family, X, y, offset, noise_sd, intercept, beta, grad, True)
-
-
-@jit
-def full_loglik_grad_shifted(family, X, y, offset, noise_sd, intercept, beta, grad, with_const):
-    """As `full_loglik_grad`; with ``with_const`` False the per-datum constants (-log s sqrt(2 pi),
-    -log y!) are left out: MCMC needs only differences, and the constants cost a log or lgamma
-    per row."""
+def full_loglik_grad(data, beta, grad, with_const, lo, hi):
+    """sum_{lo <= i < hi} l_i(beta), with the sum of grad l_i(beta) written into ``grad``; one
+    pass over the rows (``with_const`` as in `full_loglik`)."""
+    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, data.noise_sd
+    intercept = data.intercept
     p = X.shape[1]
     w = beta[intercept:]
     b0 = beta[0] if intercept else 0.0
     g = np.zeros(p)
     g0 = 0.0
     acc = 0.0
-    for i in range(X.shape[0]):
+    for i in range(lo, hi):
         eta = row_dot(X, i, w) + b0 + offset[i]
         c = log_norm_const(family, y[i], noise_sd) if with_const else 0.0
         li, r = loglik_and_dloglik_eta(family, eta, y[i], noise_sd, c)
@@ -258,25 +246,16 @@ def full_loglik_grad_shifted(family, X, y, offset, noise_sd, intercept, beta, gr
 
 
 @jit
-def full_loglik_diff(family, X, y, offset, noise_sd, intercept, beta_new, beta_old):
-    """sum_i [l_i(beta_new) - l_i(beta_old)], stable where each sum alone would lose digits."""
-    acc = 0.0
-    for i in range(X.shape[0]):
-        e1 = linear_predictor(X, i, beta_new, intercept, offset)
-        e0 = linear_predictor(X, i, beta_old, intercept, offset)
-        acc += loglik_diff_eta(family, e1, e0, y[i], noise_sd)
-    return acc
-
-
-@jit
-def full_hessian(family, X, y, offset, noise_sd, intercept, beta, hess):
-    """hess = sum_i f''(eta_i) x_i x_i^T (the log-likelihood Hessian; overwritten)."""
+def full_hessian(data, beta, hess, lo, hi):
+    """hess = sum_{lo <= i < hi} f''(eta_i) x_i x_i^T (the log-likelihood Hessian; overwritten)."""
+    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, data.noise_sd
+    intercept = data.intercept
     p = X.shape[1]
     d = p + intercept
     hess[:, :] = 0.0
     xi = np.empty(d)
-    for i in range(X.shape[0]):
-        w = d2loglik_eta(family, linear_predictor(X, i, beta, intercept, offset), y[i], noise_sd)
+    for i in range(lo, hi):
+        w = d2loglik_eta(family, linear_predictor(X, offset, intercept, i, beta), y[i], noise_sd)
         if intercept:
             xi[0] = 1.0
         for j in range(p):
@@ -291,10 +270,13 @@ def full_hessian(family, X, y, offset, noise_sd, intercept, beta, hess):
 
 
 @jit
-def full_eta_derivatives(family, X, y, offset, noise_sd, intercept, beta, eta, f1, f2):
-    """Cache eta_i, f'(eta_i), f''(eta_i) at beta for every row (control-variate proxies)."""
-    for i in range(X.shape[0]):
-        e = linear_predictor(X, i, beta, intercept, offset)
+def full_eta_derivatives(data, beta, eta, f1, f2, lo, hi):
+    """eta[i], f1[i], f2[i] = eta_i, f'(eta_i), f''(eta_i) at beta for lo <= i < hi (the row
+    cache of the control variates)."""
+    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, data.noise_sd
+    intercept = data.intercept
+    for i in range(lo, hi):
+        e = linear_predictor(X, offset, intercept, i, beta)
         eta[i] = e
         f1[i] = dloglik_eta(family, e, y[i], noise_sd)
         f2[i] = d2loglik_eta(family, e, y[i], noise_sd)
@@ -317,16 +299,15 @@ def _block_bounds(b, n):
 
 
 @pjit
-def par_loglik_grad_shifted(family, X, y, offset, noise_sd, intercept, beta, grad, with_const):
-    """As `full_loglik_grad_shifted`, parallel over blocks of rows."""
-    n = X.shape[0]
+def par_loglik_grad(data, beta, grad, with_const):
+    """As `full_loglik_grad` over all rows, parallel over blocks of rows."""
+    n = data.X.shape[0]
     d = grad.shape[0]
     nb = (n + BLOCK_ROWS - 1) // BLOCK_ROWS
     part = np.empty((nb, d + 1))
     for b in numba.prange(nb):
         lo, hi = _block_bounds(b, n)
-        part[b, 0] = full_loglik_grad_shifted(family, X[lo:hi], y[lo:hi], offset[lo:hi], noise_sd,
-                                              intercept, beta, part[b, 1:], with_const)
+        part[b, 0] = full_loglik_grad(data, beta, part[b, 1:], with_const, lo, hi)
     acc = 0.0
     for j in range(d):
         grad[j] = 0.0
@@ -338,16 +319,15 @@ def par_loglik_grad_shifted(family, X, y, offset, noise_sd, intercept, beta, gra
 
 
 @pjit
-def par_hessian(family, X, y, offset, noise_sd, intercept, beta, hess):
-    """As `full_hessian`, parallel over blocks of rows (hess is overwritten)."""
-    n = X.shape[0]
+def par_hessian(data, beta, hess):
+    """As `full_hessian` over all rows, parallel over blocks of rows (hess is overwritten)."""
+    n = data.X.shape[0]
     d = hess.shape[0]
     nb = (n + BLOCK_ROWS - 1) // BLOCK_ROWS
     part = np.empty((nb, d, d))
     for b in numba.prange(nb):
         lo, hi = _block_bounds(b, n)
-        full_hessian(family, X[lo:hi], y[lo:hi], offset[lo:hi], noise_sd, intercept, beta,
-                     part[b])
+        full_hessian(data, beta, part[b], lo, hi)
     for a in range(d):
         for c in range(d):
             acc = 0.0
@@ -357,11 +337,11 @@ def par_hessian(family, X, y, offset, noise_sd, intercept, beta, hess):
 
 
 @pjit
-def par_eta_derivatives(family, X, y, offset, noise_sd, intercept, beta, eta, f1, f2):
-    """As `full_eta_derivatives`, parallel over blocks of rows (each row is independent)."""
-    n = X.shape[0]
+def par_eta_derivatives(data, beta, eta, f1, f2):
+    """As `full_eta_derivatives` over all rows, parallel over blocks of rows (each row is
+    independent)."""
+    n = data.X.shape[0]
     nb = (n + BLOCK_ROWS - 1) // BLOCK_ROWS
     for b in numba.prange(nb):
         lo, hi = _block_bounds(b, n)
-        full_eta_derivatives(family, X[lo:hi], y[lo:hi], offset[lo:hi], noise_sd, intercept, beta,
-                             eta[lo:hi], f1[lo:hi], f2[lo:hi])
+        full_eta_derivatives(data, beta, eta, f1, f2, lo, hi)

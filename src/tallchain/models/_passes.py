@@ -27,38 +27,47 @@ PARALLEL_MIN_ROWS = 200_000
 _LOCK = threading.Lock()
 
 
-def _run(serial, parallel, kernel_args, *rest):
-    """Call the serial kernel on short data, else the parallel one under the lock."""
-    if kernel_args[1].shape[0] < PARALLEL_MIN_ROWS:
-        return serial(*kernel_args, *rest)
+def _run(serial, parallel, data, *rest):
+    """Call the serial kernel on all rows of short data, else the parallel one under the lock."""
+    n_rows = data.X.shape[0]
+    if n_rows < PARALLEL_MIN_ROWS:
+        return serial(data, *rest, 0, n_rows)
     with _LOCK:
-        return parallel(*kernel_args, *rest)
+        return parallel(data, *rest)
 
 
-def _beta(kernel_args, beta):
+def _beta(data, beta):
     """beta as a contiguous float64 vector of the model's length (checked)."""
-    X, intercept = kernel_args[1], kernel_args[5]
-    return coef_vector(beta, X.shape[1] + intercept)
+    return coef_vector(beta, data.X.shape[1] + data.intercept)
 
 
-def loglik_grad(kernel_args, beta):
-    """Full-data log-likelihood (constants included) and its gradient at beta, in one pass."""
-    beta = _beta(kernel_args, beta)
+def loglik_grad(data, beta):
+    """Full-data log-likelihood (constants included) and its gradient at beta, in one pass.
+
+    Parameters
+    ----------
+    data : GLMData
+    beta : array-like of shape (n_coef,)
+
+    Returns
+    -------
+    float, ndarray of shape (n_coef,)
+    """
+    beta = _beta(data, beta)
     grad = np.empty(beta.shape[0])
-    val = _run(_kernels.full_loglik_grad_shifted, _kernels.par_loglik_grad_shifted, kernel_args,
-               beta, grad, True)
+    val = _run(_kernels.full_loglik_grad, _kernels.par_loglik_grad, data, beta, grad, True)
     return val, grad
 
 
-def hessian(kernel_args, beta):
-    """Full-data log-likelihood Hessian sum_i f''(eta_i) x_i x_i^T at beta."""
-    beta = _beta(kernel_args, beta)
+def hessian(data, beta):
+    """Full-data log-likelihood Hessian sum_i f''(eta_i) x_i x_i^T at beta (``data``: GLMData)."""
+    beta = _beta(data, beta)
     hess = np.empty((beta.shape[0], beta.shape[0]))
-    _run(_kernels.full_hessian, _kernels.par_hessian, kernel_args, beta, hess)
+    _run(_kernels.full_hessian, _kernels.par_hessian, data, beta, hess)
     return hess
 
 
-def eta_derivatives(kernel_args, beta, eta, f1, f2):
+def eta_derivatives(data, beta, eta, f1, f2):
     """Write eta_i, f'(eta_i), f''(eta_i) at beta into eta, f1, f2 (length-N, may be strided)."""
-    _run(_kernels.full_eta_derivatives, _kernels.par_eta_derivatives, kernel_args,
-         _beta(kernel_args, beta), eta, f1, f2)
+    _run(_kernels.full_eta_derivatives, _kernels.par_eta_derivatives, data, _beta(data, beta),
+         eta, f1, f2)

@@ -1,12 +1,16 @@
-"""Pure-NumPy references for the numba kernels (private; used by the tests).
+"""Pure-NumPy references for the numba kernels of ``_kernels.py`` (private; used by the tests).
 
-Each function here computes, with whole-array NumPy and no attention to speed, what one kernel
-in ``_kernels.py`` (GLM log-likelihoods, gradients, Hessians) or ``.._estimator_kernels.py``
-(control-variate estimators) computes row by row. They are the documentation of those kernels:
-read a reference to learn what a kernel returns.
+Each public function here has the name of the kernel it checks and computes, with whole-array
+NumPy and no attention to speed, what that kernel computes row by row; where the kernel writes
+into an output array, the reference returns the value instead. They are the documentation of
+those kernels: read a reference to learn what a kernel returns. (The parallel kernels
+``par_loglik_grad``, ``par_hessian`` and ``par_eta_derivatives`` compute what `full_loglik_grad`,
+`full_hessian` and `full_eta_derivatives` compute over all rows.) The references of the
+minibatch estimators are in ``tallchain.mcmc._reference``.
 
 Conventions, shared with the kernels:
 
+* ``data`` is a ``GLMData(family, X, y, offset, noise_sd, intercept)`` (``model.glm_data``).
 * ``family`` is ``LINEAR`` (0), ``LOGISTIC`` (1) or ``POISSON`` (2).
 * The linear predictor is eta_i = [beta_0] + x_i . beta_{intercept:} + offset_i: with
   ``intercept`` true, coefficient 0 is the intercept and ``X`` has no column of ones.
@@ -21,7 +25,7 @@ Conventions, shared with the kernels:
   ========  ===========================================  ===============  ==============
 
   with s the known noise sd of the linear family.
-* ``idx`` selects rows (default: all rows, in order).
+* ``idx`` selects rows; ``lo, hi`` a range of rows (default: all rows, in order).
 
 The references evaluate the definitions directly (l(b') - l(b) is a plain subtraction), so they
 are meant for moderate linear predictors; the kernels' behaviour at extreme |eta| is tested
@@ -61,16 +65,16 @@ def log_norm_const(family, y, noise_sd):
     return np.zeros(y.shape)
 
 
-def loglik_eta(family, eta, y, noise_sd):
-    """f(eta; y), including the normalising constant."""
+def loglik_eta(family, eta, y, noise_sd, log_norm):
+    """f(eta; y) + log_norm (the kernel adds the constant it is given)."""
     eta = np.asarray(eta, dtype=np.float64)
     y = np.asarray(y, dtype=np.float64)
     if family == LINEAR:
-        return -0.5 * ((y - eta) / noise_sd) ** 2 + log_norm_const(family, y, noise_sd)
+        return -0.5 * ((y - eta) / noise_sd) ** 2 + log_norm
     if family == LOGISTIC:
-        return y * eta - softplus(eta)
+        return y * eta - softplus(eta) + log_norm
     with np.errstate(over="ignore"):
-        return y * eta - np.exp(eta) + log_norm_const(family, y, noise_sd)
+        return y * eta - np.exp(eta) + log_norm
 
 
 def dloglik_eta(family, eta, y, noise_sd):
@@ -95,6 +99,18 @@ def d2loglik_eta(family, eta, y, noise_sd):
     return -np.exp(eta)
 
 
+def loglik_and_dloglik_eta(family, eta, y, noise_sd, log_norm):
+    """(f(eta; y) + log_norm, f'(eta; y))."""
+    return (loglik_eta(family, eta, y, noise_sd, log_norm),
+            dloglik_eta(family, eta, y, noise_sd))
+
+
+def loglik_diff_eta(family, eta_new, eta_old, y, noise_sd):
+    """f(eta_new) - f(eta_old), as a plain difference (moderate eta only)."""
+    return (loglik_eta(family, eta_new, y, noise_sd, 0.0)
+            - loglik_eta(family, eta_old, y, noise_sd, 0.0))
+
+
 # ---------------------------------------------------------------------------------------------
 # Design and linear predictor
 # ---------------------------------------------------------------------------------------------
@@ -110,197 +126,83 @@ def design(X, intercept, idx=None):
     return rows
 
 
-def linear_predictor(X, beta, intercept, offset, idx=None):
-    """eta_i = Phi_i . beta + offset_i for the rows ``idx``."""
-    off = np.asarray(offset, dtype=np.float64)
+def linear_predictor(data, beta, idx=None):
+    """eta_i = Phi_i . beta + offset_i for the rows ``idx`` (kernel ``linear_predictor``, one
+    row at a time)."""
+    off = np.asarray(data.offset, dtype=np.float64)
     if idx is not None:
         off = off[np.asarray(idx)]
-    return design(X, intercept, idx) @ np.asarray(beta, dtype=np.float64) + off
+    return design(data.X, data.intercept, idx) @ np.asarray(beta, dtype=np.float64) + off
 
 
-def _rows(y, idx):
-    y = np.asarray(y, dtype=np.float64)
-    return y if idx is None else y[np.asarray(idx)]
+def rows_of(values, idx=None, lo=0, hi=None):
+    """values[idx], or values[lo:hi] when idx is None, as float64."""
+    v = np.asarray(values, dtype=np.float64)
+    return v[np.asarray(idx)] if idx is not None else v[lo:hi]
 
 
-# ---------------------------------------------------------------------------------------------
-# Per-datum quantities (batch_loglik, batch_loglik_diff, batch_grad_rows, batch_grad_sum)
-# ---------------------------------------------------------------------------------------------
-
-
-def pointwise_loglik(family, X, y, offset, noise_sd, intercept, beta, idx=None):
-    """l_i(beta) for i in idx (kernel ``batch_loglik``)."""
-    eta = linear_predictor(X, beta, intercept, offset, idx)
-    return loglik_eta(family, eta, _rows(y, idx), noise_sd)
-
-
-def pointwise_loglik_diff(family, X, y, offset, noise_sd, intercept, beta_new, beta_old, idx=None):
-    """D_i = l_i(beta_new) - l_i(beta_old) for i in idx (kernel ``batch_loglik_diff``)."""
-    args = (family, X, y, offset, noise_sd, intercept)
-    return pointwise_loglik(*args, beta_new, idx) - pointwise_loglik(*args, beta_old, idx)
-
-
-def grad_rows(family, X, y, offset, noise_sd, intercept, beta, idx=None):
-    """Row k is grad l_{idx[k]}(beta) = f'(eta_i) Phi_i (kernel ``batch_grad_rows``)."""
-    eta = linear_predictor(X, beta, intercept, offset, idx)
-    return dloglik_eta(family, eta, _rows(y, idx), noise_sd)[:, None] * design(X, intercept, idx)
-
-
-def grad_sum(family, X, y, offset, noise_sd, intercept, beta, idx=None):
-    """sum_{i in idx} grad l_i(beta) (kernel ``batch_grad_sum``)."""
-    return grad_rows(family, X, y, offset, noise_sd, intercept, beta, idx).sum(axis=0)
+def _range(data, lo, hi):
+    """The row indices lo .. hi - 1 (hi None: all rows)."""
+    n = np.asarray(data.X).shape[0]
+    return np.arange(lo, n if hi is None else hi)
 
 
 # ---------------------------------------------------------------------------------------------
-# Full-data sums (full_loglik, full_loglik_grad, full_loglik_diff, full_hessian,
-# full_eta_derivatives)
+# The batch kernel
 # ---------------------------------------------------------------------------------------------
 
 
-def loglik(family, X, y, offset, noise_sd, intercept, beta, *, with_const=True):
-    """sum_i l_i(beta) (kernels ``full_loglik`` and the value of ``full_loglik_grad``).
+def batch_loglik(data, beta, idx):
+    """l_i(beta) for i in idx, constants included."""
+    y = rows_of(data.y, idx)
+    eta = linear_predictor(data, beta, idx)
+    return loglik_eta(data.family, eta, y, data.noise_sd,
+                      log_norm_const(data.family, y, data.noise_sd))
 
-    With ``with_const=False`` the per-datum constants (``log_norm_const``) are left out, as in
-    ``full_loglik_shifted`` and ``full_loglik_grad_shifted`` with ``with_const`` false.
-    """
-    total = np.sum(pointwise_loglik(family, X, y, offset, noise_sd, intercept, beta))
+
+def grad_rows(data, beta, idx):
+    """Row k is grad l_{idx[k]}(beta) = f'(eta_i) Phi_i (the terms the gradient kernels sum)."""
+    eta = linear_predictor(data, beta, idx)
+    f1 = dloglik_eta(data.family, eta, rows_of(data.y, idx), data.noise_sd)
+    return f1[:, None] * design(data.X, data.intercept, idx)
+
+
+# ---------------------------------------------------------------------------------------------
+# Full-data sums over the rows [lo, hi)
+# ---------------------------------------------------------------------------------------------
+
+
+def full_loglik(data, beta, with_const=True, lo=0, hi=None):
+    """sum_{lo <= i < hi} l_i(beta); with ``with_const`` False without the per-datum constants
+    (``log_norm_const``)."""
+    idx = _range(data, lo, hi)
+    total = np.sum(batch_loglik(data, beta, idx))
     if not with_const:
-        total -= np.sum(log_norm_const(family, y, noise_sd))
+        total -= np.sum(log_norm_const(data.family, rows_of(data.y, idx), data.noise_sd))
     return float(total)
 
 
-def loglik_diff(family, X, y, offset, noise_sd, intercept, beta_new, beta_old):
-    """sum_i [l_i(beta_new) - l_i(beta_old)] (kernel ``full_loglik_diff``)."""
-    return float(np.sum(pointwise_loglik_diff(family, X, y, offset, noise_sd, intercept,
-                                              beta_new, beta_old)))
+def full_loglik_grad(data, beta, with_const=True, lo=0, hi=None):
+    """(sum_i l_i(beta), sum_i grad l_i(beta)) over the rows [lo, hi) (the kernel writes the
+    gradient into its ``grad`` argument)."""
+    return (full_loglik(data, beta, with_const, lo, hi),
+            grad_rows(data, beta, _range(data, lo, hi)).sum(axis=0))
 
 
-def hessian(family, X, y, offset, noise_sd, intercept, beta):
-    """sum_i f''(eta_i) Phi_i Phi_i^T = Phi^T diag(f'') Phi (kernel ``full_hessian``)."""
-    phi = design(X, intercept)
-    eta = linear_predictor(X, beta, intercept, offset)
-    w = d2loglik_eta(family, eta, y, noise_sd)
+def full_hessian(data, beta, lo=0, hi=None):
+    """sum_i f''(eta_i) Phi_i Phi_i^T = Phi^T diag(f'') Phi over the rows [lo, hi)."""
+    idx = _range(data, lo, hi)
+    phi = design(data.X, data.intercept, idx)
+    eta = linear_predictor(data, beta, idx)
+    w = d2loglik_eta(data.family, eta, rows_of(data.y, idx), data.noise_sd)
     return phi.T @ (w[:, None] * phi)
 
 
-def eta_derivatives(family, X, y, offset, noise_sd, intercept, beta):
-    """(eta_i, f'(eta_i), f''(eta_i)) for every row (kernel ``full_eta_derivatives``)."""
-    eta = linear_predictor(X, beta, intercept, offset)
-    return eta, dloglik_eta(family, eta, y, noise_sd), d2loglik_eta(family, eta, y, noise_sd)
-
-
-# ---------------------------------------------------------------------------------------------
-# Control variates and estimators (.._estimator_kernels)
-# ---------------------------------------------------------------------------------------------
-
-
-def proxy_rows(family, X, y, offset, noise_sd, intercept, beta, beta_star, cv_order, idx=None):
-    """q_i(beta): the Taylor proxy of l_i around beta_star, of order ``cv_order`` (0, 1 or 2).
-
-    q_i = f(eta*_i) + f'(eta*_i) (eta_i - eta*_i) [+ 1/2 f''(eta*_i) (eta_i - eta*_i)^2]
-    (METHODS.md section 4). Order 0 is the constant f(eta*_i).
-    """
-    yy = _rows(y, idx)
-    eta = linear_predictor(X, beta, intercept, offset, idx)
-    eta_star = linear_predictor(X, beta_star, intercept, offset, idx)
-    u = eta - eta_star
-    q = loglik_eta(family, eta_star, yy, noise_sd)
-    if cv_order >= 1:
-        q = q + dloglik_eta(family, eta_star, yy, noise_sd) * u
-    if cv_order >= 2:
-        q = q + 0.5 * d2loglik_eta(family, eta_star, yy, noise_sd) * u * u
-    return q
-
-
-def proxy_grad_rows(family, X, y, offset, noise_sd, intercept, beta, beta_star, cv_order,
-                    idx=None):
-    """Row k is grad q_{idx[k]}(beta) = [f'*_i (+ f''*_i (eta_i - eta*_i))] Phi_i (0 for order 0)."""
-    yy = _rows(y, idx)
-    phi = design(X, intercept, idx)
-    eta = linear_predictor(X, beta, intercept, offset, idx)
-    eta_star = linear_predictor(X, beta_star, intercept, offset, idx)
-    w = np.zeros(eta.shape)
-    if cv_order >= 1:
-        w = w + dloglik_eta(family, eta_star, yy, noise_sd)
-    if cv_order >= 2:
-        w = w + d2loglik_eta(family, eta_star, yy, noise_sd) * (eta - eta_star)
-    return w[:, None] * phi
-
-
-def residual_diffs(family, X, y, offset, noise_sd, intercept, beta_new, beta_old, beta_star,
-                   cv_order, idx=None):
-    """r_i(b') - r_i(b) = D_i - [q_i(b') - q_i(b)] for i in idx (kernel ``batch_residual_diffs``)."""
-    args = (family, X, y, offset, noise_sd, intercept)
-    d = pointwise_loglik_diff(*args, beta_new, beta_old, idx)
-    dq = (proxy_rows(*args, beta_new, beta_star, cv_order, idx)
-          - proxy_rows(*args, beta_old, beta_star, cv_order, idx))
-    return d - dq
-
-
-def cv_gradient_sum(family, X, y, offset, noise_sd, intercept, beta, beta_star, cv_order, idx):
-    """sum_{i in idx} [grad l_i(beta) - grad q_i(beta)] (kernel ``cv_gradient_rows``)."""
-    args = (family, X, y, offset, noise_sd, intercept)
-    return (grad_rows(*args, beta, idx)
-            - proxy_grad_rows(*args, beta, beta_star, cv_order, idx)).sum(axis=0)
-
-
-def proxy_gradient_sum(family, X, y, offset, noise_sd, intercept, beta, beta_star, cv_order):
-    """sum_i grad q_i(beta) over all rows (kernel ``proxy_gradient_sum``, which uses g*, H*)."""
-    return proxy_grad_rows(family, X, y, offset, noise_sd, intercept, beta, beta_star,
-                           cv_order).sum(axis=0)
-
-
-def proxy_loglik_diff_sum(family, X, y, offset, noise_sd, intercept, beta_new, beta_old,
-                          beta_star, cv_order):
-    """Q(b') - Q(b) = sum_i [q_i(b') - q_i(b)] over all rows, summed row by row
-    (kernel ``proxy_loglik_diff_sum``, which uses the closed form in g*, H*)."""
-    args = (family, X, y, offset, noise_sd, intercept)
-    return float(np.sum(proxy_rows(*args, beta_new, beta_star, cv_order)
-                        - proxy_rows(*args, beta_old, beta_star, cv_order)))
-
-
-def cv_gradient(family, X, y, offset, noise_sd, intercept, beta, beta_star, cv_order, idx):
-    """The control-variate gradient estimate of sum_i grad l_i(beta) from the batch idx:
-    sum_i grad q_i(beta) + (N/n) sum_{i in idx} [grad l_i(beta) - grad q_i(beta)]
-    (Baker, Fearnhead, Fox & Nemeth 2019; METHODS.md section 4)."""
-    args = (family, X, y, offset, noise_sd, intercept)
-    n_rows = np.asarray(X).shape[0]
-    n = np.asarray(idx).shape[0]
-    return (proxy_gradient_sum(*args, beta, beta_star, cv_order)
-            + n_rows / n * cv_gradient_sum(*args, beta, beta_star, cv_order, idx))
-
-
-def prior_logpdf_diff(prior_mean, prior_prec, beta_new, beta_old):
-    """log p(b') - log p(b) for N(m, P^{-1}): -1/2 (b'-m)'P(b'-m) + 1/2 (b-m)'P(b-m)."""
-    r1 = np.asarray(beta_new) - prior_mean
-    r0 = np.asarray(beta_old) - prior_mean
-    return float(-0.5 * r1 @ prior_prec @ r1 + 0.5 * r0 @ prior_prec @ r0)
-
-
-def prior_grad(prior_mean, prior_prec, beta):
-    """grad log p(beta) = -P (beta - m) (what kernel ``add_prior_grad`` adds)."""
-    return -np.asarray(prior_prec) @ (np.asarray(beta) - prior_mean)
-
-
-def scaled_sum_and_variance(values, n_rows):
-    """(N mean, N^2 (1 - n/N) s^2 / n, skewness g1, excess kurtosis g2) of a batch of n values.
-
-    s^2 is the sample variance with divisor n - 1 (0 when n = 1): the unbiased estimate of the
-    population variance S^2 under simple random sampling without replacement, so the second
-    entry estimates Var(N mean) without bias (Cochran, Sampling Techniques, ch. 2). The shape
-    statistics are the moment ratios g1 = m3 / m2^{3/2} and g2 = m4 / m2^2 - 3 with divisor n
-    (both 0 when the values are all equal).
-    """
-    v = np.asarray(values, dtype=np.float64)
-    n = v.shape[0]
-    mean = v.mean()
-    c = v - mean
-    s2 = c @ c / (n - 1) if n > 1 else 0.0
-    var = n_rows**2 * (1.0 - n / n_rows) * s2 / n
-    m2 = np.mean(c**2)
-    if m2 > 0.0:
-        skew = np.mean(c**3) / m2**1.5
-        kurt = np.mean(c**4) / m2**2 - 3.0
-    else:
-        skew = kurt = 0.0
-    return float(n_rows * mean), float(var), float(skew), float(kurt)
+def full_eta_derivatives(data, beta, lo=0, hi=None):
+    """(eta_i, f'(eta_i), f''(eta_i)) for the rows [lo, hi) (the kernel writes them into rows
+    lo .. hi - 1 of its three output arrays)."""
+    idx = _range(data, lo, hi)
+    eta = linear_predictor(data, beta, idx)
+    y = rows_of(data.y, idx)
+    return (eta, dloglik_eta(data.family, eta, y, data.noise_sd),
+            d2loglik_eta(data.family, eta, y, data.noise_sd))

@@ -1,11 +1,26 @@
 """Mass matrices (preconditioners) from the Laplace approximation or given (private)."""
 
+from collections import namedtuple
 from dataclasses import dataclass
 
 import numpy as np
 
 from .._arrays import spd_inverse
 from .._validation import one_of, spd_matrix_and_inverse
+
+
+MassMatrix = namedtuple("MassMatrix", ["mass", "mass_inv", "mass_inv_chol"])
+MassMatrix.__doc__ = """A mass matrix as the transition kernel takes it.
+
+Attributes
+----------
+mass : ndarray of shape (n_coef, n_coef)
+    M, symmetric positive definite.
+mass_inv : ndarray of shape (n_coef, n_coef)
+    M^{-1}.
+mass_inv_chol : ndarray of shape (n_coef, n_coef)
+    L, lower triangular with L L^T = M^{-1}.
+"""
 
 
 @dataclass
@@ -16,6 +31,11 @@ class Preconditioner:
     mass: np.ndarray
     mass_inv: np.ndarray
     mass_inv_chol: np.ndarray
+
+    @property
+    def matrices(self):
+        """The matrices as the kernel takes them: ``MassMatrix(mass, mass_inv, mass_inv_chol)``."""
+        return MassMatrix(self.mass, self.mass_inv, self.mass_inv_chol)
 
 
 MASS_MATRIX_KINDS = ("laplace", "laplace-diagonal", "identity")
