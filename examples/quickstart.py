@@ -33,7 +33,7 @@ model = tc.PoissonRegression(X, y, prior=tc.GaussianPrior(sd=5.0),
 result = tc.sample(model, method="penalty-mala", step_size="auto", batch_size="auto",
                    control_variates=True, chains=4, draws=1000, warmup=500, seed=1)
 
-# 4. Summary: per-coefficient mean, sd, quantiles, ESS, R-hat, and the cost of the run.
+# 4. Summary: per-coefficient mean, sd, 90% interval, ESS, R-hat, and the cost of the run.
 summary = result.summary()
 print(f"{'coef':<12}{'true':>8}{'mean':>9}{'sd':>9}{'ess_bulk':>10}{'r_hat':>8}")
 for j, name in enumerate(summary.table["coef"]):

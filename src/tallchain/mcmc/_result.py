@@ -100,8 +100,15 @@ class SampleResult:
         """
         return to_arviz(self)
 
-    def summary(self, *, warn=True):
+    def summary(self, *, warn=True, interval=0.9):
         """Per-coefficient summary (ESS, R-hat and MCSE by ArviZ) and the run's cost figures.
+
+        Parameters
+        ----------
+        warn : bool, default=True
+        interval : float, default=0.9
+            Probability of the central posterior interval (columns ``lower_90``, ``median``,
+            ``upper_90`` for 0.9).
 
         Returns
         -------
@@ -113,15 +120,17 @@ class SampleResult:
         tallchain.exceptions.ConvergenceWarning
             R-hat above 1.01 or a bulk/tail ESS below 400 for some coefficient.
         """
-        return summarize(self, warn=warn)
+        return summarize(self, warn=warn, interval=interval)
 
-    def save(self, directory):
+    def save(self, directory, *, interval=0.9):
         """Write posterior.nc, summary.csv and run.json into ``directory``, atomically.
 
         Parameters
         ----------
         directory : path-like
             Created when missing.
+        interval : float, default=0.9
+            Probability of the central interval in summary.csv (see `summary`).
 
         Returns
         -------
@@ -130,7 +139,7 @@ class SampleResult:
         """
         from ..outputs import save_result
 
-        return save_result(self, directory)
+        return save_result(self, directory, interval=interval)
 
 
 def _package_version():
