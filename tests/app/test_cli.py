@@ -288,7 +288,8 @@ def test_a_folder_for_a_file_and_a_file_for_a_folder_exit_2(tmp_path, rng, capsy
 
 
 @pytest.mark.parametrize("argv, pattern", [
-    (["--draws", "0"], r"--draws: must be >= 1, got 0"),
+    (["--thinned-draws", "0"], r"--thinned-draws: must be >= 1, got 0"),
+    (["--draws", "0"], r"sampler\.draws \(from the command line\): must be >= 1, got 0"),
     (["--replications", "1"], r"--replications: must be >= 2, got 1"),
     (["--level", "2"], r"--level: must be a probability between 0 and 1, got 2\.0"),
 ])

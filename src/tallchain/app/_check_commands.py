@@ -140,21 +140,22 @@ def _sweep(args):
 
 
 def _add_calibrate_arguments(parser):
-    add_config_arguments(parser, exclude=("--draws",))
+    add_config_arguments(parser)
     parser.add_argument("--replications", type=int, default=100, metavar="R",
                         help="simulated data sets (default 100)")
-    parser.add_argument("--draws", dest="rank_draws", type=int, default=99, metavar="L",
+    parser.add_argument("--thinned-draws", type=int, default=99, metavar="L",
                         help="thinned posterior draws each true value is ranked among "
-                             "(default 99); the sampler's draws per chain come from the config")
+                             "(default 99), out of the chains x draws a replication keeps")
     parser.add_argument("--prior", choices=("laplace", "model"), default="laplace",
+                        metavar="laplace|model",
                         help="calibration prior (default: Laplace approximation of the posterior)")
-    parser.add_argument("--level", type=float, default=0.05,
+    parser.add_argument("--level", type=float, default=0.05, metavar="A",
                         help="family-wise level, Bonferroni over coefficients (default 0.05)")
     _scheduler_argument(parser)
 
 
 # calibrate()'s own arguments, named as the options that set them.
-_CALIBRATE_OPTIONS = {"thinned_draws": "--draws", "replications": "--replications",
+_CALIBRATE_OPTIONS = {"thinned_draws": "--thinned-draws", "replications": "--replications",
                       "level": "--level"}
 
 
@@ -172,8 +173,8 @@ def _calibrate(args):
     compute = config.compute
     t = time.perf_counter()
     with warnings_as_lines(), config.named_fields(), named_fields(_CALIBRATE_OPTIONS):
-        res = calibrate(model, replications=args.replications, thinned_draws=args.rank_draws,
-                        prior=args.prior, level=args.level, seed=seed,
+        res = calibrate(model, replications=args.replications,
+                        thinned_draws=args.thinned_draws, prior=args.prior, level=args.level, seed=seed,
                         scheduler=option_or(args.scheduler, compute.get("scheduler", "processes")),
                         workers=option_or(args.workers, compute.get("workers")),
                         progress=not args.quiet, **settings)
@@ -184,8 +185,9 @@ def _calibrate(args):
     plot_calibration(res, out / "calibrate.png")
     if not args.quiet:
         per = res.level / len(res.coef_names)
-        print(f"simulation-based calibration: R = {args.replications}, L = {args.rank_draws}, "
-              f"prior {args.prior}, level {res.level} (per coefficient {per:.3g})")
+        print(f"simulation-based calibration: R = {args.replications}, "
+              f"L = {args.thinned_draws}, prior {args.prior}, level {res.level} "
+              f"(per coefficient {per:.3g})")
         w = max(14, *(len(name) for name in res.coef_names))
         for name, p in zip(res.coef_names, res.p_values):
             print(f"  {name:<{w}} p = {p:.4f}  {'calibrated' if p > per else 'MISCALIBRATED'}")
