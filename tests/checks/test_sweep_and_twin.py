@@ -28,10 +28,10 @@ def test_sweep_shows_sgld_bias_and_recommends_an_unbiased_setting(linear, tmp_pa
     by = {(r["method"], r["step_size"]): r for r in res.rows}
     steps = sorted({r["step_size"] for r in res.rows})
     big = [by[("sgld", h)] for h in steps[-4:]]
-    assert all(r["verdict"] in ("biased", "diverged") for r in big)
+    assert all(r["verdict"] in ("biased", "non-finite draws") for r in big)
     assert max(r["ks_ratio_max"] for r in big if r["verdict"] == "biased") > 1.5
     pen = [by[("penalty-mala", h)] for h in steps]
-    assert all(r["ks_ratio_max"] <= 1.5 for r in pen if r["verdict"] != "diverged")
+    assert all(r["ks_ratio_max"] <= 1.5 for r in pen if r["verdict"] != "non-finite draws")
     best = res.recommended
     assert best is not None and best["verdict"] == "within noise"
     # A fresh run at the recommended setting is within the floor.
@@ -43,6 +43,9 @@ def test_sweep_shows_sgld_bias_and_recommends_an_unbiased_setting(linear, tmp_pa
     assert saved["recommended"]["step_size"] == best["step_size"]
     header = (tmp_path / "sweep.csv").read_text().splitlines()[0].split(",")
     assert header[:3] == ["method", "step_size", "batch_size"] and "verdict" in header
+    # spelled as in run.json
+    assert {"acceptance_rate", "data_evaluations_per_draw", "wall_seconds", "ess_bulk_min",
+            "ess_per_second", "log_ratio_sd_mean"} <= set(header)
     assert (tmp_path / "sweep.png").stat().st_size > 10_000
 
 
@@ -51,7 +54,7 @@ def test_sweep_numbers_do_not_depend_on_worker_count(linear):
     one = sweep(linear, workers=1, **kw)
     two = sweep(linear, workers=2, **kw)
     for a, b in zip(one.rows, two.rows):
-        assert a["ks_max"] == b["ks_max"] and a["acceptance"] == b["acceptance"]
+        assert a["ks_max"] == b["ks_max"] and a["acceptance_rate"] == b["acceptance_rate"]
 
 
 @pytest.mark.parametrize("family", ["linear", "logistic"])

@@ -127,7 +127,7 @@ def _sweep(args):
         for r in res.rows:
             print(f"{r['method']:<14}{r['step_size']:>10.4g}{str(r['batch_size'] or '-'):>7}"
                   f"{r['ks_ratio_max']:>10.2f}{r['ess_per_second']:>10.4g}"
-                  f"{r['acceptance']:>8.3f}  {r['verdict']}")
+                  f"{r['acceptance_rate']:>8.3f}  {r['verdict']}")
         best = res.recommended
         if best is not None:
             print(f"recommended: method = {best['method']}, step_size = {best['step_size']:.4g}"

@@ -18,9 +18,10 @@ from ..posterior import conjugate_posterior
 from ._ks import ks_check
 from ._twin import check_tolerance
 
+# The quantities run.json also reports are spelled as there.
 COLUMNS = ("method", "step_size", "batch_size", "ks_max", "ks_ratio_max", "ks_floor",
-           "ess_bulk_min", "ess_per_second", "acceptance", "log_ratio_sd_mean",
-           "data_evals_per_draw", "seconds", "verdict")
+           "ess_bulk_min", "ess_per_second", "acceptance_rate", "log_ratio_sd_mean",
+           "data_evaluations_per_draw", "wall_seconds", "verdict")
 DEFAULT_STEP_FACTORS = tuple(2.0**k for k in range(-3, 4))
 # Below this ESS the noise floor is so wide that "within noise" says little (common practice:
 # ESS of a few hundred for stable tail summaries; we ask for 100 per point).
@@ -112,7 +113,7 @@ def _run_point(model, reference, tolerance, settings, options):
     j = int(np.argmax(ratio))
     ess_min = float(np.min(k.ess)) if finite else float("nan")
     if not finite:
-        verdict = "diverged"
+        verdict = "non-finite draws"
     elif not ess_min >= MIN_ESS_FOR_VERDICT:
         verdict = f"inconclusive (ESS < {MIN_ESS_FOR_VERDICT})"
     else:
@@ -125,9 +126,9 @@ def _run_point(model, reference, tolerance, settings, options):
         "ks_max": float(np.max(k.ks)), "ks_ratio_max": float(ratio[j]) if finite else float("nan"),
         "ks_floor": float(k.floor[j]), "ess_bulk_min": ess_min,
         "ess_per_second": ess_min / r.sampling_seconds if r.sampling_seconds > 0 else float("nan"),
-        "acceptance": r.acceptance_rate,
+        "acceptance_rate": r.acceptance_rate,
         "log_ratio_sd_mean": float(np.nanmean(sd)) if np.isfinite(sd).any() else float("nan"),
-        "data_evals_per_draw": r.data_evaluations / iters, "seconds": seconds,
+        "data_evaluations_per_draw": r.data_evaluations / iters, "wall_seconds": seconds,
         "verdict": verdict,
     }
 
