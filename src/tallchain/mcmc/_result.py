@@ -177,7 +177,10 @@ def to_arviz(result):
             "sample_stats": {k: v for k, v in result.stats.items()}}
     if result.warmup_stats and next(iter(result.warmup_stats.values())).shape[1]:
         data["warmup_sample_stats"] = dict(result.warmup_stats)
-    tree = az.from_dict(data, dims={"beta": ["coef"]}, coords={"coef": list(result.coef_names)})
+    # ArviZ drops every group whose name holds "warmup" unless asked to keep it (its rcParam
+    # data.save_warmup defaults to False).
+    tree = az.from_dict(data, dims={"beta": ["coef"]}, coords={"coef": list(result.coef_names)},
+                        save_warmup=True)
     tree.attrs.update(attrs)
     tree["posterior"].attrs.update(attrs)
     return tree
