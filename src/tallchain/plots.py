@@ -77,8 +77,7 @@ def plot_run(result, directory):
     pc = az.plot_trace_dist(tree, var_names=["beta"], compact=False, backend="matplotlib")
     pc.savefig(out / "trace.png")
     files.append(out / "trace.png")
-    pc = az.plot_rank(tree, var_names=["beta"], backend="matplotlib")
-    pc.savefig(out / "rank.png")
+    rank_plot(tree).savefig(out / "rank.png")
     files.append(out / "rank.png")
     plt.close("all")
 
@@ -107,6 +106,33 @@ def plot_run(result, directory):
     plt.close(fig)
     files.append(out / "log_ratio_sd.png")
     return files
+
+
+def rank_plot(tree, columns=4):
+    """ArviZ's rank plot of ``beta`` in ``tree`` (a run's `to_arviz`), laid out for reading.
+
+    One panel of 3 x 2.4 inches per coefficient, up to ``columns`` a row, titled by the
+    coefficient's name alone, under matplotlib's constrained layout: ArviZ's default height
+    (about 2 inches a row) and two-line titles ("beta" over the name) let the titles overlap
+    the tick labels of the row above. The chains are thinned first (ArviZ's automatic factor,
+    from bulk and tail ESS): on the unthinned draws of exact full-data MALA runs (20 seeds, 6
+    coefficients, 4 x 500 draws) the panels' uniformity test gave p < 0.01 for 63% of the
+    coefficients, thinned for 3%.
+
+    Returns
+    -------
+    arviz_plots.PlotCollection
+    """
+    import arviz as az
+    from arviz_base.labels import NoVarLabeller
+
+    _pyplot()
+    n_coef = tree["posterior"]["beta"].sizes["coef"]
+    rows = -(-n_coef // columns)
+    figure = {"figsize": (3.0 * min(n_coef, columns), 2.4 * rows), "figsize_units": "inches",
+              "layout": "constrained"}
+    return az.plot_rank(tree, var_names=["beta"], backend="matplotlib", thin=True,
+                        labeller=NoVarLabeller(), col_wrap=columns, figure_kwargs=figure)
 
 
 def plot_calibration(result, path):
