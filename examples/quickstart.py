@@ -40,7 +40,7 @@ for j, name in enumerate(summary.table["coef"]):
     print(f"{name:<12}{true_beta[j]:>8.3f}{summary.table['mean'][j]:>9.4f}"
           f"{summary.table['sd'][j]:>9.4f}{summary.table['ess_bulk'][j]:>10.0f}"
           f"{summary.table['r_hat'][j]:>8.3f}")
-print(f"acceptance {result.acceptance_rate:.2f}, batch size {result.settings['batch_size']}, "
+print(f"acceptance {result.acceptance_rate:.2f}, batch size {result.tuned['batch_size']}, "
       f"{result.data_passes:.1f} passes over the data, "
       f"{summary.run['ess_per_second']:.0f} ESS per second")
 
