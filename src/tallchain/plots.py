@@ -35,7 +35,9 @@ def plot_sweep(result, path):
             ax.plot([r["step_size"] for r in weak], [r[col] for r in weak], marker="o", ls="none",
                     mfc="white", mec=line.get_color(), zorder=4)
     tol = result.tolerance
-    ax_bias.axhspan(0, tol, color="tab:green", alpha=0.12, label=f"within noise (<= {tol:g})")
+    ax_bias.axhspan(0, tol, color="tab:green", alpha=0.12,
+                    label=f"within noise (<= {tol:.2f}: false-alarm rate {result.level:g} "
+                          f"for the table)")
     ax_bias.axhline(tol, color="tab:green", lw=1, ls="--")
     best = result.recommended
     if best is not None:
@@ -47,14 +49,14 @@ def plot_sweep(result, path):
         ax.set_xlabel("step size h (proposal variance h M^-1)")
         ax.grid(True, which="both", alpha=0.3)
     ax_bias.set_yscale("log")
-    ax_bias.set_ylabel("max KS distance / noise floor 1.358/sqrt(ESS)")
+    ax_bias.set_ylabel("max KS distance / noise floor 1.358/sqrt(ECDF ESS)")
     ax_bias.set_title(f"bias against {result.reference}")
     ax_cost.set_yscale("log")
     ax_cost.set_ylabel("ESS per second (min over coefficients)")
     ax_cost.set_title("cost")
     if any(r["verdict"].startswith("inconclusive") for r in result.rows):
         ax_bias.plot([], [], marker="o", ls="none", mfc="white", mec="gray",
-                     label="inconclusive (ESS < 100)")
+                     label="inconclusive (ECDF ESS < 100)")
     ax_bias.legend(fontsize=8, loc="upper left")
     fig.savefig(path, dpi=110)
     plt.close(fig)

@@ -83,6 +83,9 @@ def _add_sweep_arguments(parser):
                         help="step sizes (default: the tuned step x 1/8 ... 8)")
     parser.add_argument("--batch-sizes", type=_int_list, default=None, metavar="N1,N2",
                         help="batch sizes (default: the tuned batch size)")
+    parser.add_argument("--level", type=float, default=0.05, metavar="A",
+                        help="false-alarm rate of the whole table: the chance that a setting "
+                             "without bias is called biased anywhere in it (default 0.05)")
     parser.add_argument("--resume", action="store_true",
                         help="skip grid points finished by an interrupted sweep")
     _scheduler_argument(parser)
@@ -114,9 +117,9 @@ def _sweep(args):
     scheduler = option_or(args.scheduler, compute.get("scheduler", "processes"))
     workers = option_or(args.workers, compute.get("workers"))
     t = time.perf_counter()
-    with warnings_as_lines(), config.named_fields():
+    with warnings_as_lines(), config.named_fields(), named_fields({"level": "--level"}):
         res = sweep(model, methods=args.methods or ("penalty-mala", "sgld"),
-                    step_sizes=args.step_sizes, batch_sizes=args.batch_sizes,
+                    step_sizes=args.step_sizes, batch_sizes=args.batch_sizes, level=args.level,
                     scheduler=scheduler, workers=workers, cache_dir=out, progress=not args.quiet,
                     on_row=keep, done_rows=done, **settings)
     write_sweep(res, out)
@@ -133,6 +136,7 @@ def _sweep(args):
             print(f"recommended: method = {best['method']}, step_size = {best['step_size']:.4g}"
                   + (f", batch_size = {best['batch_size']}" if best["batch_size"] else "")
                   + f" ({best['ess_per_second']:.4g} ESS/s, reference: {res.reference})")
+        print(f"verdicts: {res.false_alarm_rule()}")
         for note in res.notes:
             print(f"note: {note}")
         print(f"wrote sweep.csv, sweep.json, sweep.png to {out} in {time.perf_counter() - t:.0f} s")
@@ -174,7 +178,8 @@ def _calibrate(args):
     t = time.perf_counter()
     with warnings_as_lines(), config.named_fields(), named_fields(_CALIBRATE_OPTIONS):
         res = calibrate(model, replications=args.replications,
-                        thinned_draws=args.thinned_draws, prior=args.prior, level=args.level, seed=seed,
+                        thinned_draws=args.thinned_draws, prior=args.prior, level=args.level,
+                        seed=seed,
                         scheduler=option_or(args.scheduler, compute.get("scheduler", "processes")),
                         workers=option_or(args.workers, compute.get("workers")),
                         progress=not args.quiet, **settings)
