@@ -44,7 +44,7 @@ def main():
             t = time.perf_counter()
             res = sweep(model, scheduler="dask-local", workers=workers, cache_dir=cache, **grid)
             walls[workers] = time.perf_counter() - t
-            tables[workers] = [(r["method"], r["step_size"], r["ks_max"], r["acceptance"])
+            tables[workers] = [(r["method"], r["step_size"], r["ks_max"], r["acceptance_rate"])
                                for r in res.rows]
     same = tables[1] == tables[2]
     print(f"24-point sweep, dask-local: 1 worker {walls[1]:.1f} s, 2 workers {walls[2]:.1f} s")

@@ -27,7 +27,8 @@ TRUTH = {
     "linear": {"intercept": 12.0, "sun_hours": 1.5, "watering": 3.0, "tree_age": -0.4},
     "logistic": {"intercept": -4.0, "pages_viewed": 0.35, "minutes_on_site": 0.05,
                  "returning": 1.2, "mobile": -0.5},
-    "poisson": {"intercept": -3.0, "x0": 0.8, "x1": -0.3, "x2": 0.02},
+    "poisson": {"intercept": -3.0, "older_lamp_type": 0.8, "temperature": -0.3,
+                "years_since_rewiring": 0.02},
 }
 NOISE_SD = 4.0
 
@@ -58,11 +59,12 @@ def webshop(rng, n):
 
 def streetlights(rng, n):
     lamps = rng.integers(50, 2000, n).astype(float)
-    X = np.column_stack([rng.binomial(1, 0.4, n),          # x0: older lamp type
-                         rng.normal(0.0, 1.0, n),          # x1: standardised temperature
-                         rng.uniform(0.0, 40.0, n)])       # x2: years since rewiring
+    X = np.column_stack([rng.binomial(1, 0.4, n),          # older lamp type (1) or not
+                         rng.normal(0.0, 1.0, n),          # standardised temperature
+                         rng.uniform(0.0, 40.0, n)])       # years since rewiring
     b = TRUTH["poisson"]
-    eta = b["intercept"] + X @ [b["x0"], b["x1"], b["x2"]] + np.log(lamps)
+    eta = b["intercept"] + X @ [b["older_lamp_type"], b["temperature"],
+                                b["years_since_rewiring"]] + np.log(lamps)
     return X, rng.poisson(np.exp(eta)).astype(float), np.log(lamps)
 
 

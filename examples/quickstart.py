@@ -33,14 +33,14 @@ model = tc.PoissonRegression(X, y, prior=tc.GaussianPrior(sd=5.0),
 result = tc.sample(model, method="penalty-mala", step_size="auto", batch_size="auto",
                    control_variates=True, chains=4, draws=1000, warmup=500, seed=1)
 
-# 4. Summary: per-coefficient mean, sd, quantiles, ESS, R-hat, and the cost of the run.
+# 4. Summary: per-coefficient mean, sd, 90% interval, ESS, R-hat, and the cost of the run.
 summary = result.summary()
 print(f"{'coef':<12}{'true':>8}{'mean':>9}{'sd':>9}{'ess_bulk':>10}{'r_hat':>8}")
 for j, name in enumerate(summary.table["coef"]):
     print(f"{name:<12}{true_beta[j]:>8.3f}{summary.table['mean'][j]:>9.4f}"
           f"{summary.table['sd'][j]:>9.4f}{summary.table['ess_bulk'][j]:>10.0f}"
           f"{summary.table['r_hat'][j]:>8.3f}")
-print(f"acceptance {result.acceptance_rate:.2f}, batch size {result.settings['batch_size']}, "
+print(f"acceptance {result.acceptance_rate:.2f}, batch size {result.tuned['batch_size']}, "
       f"{result.data_passes:.1f} passes over the data, "
       f"{summary.run['ess_per_second']:.0f} ESS per second")
 

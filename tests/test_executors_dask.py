@@ -16,7 +16,7 @@ distributed = pytest.importorskip("distributed")
 pytestmark = pytest.mark.slow
 
 NUMBERS = ("method", "step_size", "batch_size", "ks_max", "ks_ratio_max", "ess_bulk_min",
-           "acceptance", "log_ratio_sd_mean", "data_evals_per_draw", "verdict")
+           "acceptance_rate", "log_ratio_sd_mean", "data_evaluations_per_draw", "verdict")
 
 
 @pytest.fixture(scope="module")

@@ -1,5 +1,5 @@
 """Local worker processes: a worker that dies, and a script without the main guard, give one
-clear error (`tallchain.WorkerLostError`) instead of a bare BrokenProcessPool.
+clear error (`tallchain.WorkerDiedError`) instead of a bare BrokenProcessPool.
 
 Python starts these workers with forkserver, and every worker imports the main script
 (Python documentation, multiprocessing, "Safe importing of main module"): a script whose
@@ -30,7 +30,7 @@ def _die_on_task_one(shared, task):
 
 def test_a_killed_worker_is_a_worker_lost_error():
     assert run_tasks(_die_on_task_one, 3, [0, 2], workers=2) == [0, 6]   # it works otherwise
-    with pytest.raises(tc.WorkerLostError, match=LOST):
+    with pytest.raises(tc.WorkerDiedError, match=LOST):
         run_tasks(_die_on_task_one, 3, [0, 1, 2], workers=2)
 
 
@@ -52,7 +52,7 @@ def work():
 CALL = """\
 try:
     print(work())
-except tc.WorkerLostError as exc:
+except tc.WorkerDiedError as exc:
     print(exc, file=sys.stderr)
     sys.exit(3)
 """
@@ -87,7 +87,7 @@ def test_the_cli_reports_a_lost_worker_on_one_line(tmp_path, rng, capsys, monkey
     from tallchain import executors
 
     def lost(self, futures):
-        raise executors.WorkerLostError(executors._WORKER_LOST)
+        raise executors.WorkerDiedError(executors._WORKER_LOST)
         yield  # a generator, as the real one
 
     monkeypatch.setattr(TaskPool, "results", lost)

@@ -16,7 +16,7 @@ from importlib.metadata import PackageNotFoundError, version
 
 from .checks import calibrate, check_on_twin, ks_check, sweep
 from .exceptions import (ConvergenceWarning, DataWarning, InputError, ModeNotFoundError,
-                         NoisyLogRatioWarning, SamplingInterrupted, WorkerLostError)
+                         NoisyLogRatioWarning, SamplingInterrupted, WorkerDiedError)
 from .mcmc import RunOptions, SampleResult, SamplerSettings, sample
 from .models import GaussianPrior, LinearRegression, LogisticRegression, PoissonRegression
 from .posterior import GaussianPosterior, LaplaceApproximation, conjugate_posterior, find_mode
@@ -51,7 +51,7 @@ __all__ = [
     "InputError",
     "ModeNotFoundError",
     "SamplingInterrupted",
-    "WorkerLostError",
+    "WorkerDiedError",
     "NoisyLogRatioWarning",
     "ConvergenceWarning",
     "DataWarning",

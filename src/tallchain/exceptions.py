@@ -13,7 +13,7 @@ class ModeNotFoundError(RuntimeError):
     """L-BFGS did not converge to the posterior mode."""
 
 
-class WorkerLostError(RuntimeError):
+class WorkerDiedError(RuntimeError):
     """A local worker process died before returning its task."""
 
 

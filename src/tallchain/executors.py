@@ -34,7 +34,7 @@ from concurrent.futures.process import BrokenProcessPool
 
 
 from ._validation import fail, is_integer
-from .exceptions import WorkerLostError
+from .exceptions import WorkerDiedError
 
 _SHARED = None
 
@@ -51,7 +51,7 @@ def _refuse_in_a_starting_worker():
     # __main__ guard reaches its pool again here. multiprocessing marks that phase with the
     # process attribute ``_inheriting`` (its own check, spawn._check_not_importing_main, reads
     # it too). Leave with one line instead of that check's traceback; the parent then raises
-    # WorkerLostError.
+    # WorkerDiedError.
     if getattr(multiprocessing.current_process(), "_inheriting", False):
         sys.stderr.write("tallchain: a worker process re-ran the main script and reached a call "
                          "that starts workers; put the script's calls under "
@@ -192,7 +192,7 @@ class TaskPool:
         try:
             f = self._pool.submit(_call_local, i, task)
         except (BrokenProcessPool, ConnectionError):   # a worker gone before its start
-            raise WorkerLostError(_WORKER_LOST) from None
+            raise WorkerDiedError(_WORKER_LOST) from None
         self._sent[f] = (i, task, label, 0, None)
         return f
 
@@ -216,7 +216,7 @@ class TaskPool:
                     self._sent.pop(f, None)
                     yield f.result()
             except BrokenProcessPool:
-                raise WorkerLostError(_WORKER_LOST) from None
+                raise WorkerDiedError(_WORKER_LOST) from None
             return
         pending = self._distributed.as_completed(futures)
         for f in pending:

@@ -85,9 +85,10 @@ def run_record(result, summary, wall_seconds=None):
     }
 
 
-def save_result(result, directory, *, summary=None, wall_seconds=None, extra=None):
+def save_result(result, directory, *, summary=None, wall_seconds=None, extra=None,
+                interval=0.9):
     """Write posterior.nc, summary.csv and run.json of ``result`` into ``directory`` (created
-    if needed); ``summary`` is ``result.summary(warn=False)`` unless given.
+    if needed); ``summary`` is ``result.summary(warn=False, interval=interval)`` unless given.
 
     Returns the summary, so a caller can report it without recomputing.
     """
@@ -96,9 +97,9 @@ def save_result(result, directory, *, summary=None, wall_seconds=None, extra=Non
              'give a path such as "runs/example"')
     out = Path(directory)
     check_folder("directory", out)
-    out.mkdir(parents=True, exist_ok=True)
     if summary is None:
-        summary = result.summary(warn=False)
+        summary = result.summary(warn=False, interval=interval)
+    out.mkdir(parents=True, exist_ok=True)
     tree = result.to_arviz()
     atomic_write(out / "posterior.nc", lambda tmp: tree.to_netcdf(tmp, engine="h5netcdf"))
     atomic_write(out / "summary.csv", summary.to_csv)

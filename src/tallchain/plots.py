@@ -35,7 +35,9 @@ def plot_sweep(result, path):
             ax.plot([r["step_size"] for r in weak], [r[col] for r in weak], marker="o", ls="none",
                     mfc="white", mec=line.get_color(), zorder=4)
     tol = result.tolerance
-    ax_bias.axhspan(0, tol, color="tab:green", alpha=0.12, label=f"within noise (<= {tol:g})")
+    ax_bias.axhspan(0, tol, color="tab:green", alpha=0.12,
+                    label=f"within noise (<= {tol:.2f}: false-alarm rate {result.level:g} "
+                          f"for the table)")
     ax_bias.axhline(tol, color="tab:green", lw=1, ls="--")
     best = result.recommended
     if best is not None:
@@ -47,14 +49,14 @@ def plot_sweep(result, path):
         ax.set_xlabel("step size h (proposal variance h M^-1)")
         ax.grid(True, which="both", alpha=0.3)
     ax_bias.set_yscale("log")
-    ax_bias.set_ylabel("max KS distance / noise floor 1.358/sqrt(ESS)")
+    ax_bias.set_ylabel("max KS distance / noise floor 1.358/sqrt(ECDF ESS)")
     ax_bias.set_title(f"bias against {result.reference}")
     ax_cost.set_yscale("log")
     ax_cost.set_ylabel("ESS per second (min over coefficients)")
     ax_cost.set_title("cost")
     if any(r["verdict"].startswith("inconclusive") for r in result.rows):
         ax_bias.plot([], [], marker="o", ls="none", mfc="white", mec="gray",
-                     label="inconclusive (ESS < 100)")
+                     label="inconclusive (ECDF ESS < 100)")
     ax_bias.legend(fontsize=8, loc="upper left")
     fig.savefig(path, dpi=110)
     plt.close(fig)
@@ -77,8 +79,7 @@ def plot_run(result, directory):
     pc = az.plot_trace_dist(tree, var_names=["beta"], compact=False, backend="matplotlib")
     pc.savefig(out / "trace.png")
     files.append(out / "trace.png")
-    pc = az.plot_rank(tree, var_names=["beta"], backend="matplotlib")
-    pc.savefig(out / "rank.png")
+    rank_plot(tree).savefig(out / "rank.png")
     files.append(out / "rank.png")
     plt.close("all")
 
@@ -107,6 +108,33 @@ def plot_run(result, directory):
     plt.close(fig)
     files.append(out / "log_ratio_sd.png")
     return files
+
+
+def rank_plot(tree, columns=4):
+    """ArviZ's rank plot of ``beta`` in ``tree`` (a run's `to_arviz`), laid out for reading.
+
+    One panel of 3 x 2.4 inches per coefficient, up to ``columns`` a row, titled by the
+    coefficient's name alone, under matplotlib's constrained layout: ArviZ's default height
+    (about 2 inches a row) and two-line titles ("beta" over the name) let the titles overlap
+    the tick labels of the row above. The chains are thinned first (ArviZ's automatic factor,
+    from bulk and tail ESS): on the unthinned draws of exact full-data MALA runs (20 seeds, 6
+    coefficients, 4 x 500 draws) the panels' uniformity test gave p < 0.01 for 63% of the
+    coefficients, thinned for 3%.
+
+    Returns
+    -------
+    arviz_plots.PlotCollection
+    """
+    import arviz as az
+    from arviz_base.labels import NoVarLabeller
+
+    _pyplot()
+    n_coef = tree["posterior"]["beta"].sizes["coef"]
+    rows = -(-n_coef // columns)
+    figure = {"figsize": (3.0 * min(n_coef, columns), 2.4 * rows), "figsize_units": "inches",
+              "layout": "constrained"}
+    return az.plot_rank(tree, var_names=["beta"], backend="matplotlib", thin=True,
+                        labeller=NoVarLabeller(), col_wrap=columns, figure_kwargs=figure)
 
 
 def plot_calibration(result, path):

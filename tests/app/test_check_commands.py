@@ -59,13 +59,25 @@ def test_sweep_and_calibrate_write_their_files(folder):
     for name in ("sweep.csv", "sweep.json", "sweep.png"):
         assert (folder / "grid" / name).exists()
     assert not (folder / "grid" / "sweep.partial.jsonl").exists()
-    rc = main(["calibrate", cfg, "--replications", "12", "--draws", "9", "--quiet",
-               "--scheduler", "serial"])
+    # --draws is draws per chain here as everywhere; the ranks use --thinned-draws of them.
+    rc = main(["calibrate", cfg, "--replications", "12", "--thinned-draws", "9", "--draws",
+               "300", "--quiet", "--scheduler", "serial"])
     assert rc in (0, 1)
     record = json.loads((folder / "grid" / "calibrate.json").read_text())
     assert record["replications"] == 12 and len(record["coefficients"]) == 3
+    assert record["n_draws"] == 9 and record["settings"]["draws"] == 300
     assert rc == (0 if record["passed"] else 1)
     assert (folder / "grid" / "calibrate.png").exists()
+
+
+def test_calibrate_names_the_option_that_asked_for_too_many_thinned_draws(folder, capsys):
+    cfg = _config(folder, "c", "draws = 10\nchains = 2")
+    assert main(["calibrate", cfg, "--thinned-draws", "30", "--quiet"]) == 2
+    err = capsys.readouterr().err.strip()
+    assert len(err.splitlines()) == 1
+    assert err.startswith("tallchain: error: --thinned-draws: is 30, more than the 20 draws ")
+    assert main(["calibrate", cfg, "--thinned-draws", "30", "--draws", "5", "--quiet"]) == 2
+    assert "raise draws (or chains), or give thinned_draws <= 10" in capsys.readouterr().err
 
 
 def test_unknown_scheduler_is_bad_input(folder, capsys):

@@ -223,8 +223,24 @@ def test_missing_files_and_keys(folder):
     (folder / "X.txt").write_text("1\n")
     with pytest.raises(InputError, match=r"^data\.x: X\.txt has an unsupported file type '\.txt'"):
         _load(folder, base=BASE.replace("X.npy", "X.txt"))
-    with pytest.raises(InputError, match=r"^data\.columns: only applies to a \.csv file"):
-        _load(folder, base=BASE.replace('y = "y.npy"\n', 'y = "y.npy"\ncolumns = ["a"]\n'))
+    with pytest.raises(InputError, match=r"^data\.columns: must be a list of strings, got 3"):
+        _load(folder, base=BASE.replace('y = "y.npy"\n', 'y = "y.npy"\ncolumns = 3\n'))
+
+
+def test_columns_name_the_columns_of_an_array_x(folder):
+    from tallchain.app._service import build_model
+
+    base = BASE.replace('y = "y.npy"\n', 'y = "y.npy"\ncolumns = ["wind_speed", "waves"]\n')
+    model, _ = build_model(_load(folder, base=base))
+    assert model.coef_names == ["intercept", "wind_speed", "waves"]
+    # one line naming the key, for a wrong count and for names the model refuses
+    for names, message in (('["wind_speed"]', r"names 1 column but X\.npy has 2; give one "
+                                               r"name per column of X, in order$"),
+                           ('["a", "a"]', r"has 'a' twice \(positions 0 and 1\)")):
+        given = f'y = "y.npy"\ncolumns = {names}\n'
+        cfg = _load(folder, base=BASE.replace('y = "y.npy"\n', given))
+        with pytest.raises(InputError, match=rf"^data\.columns: {message}"):
+            build_model(cfg)
 
 
 def test_malformed_toml_reports_the_line(folder):

@@ -305,11 +305,24 @@ def test_load_data_csv_with_standardize(tmp_path, rng):
                       ulps=summation_ulps(50), scale=variance_size(values[:, :2]))
 
 
-def test_load_data_rejects_columns_for_arrays(tmp_path, rng):
+def test_columns_name_the_columns_of_an_array_file(tmp_path, rng):
     np.save(tmp_path / "X.npy", rng.standard_normal((5, 2)))
     np.save(tmp_path / "y.npy", np.zeros(5))
-    with pytest.raises(InputError, match=r"^columns: only applies to a \.csv file, not X\.npy"):
-        io.load_data(tmp_path / "X.npy", tmp_path / "y.npy", columns=["a"])
+    np.savez(tmp_path / "d.npz", x=rng.standard_normal((5, 2)), y=np.zeros(5))
+    ds = io.load_data(tmp_path / "X.npy", tmp_path / "y.npy", columns=["wind", "waves"])
+    assert ds.feature_names == ["wind", "waves"]
+    ds = io.load_data(tmp_path / "d.npz", tmp_path / "d.npz", columns=["wind", "waves"])
+    assert ds.feature_names == ["wind", "waves"]
+    for names, got in ((["a"], "1 column"), (["a", "b", "c"], "3 columns")):
+        with pytest.raises(InputError, match=rf"^columns: names {got} but X\.npy has 2; give "
+                                             r"one name per column of X, in order$"):
+            io.load_data(tmp_path / "X.npy", tmp_path / "y.npy", columns=names)
+    with pytest.raises(InputError, match=r"^columns: is the single string 'ab', not a list"):
+        io.load_data(tmp_path / "X.npy", tmp_path / "y.npy", columns="ab")
+
+
+def test_load_data_rejects_a_three_dimensional_x(tmp_path, rng):
+    np.save(tmp_path / "y.npy", np.zeros(5))
     np.save(tmp_path / "X3.npy", np.zeros((2, 2, 2)))
     with pytest.raises(InputError, match=r"^X: must be two-dimensional, got shape \(2, 2, 2\)"):
         io.load_data(tmp_path / "X3.npy", tmp_path / "y.npy")

@@ -83,6 +83,9 @@ def _add_sweep_arguments(parser):
                         help="step sizes (default: the tuned step x 1/8 ... 8)")
     parser.add_argument("--batch-sizes", type=_int_list, default=None, metavar="N1,N2",
                         help="batch sizes (default: the tuned batch size)")
+    parser.add_argument("--level", type=float, default=0.05, metavar="A",
+                        help="false-alarm rate of the whole table: the chance that a setting "
+                             "without bias is called biased anywhere in it (default 0.05)")
     parser.add_argument("--resume", action="store_true",
                         help="skip grid points finished by an interrupted sweep")
     _scheduler_argument(parser)
@@ -114,9 +117,9 @@ def _sweep(args):
     scheduler = option_or(args.scheduler, compute.get("scheduler", "processes"))
     workers = option_or(args.workers, compute.get("workers"))
     t = time.perf_counter()
-    with warnings_as_lines(), config.named_fields():
+    with warnings_as_lines(), config.named_fields(), named_fields({"level": "--level"}):
         res = sweep(model, methods=args.methods or ("penalty-mala", "sgld"),
-                    step_sizes=args.step_sizes, batch_sizes=args.batch_sizes,
+                    step_sizes=args.step_sizes, batch_sizes=args.batch_sizes, level=args.level,
                     scheduler=scheduler, workers=workers, cache_dir=out, progress=not args.quiet,
                     on_row=keep, done_rows=done, **settings)
     write_sweep(res, out)
@@ -127,12 +130,13 @@ def _sweep(args):
         for r in res.rows:
             print(f"{r['method']:<14}{r['step_size']:>10.4g}{str(r['batch_size'] or '-'):>7}"
                   f"{r['ks_ratio_max']:>10.2f}{r['ess_per_second']:>10.4g}"
-                  f"{r['acceptance']:>8.3f}  {r['verdict']}")
+                  f"{r['acceptance_rate']:>8.3f}  {r['verdict']}")
         best = res.recommended
         if best is not None:
             print(f"recommended: method = {best['method']}, step_size = {best['step_size']:.4g}"
                   + (f", batch_size = {best['batch_size']}" if best["batch_size"] else "")
                   + f" ({best['ess_per_second']:.4g} ESS/s, reference: {res.reference})")
+        print(f"verdicts: {res.false_alarm_rule()}")
         for note in res.notes:
             print(f"note: {note}")
         print(f"wrote sweep.csv, sweep.json, sweep.png to {out} in {time.perf_counter() - t:.0f} s")
@@ -140,21 +144,22 @@ def _sweep(args):
 
 
 def _add_calibrate_arguments(parser):
-    add_config_arguments(parser, exclude=("--draws",))
+    add_config_arguments(parser)
     parser.add_argument("--replications", type=int, default=100, metavar="R",
                         help="simulated data sets (default 100)")
-    parser.add_argument("--draws", dest="rank_draws", type=int, default=99, metavar="L",
+    parser.add_argument("--thinned-draws", type=int, default=99, metavar="L",
                         help="thinned posterior draws each true value is ranked among "
-                             "(default 99); the sampler's draws per chain come from the config")
+                             "(default 99), out of the chains x draws a replication keeps")
     parser.add_argument("--prior", choices=("laplace", "model"), default="laplace",
+                        metavar="laplace|model",
                         help="calibration prior (default: Laplace approximation of the posterior)")
-    parser.add_argument("--level", type=float, default=0.05,
+    parser.add_argument("--level", type=float, default=0.05, metavar="A",
                         help="family-wise level, Bonferroni over coefficients (default 0.05)")
     _scheduler_argument(parser)
 
 
 # calibrate()'s own arguments, named as the options that set them.
-_CALIBRATE_OPTIONS = {"thinned_draws": "--draws", "replications": "--replications",
+_CALIBRATE_OPTIONS = {"thinned_draws": "--thinned-draws", "replications": "--replications",
                       "level": "--level"}
 
 
@@ -172,8 +177,9 @@ def _calibrate(args):
     compute = config.compute
     t = time.perf_counter()
     with warnings_as_lines(), config.named_fields(), named_fields(_CALIBRATE_OPTIONS):
-        res = calibrate(model, replications=args.replications, thinned_draws=args.rank_draws,
-                        prior=args.prior, level=args.level, seed=seed,
+        res = calibrate(model, replications=args.replications,
+                        thinned_draws=args.thinned_draws, prior=args.prior, level=args.level,
+                        seed=seed,
                         scheduler=option_or(args.scheduler, compute.get("scheduler", "processes")),
                         workers=option_or(args.workers, compute.get("workers")),
                         progress=not args.quiet, **settings)
@@ -184,8 +190,9 @@ def _calibrate(args):
     plot_calibration(res, out / "calibrate.png")
     if not args.quiet:
         per = res.level / len(res.coef_names)
-        print(f"simulation-based calibration: R = {args.replications}, L = {args.rank_draws}, "
-              f"prior {args.prior}, level {res.level} (per coefficient {per:.3g})")
+        print(f"simulation-based calibration: R = {args.replications}, "
+              f"L = {args.thinned_draws}, prior {args.prior}, level {res.level} "
+              f"(per coefficient {per:.3g})")
         w = max(14, *(len(name) for name in res.coef_names))
         for name, p in zip(res.coef_names, res.p_values):
             print(f"  {name:<{w}} p = {p:.4f}  {'calibrated' if p > per else 'MISCALIBRATED'}")

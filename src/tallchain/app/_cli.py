@@ -4,7 +4,7 @@ import signal
 import sys
 from importlib.metadata import PackageNotFoundError, version
 
-from ..exceptions import InputError, ModeNotFoundError, WorkerLostError
+from ..exceptions import InputError, ModeNotFoundError, WorkerDiedError
 from . import _check_commands, _run_commands  # noqa: F401  (they register the commands)
 from ._registry import COMMANDS, EXIT_BAD_INPUT, PROG, UsageError, Parser, one_line
 
@@ -50,7 +50,7 @@ def main(argv=None):
             parser.print_help(sys.stderr)
             return EXIT_BAD_INPUT
         return COMMANDS[args.command].run(args)
-    except (InputError, ModeNotFoundError, UsageError, WorkerLostError) as exc:
+    except (InputError, ModeNotFoundError, UsageError, WorkerDiedError) as exc:
         return _error(exc)
     except OSError as exc:
         where = f"{exc.filename}: " if exc.filename else ""

@@ -387,9 +387,6 @@ def _data_settings(table, family, base_dir):
         if x.path.suffix.lower() not in ARRAY_SUFFIXES:
             fail("X", f"{x.path.name} has an unsupported file type {x.path.suffix!r}",
                  "give a .npy, .npz or .csv file")
-        if "columns" in table:
-            fail("columns", f"only applies to a .csv file, not {x.path.name}",
-                 "remove it, or select the columns when writing the array")
         if "y" in table:
             y = DataSource.parse(table["y"], base_dir)
         elif x.path.suffix.lower() == ".npz":

@@ -14,13 +14,14 @@ FOLDER = "tallchain-demo"
 N_ROWS = 200_000
 SEED = 20_240_611
 
-#: Feature name (as the summary shows it), what it stands for, true coefficient.
+#: Column name (the config's ``[data] columns``, as the summary shows it), what it stands
+#: for, true coefficient; in the order of the columns of X.npy.
 FEATURES = (
-    ("x0", "wind speed at departure, m/s", 0.16),
-    ("x1", "wave height, m", 0.55),
-    ("x2", "passengers booked, hundreds", 0.30),
-    ("x3", "weekend sailing (1) or weekday (0)", -0.40),
-    ("x4", "the inbound crossing arrived late (1) or not (0)", 1.10),
+    ("wind_speed", "wind speed at departure, m/s", 0.16),
+    ("wave_height", "wave height, m", 0.55),
+    ("passengers_booked", "passengers booked, hundreds", 0.30),
+    ("weekend", "weekend sailing (1) or weekday (0)", -0.40),
+    ("inbound_late", "the inbound crossing arrived late (1) or not (0)", 1.10),
 )
 TRUE_INTERCEPT = -3.6
 TRUE_COEFFICIENTS = {"intercept": TRUE_INTERCEPT, **{name: b for name, _, b in FEATURES}}
@@ -37,6 +38,7 @@ CONFIG = """\
 [data]
 x = "X.npy"
 y = "y.npy"
+columns = [{columns}]   # the names of the columns of X.npy, in order
 add_intercept = true
 standardize = true
 
@@ -109,5 +111,5 @@ def write_demo(folder, *, n_rows=N_ROWS):
              "features": {name: meaning for name, meaning, _ in FEATURES}}
     (folder / "truth.json").write_text(json.dumps(truth, indent=2) + "\n")
     config = folder / "config.toml"
-    config.write_text(CONFIG)
+    config.write_text(CONFIG.format(columns=", ".join(f'"{name}"' for name, _, _ in FEATURES)))
     return config

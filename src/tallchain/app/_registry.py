@@ -84,27 +84,28 @@ def _number_or_auto(kind):
     return convert
 
 
-# Command-line options that override config keys: flag, key, type, help.
+# Command-line options that override config keys: flag, key, type, metavar, help. The
+# metavars are those of the README's synopsis (a test holds the two together).
 OVERRIDES = (
-    ("--out", "output.dir", str, "output folder (default: [output] dir of the config)"),
-    ("--seed", "sampler.seed", int, "random seed"),
-    ("--draws", "sampler.draws", int, "draws per chain after warmup"),
-    ("--chains", "sampler.chains", int, "number of chains"),
-    ("--warmup", "sampler.warmup", int, "warmup iterations per chain"),
-    ("--method", "sampler.method", str, "sampling method, e.g. penalty-mala"),
-    ("--step-size", "sampler.step_size", _number_or_auto(float), 'step size or "auto"'),
-    ("--batch-size", "sampler.batch_size", _number_or_auto(int), 'rows per minibatch or "auto"'),
+    ("--out", "output.dir", str, "DIR", "output folder (default: [output] dir of the config)"),
+    ("--seed", "sampler.seed", int, "N", "random seed"),
+    ("--draws", "sampler.draws", int, "N", "draws per chain after warmup"),
+    ("--chains", "sampler.chains", int, "N", "number of chains"),
+    ("--warmup", "sampler.warmup", int, "N", "warmup iterations per chain"),
+    ("--method", "sampler.method", str, "M", "sampling method, e.g. penalty-mala"),
+    ("--step-size", "sampler.step_size", _number_or_auto(float), "H", 'step size or "auto"'),
+    ("--batch-size", "sampler.batch_size", _number_or_auto(int), "N",
+     'rows per minibatch or "auto"'),
 )
 
 
 def add_config_arguments(parser, *, exclude=()):
     """Add the CONFIG argument and the override options (minus the flags in ``exclude``)."""
     parser.add_argument("config", metavar="CONFIG", help="TOML run configuration")
-    for flag, key, kind, text in OVERRIDES:
+    for flag, key, kind, metavar, text in OVERRIDES:
         if flag not in exclude:
             parser.add_argument(flag, dest=_dest(flag), type=kind, default=None,
-                                metavar="N" if kind is int else "X",
-                                help=f"{text} (overrides {key})")
+                                metavar=metavar, help=f"{text} (overrides {key})")
 
 
 def _dest(flag):
@@ -113,7 +114,7 @@ def _dest(flag):
 
 def config_from_args(args):
     """Load ``args.config`` with the override options that were given."""
-    overrides = {key: getattr(args, _dest(flag)) for flag, key, _, _ in OVERRIDES
+    overrides = {key: getattr(args, _dest(flag)) for flag, key, *_ in OVERRIDES
                  if getattr(args, _dest(flag), None) is not None}
     if "output.dir" in overrides:
         overrides["output.dir"] = str(Path(overrides["output.dir"]).absolute())

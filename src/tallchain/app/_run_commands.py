@@ -64,14 +64,18 @@ def _demo(args):
         warning_line(msg)
     print_summary(result, summary, standardized=dataset.standardization is not None)
     t = summary.table
+    lower, upper = summary.interval_columns
+    level = f"{100 * summary.interval:.6g}%"
+    width = max(len("coefficient"), *(len(name) for name in t["coef"]))
     print("\nthe coefficients the invented data were simulated from, beside the posterior:")
-    print(f"{'coef':<10}{'true':>9}{'mean':>9}{'5%':>9}{'95%':>9}  inside 90% interval")
+    print(f"{'coefficient':<{width}}{'true':>9}{'mean':>9}  {level + ' interval':<20}inside")
     for i, name in enumerate(t["coef"]):
         truth = demo.TRUE_COEFFICIENTS[name]
-        inside = "yes" if t["q5"][i] <= truth <= t["q95"][i] else "no"
-        print(f"{name:<10}{truth:>9.3f}{t['mean'][i]:>9.3f}{t['q5'][i]:>9.3f}"
-              f"{t['q95'][i]:>9.3f}  {inside}")
-    print("(a 90% interval misses the true value about one time in ten)")
+        inside = "yes" if t[lower][i] <= truth <= t[upper][i] else "no"
+        bounds = f"[{t[lower][i]:.3f}, {t[upper][i]:.3f}]"
+        print(f"{name:<{width}}{truth:>9.3f}{t['mean'][i]:>9.3f}  {bounds:<20}{inside}")
+    miss = round(1 / (1 - summary.interval))
+    print(f"(a {level} interval misses the true value about one time in {miss})")
     print_outputs(config.output_dir)
     return EXIT_OK
 

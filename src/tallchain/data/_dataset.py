@@ -48,7 +48,9 @@ def load_data(x, y, *, offset=None, columns=None, add_intercept=True, standardiz
     offset : DataSource, path-like or str, optional
         As for y (Poisson models).
     columns : sequence of str, optional
-        Feature columns of a CSV (default: all but the response and offset).
+        For a CSV, the feature columns to use, by name (default: all but the response and
+        offset). For a ``.npy``/``.npz`` X, the names of its columns, one per column in order
+        (default: x0, x1, ...).
     add_intercept : bool, default=True
     standardize : bool, default=False
         Fit on standardised columns (see `standardize_columns` and `Standardization.to_original`).
@@ -68,13 +70,17 @@ def load_data(x, y, *, offset=None, columns=None, add_intercept=True, standardiz
                                             columns=columns,
                                             offset=_column_name(offset, "offset"))
     else:
-        if columns is not None:
-            fail("columns", f"only applies to a .csv file, not {x.path.name}",
-                 "remove it, or select the columns when writing the array")
         X = load_array(x, field="X")
         y_arr = load_array(y, field="y")
         off_arr = None if offset is None else load_array(offset, field="offset")
-        names = [f"x{j}" for j in range(X.shape[1] if X.ndim == 2 else 1)]
+        n_cols = X.shape[1] if X.ndim == 2 else 1
+        if isinstance(columns, (str, bytes)):
+            fail("columns", f"is the single string {columns!r}, not a list of names",
+                 "give a list of names, one per column of X")
+        names = [f"x{j}" for j in range(n_cols)] if columns is None else list(columns)
+        if len(names) != n_cols and X.ndim <= 2:
+            fail("columns", f"names {len(names)} column{'s' * (len(names) != 1)} but "
+                 f"{x.path.name} has {n_cols}", "give one name per column of X, in order")
     if X.ndim == 1:
         X = X.reshape(-1, 1)
     if X.ndim != 2:

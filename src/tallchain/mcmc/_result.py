@@ -115,8 +115,15 @@ class SampleResult:
         """
         return to_arviz(self)
 
-    def summary(self, *, warn=True):
+    def summary(self, *, warn=True, interval=0.9):
         """Per-coefficient summary (ESS, R-hat and MCSE by ArviZ) and the run's cost figures.
+
+        Parameters
+        ----------
+        warn : bool, default=True
+        interval : float, default=0.9
+            Probability of the central posterior interval (columns ``lower_90``, ``median``,
+            ``upper_90`` for 0.9).
 
         Returns
         -------
@@ -128,15 +135,17 @@ class SampleResult:
         tallchain.exceptions.ConvergenceWarning
             R-hat above 1.01 or a bulk/tail ESS below 400 for some coefficient.
         """
-        return summarize(self, warn=warn)
+        return summarize(self, warn=warn, interval=interval)
 
-    def save(self, directory):
+    def save(self, directory, *, interval=0.9):
         """Write posterior.nc, summary.csv and run.json into ``directory``, atomically.
 
         Parameters
         ----------
         directory : path-like
             Created when missing.
+        interval : float, default=0.9
+            Probability of the central interval in summary.csv (see `summary`).
 
         Returns
         -------
@@ -145,7 +154,7 @@ class SampleResult:
         """
         from ..outputs import save_result
 
-        return save_result(self, directory)
+        return save_result(self, directory, interval=interval)
 
 
 def _package_version():
@@ -183,7 +192,10 @@ def to_arviz(result):
             "sample_stats": {k: v for k, v in result.stats.items()}}
     if result.warmup_stats and next(iter(result.warmup_stats.values())).shape[1]:
         data["warmup_sample_stats"] = dict(result.warmup_stats)
-    tree = az.from_dict(data, dims={"beta": ["coef"]}, coords={"coef": list(result.coef_names)})
+    # ArviZ drops every group whose name holds "warmup" unless asked to keep it (its rcParam
+    # data.save_warmup defaults to False).
+    tree = az.from_dict(data, dims={"beta": ["coef"]}, coords={"coef": list(result.coef_names)},
+                        save_warmup=True)
     tree.attrs.update(attrs)
     tree["posterior"].attrs.update(attrs)
     return tree

@@ -47,7 +47,7 @@ def sample(model, settings=None, **options):
         points, was not found (e.g. separated logistic data under a flat prior).
     SamplingInterrupted
         On Ctrl-C: carries the result with every completed draw (and the checkpoint written).
-    WorkerLostError
+    WorkerDiedError
         A worker process died (scheduler="processes").
 
     Warns

@@ -5,6 +5,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .._validation import fail, is_number
 from ..exceptions import ConvergenceWarning
 
 RHAT_MAX = 1.01      # Vehtari, Gelman, Simpson, Carpenter & Buerkner (2021), Bayesian Analysis
@@ -18,27 +19,56 @@ def ess_bulk(draws):
     return np.array([float(az.ess(draws[:, :, j], method="bulk")) for j in range(draws.shape[2])])
 
 
-def summarize(result, *, warn=True):
+def check_interval(interval):
+    """The probability of a central interval as a float; InputError unless 0 < interval < 1."""
+    if not is_number(interval) or not 0.0 < interval < 1.0:
+        fail("interval", f"must be a probability strictly between 0 and 1, got {interval!r}",
+             "give the central interval's probability, e.g. interval=0.9")
+    return float(interval)
+
+
+def interval_columns(interval):
+    """The summary's column names of the bounds of the central ``interval``:
+    ``("lower_90", "upper_90")`` for 0.9, ``("lower_97.5", "upper_97.5")`` for 0.975."""
+    percent = f"{100.0 * interval:.6g}"
+    return f"lower_{percent}", f"upper_{percent}"
+
+
+def summarize(result, *, warn=True, interval=0.9):
     """Per-coefficient summary computed by ArviZ, plus the run's cost and efficiency figures.
+
+    Parameters
+    ----------
+    result : SampleResult
+    warn : bool, default=True
+        Raise the convergence advice as a `ConvergenceWarning` too.
+    interval : float, default=0.9
+        Probability of the central (equal-tailed) posterior interval, strictly between 0 and
+        1; it names the interval's columns (``lower_90``/``upper_90`` for 0.9).
 
     Returns
     -------
     Summary
         ``table``: dict of column name to list, one entry per coefficient, with columns
-        coef, mean, sd, q5, q50, q95, ess_bulk, ess_tail, r_hat, mcse_mean; ``run``: dict
-        with acceptance_rate, log_ratio_sd_mean, data_passes, sampling_seconds,
-        ess_bulk_min, ess_per_second, ess_per_data_pass; ``warnings``: list of str.
+        coef, mean, sd, the interval's lower bound, median, its upper bound, ess_bulk,
+        ess_tail, r_hat, mcse_mean; ``run``: dict with acceptance_rate, log_ratio_sd_mean,
+        data_passes, sampling_seconds, ess_bulk_min, ess_per_second, ess_per_data_pass;
+        ``warnings``: list of str; ``interval``.
     """
     import arviz as az
 
+    interval = check_interval(interval)
     draws = result.draws
     n_coef = draws.shape[2]
     table = {"coef": list(result.coef_names)}
     flat = draws.reshape(-1, n_coef)
     table["mean"] = flat.mean(axis=0).tolist()
     table["sd"] = (flat.std(axis=0, ddof=1) if flat.shape[0] > 1 else np.full(n_coef, np.nan)).tolist()
-    q = np.quantile(flat, [0.05, 0.5, 0.95], axis=0) if flat.size else np.full((3, n_coef), np.nan)
-    table["q5"], table["q50"], table["q95"] = q[0].tolist(), q[1].tolist(), q[2].tolist()
+    tail = (1.0 - interval) / 2.0
+    q = (np.quantile(flat, [tail, 0.5, 1.0 - tail], axis=0) if flat.size
+         else np.full((3, n_coef), np.nan))
+    lower, upper = interval_columns(interval)
+    table[lower], table["median"], table[upper] = q[0].tolist(), q[1].tolist(), q[2].tolist()
     if draws.shape[1] >= 4:
         tree = az.from_dict({"posterior": {"beta": draws}}, dims={"beta": ["coef"]},
                             coords={"coef": list(result.coef_names)})
@@ -72,7 +102,7 @@ def summarize(result, *, warn=True):
                     "of tails and sd are unreliable; draw more")
     if warn and msgs:
         warnings.warn("; and ".join(msgs), ConvergenceWarning, stacklevel=2)
-    return Summary(table=table, run=run, warnings=msgs)
+    return Summary(table=table, run=run, warnings=msgs, interval=interval)
 
 
 def _finite_extreme(values, extreme):
@@ -90,18 +120,27 @@ class Summary:
     Attributes
     ----------
     table : dict of str to list
-        One entry per coefficient: coef, mean, sd, q5, q50, q95, ess_bulk, ess_tail, r_hat,
+        One entry per coefficient: coef, mean, sd, lower_<P>, median, upper_<P> (the central
+        interval of probability ``interval``, P in percent), ess_bulk, ess_tail, r_hat,
         mcse_mean.
     run : dict
         acceptance_rate, log_ratio_sd_mean, data_passes, sampling_seconds, ess_bulk_min,
         ess_per_second, ess_per_data_pass.
     warnings : list of str
         Convergence advice (R-hat, ESS).
+    interval : float
+        Probability of the central interval in ``table``.
     """
 
     table: dict
     run: dict
     warnings: list
+    interval: float = 0.9
+
+    @property
+    def interval_columns(self):
+        """The names of the interval's lower and upper columns in ``table``."""
+        return interval_columns(self.interval)
 
     def to_csv(self, path):
         cols = list(self.table)

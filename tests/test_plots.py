@@ -1,0 +1,61 @@
+"""rank.png: no text of one panel overlaps another panel's, and none leaves the figure."""
+
+import warnings
+
+import numpy as np
+import pytest
+
+import tallchain as tc
+from tallchain.plots import plot_run, rank_plot
+
+
+def _run(n_coef, names=None):
+    rng = np.random.default_rng(n_coef)
+    X = rng.standard_normal((400, n_coef - 1))
+    y = 0.3 + X @ np.linspace(-1.0, 1.0, n_coef - 1) + rng.standard_normal(400)
+    model = tc.LinearRegression(X, y, coef_names=names)
+    return tc.sample(model, method="mala", chains=4, draws=200, warmup=200, seed=1)
+
+
+def _texts(ax):
+    """The visible, non-empty texts of one panel: title, notes, axis labels, tick labels."""
+    texts = [ax.title, *ax.texts]
+    for axis, k in ((ax.xaxis, 0), (ax.yaxis, 1)):
+        if axis.get_visible():
+            lo, hi = sorted(axis.get_view_interval())
+            # matplotlib draws only the ticks inside the view
+            texts += [axis.label, *(t for t in axis.get_ticklabels()
+                                    if lo <= t.get_position()[k] <= hi)]
+    return [t for t in texts if t.get_visible() and t.get_text()]
+
+
+@pytest.mark.parametrize("n_coef", [2, 6, 11])
+def test_rank_plot_texts_do_not_overlap(n_coef):
+    names = ["a_rather_long_coefficient_name", *(f"c{j}" for j in range(n_coef - 2))]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")    # few draws: ESS advice
+        pc = rank_plot(_run(n_coef, names).to_arviz())
+    fig = pc.viz["figure"].item()
+    fig.canvas.draw()
+    renderer = fig.canvas.get_renderer()
+    panels = [ax for ax in fig.axes if ax.get_visible() and ax.axison]
+    assert len(panels) == n_coef
+    boxes = [(i, t.get_text(), t.get_window_extent(renderer))
+             for i, ax in enumerate(panels) for t in _texts(ax)]
+    assert {text for _, text, _ in boxes} >= {"intercept", "a_rather_long_coefficient_name"}
+    whole = fig.bbox
+    for i, text, box in boxes:
+        assert whole.x0 <= box.x0 and box.x1 <= whole.x1 and whole.y0 <= box.y0 \
+            and box.y1 <= whole.y1, f"{text!r} leaves the figure"
+    for i, text, box in boxes:
+        for k, other, obox in boxes:
+            if k != i:
+                assert not box.overlaps(obox), f"{text!r} overlaps {other!r} of another panel"
+
+
+def test_plot_run_writes_its_three_figures(tmp_path):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        files = plot_run(_run(3), tmp_path)
+    assert [f.name for f in files] == ["trace.png", "rank.png", "log_ratio_sd.png"]
+    assert all(f.stat().st_size > 10_000 for f in files)
