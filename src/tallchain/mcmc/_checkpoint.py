@@ -1,12 +1,12 @@
 """Checkpoints: a resumable snapshot of a run in one .npz file, replaced atomically (private)."""
 
 import json
-import os
 from pathlib import Path
 
 import numpy as np
 
 from .._validation import fail
+from ..outputs import write_npz
 
 CHECKPOINT_VERSION = 3
 
@@ -41,13 +41,7 @@ class Checkpoint:
             "pooled": np.stack([st.pooled for st in states]),
         }
         self.path.parent.mkdir(parents=True, exist_ok=True)
-        tmp = self.path.with_name(f".{self.path.name}.tmp-{os.getpid()}.npz")
-        try:
-            np.savez(tmp, meta=np.array(json.dumps(meta)), **arrays)
-            os.replace(tmp, self.path)
-        finally:
-            if tmp.exists():
-                tmp.unlink()
+        write_npz(self.path, meta=np.array(json.dumps(meta)), **arrays)
 
     def restore(self, states, schedule, runner):
         """Load the snapshot into fresh states, the schedule and the runner's arrays."""
