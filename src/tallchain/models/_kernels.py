@@ -29,7 +29,7 @@ _HALF_LOG_2PI = 0.5 * math.log(2.0 * math.pi)
 
 # Reassociation and contraction let LLVM vectorise the row dot products and sums; NaN and inf
 # keep their IEEE meaning (no "nnan"/"ninf"), which the overflow handling relies on.
-_OPTIONS = dict(cache=True, nogil=True, fastmath={"reassoc", "contract", "arcp"}, error_model="numpy")
+_OPTIONS = dict(cache=True, nogil=True, fastmath={"reassoc", "contract"}, error_model="numpy")
 jit = numba.njit(**_OPTIONS)
 pjit = numba.njit(parallel=True, **_OPTIONS)
 
