@@ -113,10 +113,10 @@ def cv_gradient_scale(data, rows, beta, idx=None):
 # --- control variates --------------------------------------------------------------------------
 
 
-@pytest.mark.parametrize("cv_order", [0, 1, 2])
-def test_batch_residual_diffs(problem, cv_order):
+@pytest.mark.parametrize("proxy_order", [0, 1, 2])
+def test_batch_residual_diffs(problem, proxy_order):
     data, beta, beta_new, beta_star, idx = problem
-    rows = cv_rows(data, beta_star, cv_order)
+    rows = cv_rows(data, beta_star, proxy_order)
     star = rows.beta_star
     out = np.full(idx.shape[0], np.nan)
     E.batch_residual_diffs(data, rows, beta_new - star, beta - star, idx, out, work_for(idx))
@@ -124,10 +124,10 @@ def test_batch_residual_diffs(problem, cv_order):
     assert_ulps_close(out, want, ulps=CV_ULPS, scale=residual_scale(data, rows, beta_new, beta, idx))
 
 
-@pytest.mark.parametrize("cv_order", [0, 1, 2])
-def test_cv_gradient_rows(problem, cv_order):
+@pytest.mark.parametrize("proxy_order", [0, 1, 2])
+def test_cv_gradient_rows(problem, proxy_order):
     data, beta, _, beta_star, idx = problem
-    rows = cv_rows(data, beta_star, cv_order)
+    rows = cv_rows(data, beta_star, proxy_order)
     out = np.full(beta.shape[0], np.nan)
     E.cv_gradient_rows(data, rows, beta - rows.beta_star, idx, out, work_for(idx))
     want = MR.cv_gradient_rows(data, rows, beta - rows.beta_star, idx)
@@ -135,12 +135,12 @@ def test_cv_gradient_rows(problem, cv_order):
                       scale=cv_gradient_scale(data, rows, beta, idx))
 
 
-@pytest.mark.parametrize("cv_order", [1, 2])
-def test_proxy_sums_equal_row_sums_of_proxies(problem, cv_order):
+@pytest.mark.parametrize("proxy_order", [1, 2])
+def test_proxy_sums_equal_row_sums_of_proxies(problem, proxy_order):
     # The kernels' closed forms in g*, H* (sums of N rows, then d-term products) against the
     # row-by-row sums of the references: N + d terms in another order.
     data, beta, beta_new, beta_star, _ = problem
-    rows = cv_rows(data, beta_star, cv_order)
+    rows = cv_rows(data, beta_star, proxy_order)
     d = beta.shape[0]
     got = E.proxy_loglik_diff_sum(rows, beta_new, beta)
     want = MR.proxy_loglik_diff_sum(rows, beta_new, beta, data)
@@ -307,10 +307,10 @@ def mass_matrices(rng, d):
     return MassMatrix(mass, mass_inv, np.linalg.cholesky(mass_inv))
 
 
-@pytest.mark.parametrize("cv_order", [0, 1, 2])
-def test_batch_gradient(problem, cv_order, rng):
+@pytest.mark.parametrize("proxy_order", [0, 1, 2])
+def test_batch_gradient(problem, proxy_order, rng):
     data, beta, _, beta_star, idx = problem
-    rows = cv_rows(data, beta_star, cv_order)
+    rows = cv_rows(data, beta_star, proxy_order)
     d = beta.shape[0]
     prior = K.PriorArrays(rng.normal(size=d), spd(rng, d))
     out = np.full(d, np.nan)

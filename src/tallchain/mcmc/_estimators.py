@@ -70,7 +70,7 @@ def cv_gradient_rows(data, rows, delta, idx, out, work):
     2 also subtracts f''*_i (eta_i - eta*_i) x_i, the gradient of the second-order proxy.
     """
     family, X, noise_sd, intercept = data.family, data.X, data.noise_sd, data.intercept
-    aux, cv_order = rows.aux, rows.order
+    aux, proxy_order = rows.aux, rows.order
     n = idx.shape[0]
     p = X.shape[1]
     w = delta[intercept:]
@@ -84,9 +84,9 @@ def cv_gradient_rows(data, rows, delta, idx, out, work):
         eta[k] = aux[i, AUX_ETA] + u
         yv[k] = aux[i, AUX_Y]
         c = 0.0
-        if cv_order >= 1:
+        if proxy_order >= 1:
             c = aux[i, AUX_F1]
-        if cv_order >= 2:
+        if proxy_order >= 2:
             c += aux[i, AUX_F2] * u
         r[k] = c
     for k in range(n):
@@ -107,11 +107,11 @@ def cv_gradient_rows(data, rows, delta, idx, out, work):
 @jit
 def proxy_gradient_sum(rows, beta, out):
     """out = sum_i grad q_i(beta) = g* (+ H* (beta - beta*) for the second-order proxy)."""
-    cv_order, g_star, H_star, beta_star = rows.order, rows.g_star, rows.H_star, rows.beta_star
+    proxy_order, g_star, H_star, beta_star = rows.order, rows.g_star, rows.H_star, rows.beta_star
     d = beta.shape[0]
     for a in range(d):
         out[a] = g_star[a]
-        if cv_order >= 2:
+        if proxy_order >= 2:
             s = 0.0
             for b in range(d):
                 s += H_star[a, b] * (beta[b] - beta_star[b])
@@ -121,13 +121,13 @@ def proxy_gradient_sum(rows, beta, out):
 @jit
 def proxy_loglik_diff_sum(rows, beta_new, beta_old):
     """Q(b') - Q(b) = g*'(b'-b) + 1/2 (b'-b)' H* (b'+b-2b*)  (METHODS.md section 4)."""
-    cv_order, g_star, H_star, beta_star = rows.order, rows.g_star, rows.H_star, rows.beta_star
+    proxy_order, g_star, H_star, beta_star = rows.order, rows.g_star, rows.H_star, rows.beta_star
     d = beta_new.shape[0]
     acc = 0.0
     for a in range(d):
         db = beta_new[a] - beta_old[a]
         acc += g_star[a] * db
-        if cv_order >= 2:
+        if proxy_order >= 2:
             s = 0.0
             for b in range(d):
                 s += H_star[a, b] * (beta_new[b] + beta_old[b] - 2.0 * beta_star[b])
@@ -140,7 +140,7 @@ def batch_residual_diffs(data, rows, delta_new, delta_old, idx, out, work):
     """out[k] = D_i - [q_i(b') - q_i(b)] for i = idx[k], with D_i = l_i(b') - l_i(b) and
     delta_new = b' - beta*, delta_old = b - beta* (passes and ``work`` as above)."""
     family, X, noise_sd, intercept = data.family, data.X, data.noise_sd, data.intercept
-    aux, cv_order = rows.aux, rows.order
+    aux, proxy_order = rows.aux, rows.order
     n = idx.shape[0]
     p = X.shape[1]
     w1 = delta_new[intercept:]
@@ -163,9 +163,9 @@ def batch_residual_diffs(data, rows, delta_new, delta_old, idx, out, work):
         e0[k] = eta_star + u0
         yv[k] = aux[i, AUX_Y]
         c = 0.0
-        if cv_order >= 1:
+        if proxy_order >= 1:
             c = aux[i, AUX_F1] * (u1 - u0)
-        if cv_order >= 2:
+        if proxy_order >= 2:
             c += 0.5 * aux[i, AUX_F2] * (u1 * u1 - u0 * u0)
         out[k] = c
     for k in range(n):
