@@ -159,11 +159,12 @@ SWEEP_CASES = [
     (dict(batch_sizes=[1]), r"batch_sizes: must be integers from 2 to 300 \(N\), got 1"),
     (dict(batch_sizes=[100, 2.5]), r"batch_sizes: must be integers .* got 2.5"),
     (dict(batch_sizes=[301]), r"batch_sizes: must be integers from 2 to 300 \(N\), got 301"),
-    # (f) tolerance
-    (dict(tolerance=0), r"tolerance: must be a finite number > 0, got 0"),
-    (dict(tolerance=-1.5), r"tolerance: must be a finite number > 0, got -1.5"),
-    (dict(tolerance="x"), r"tolerance: must be a finite number > 0, got 'x'"),
-    (dict(tolerance=np.inf), r"tolerance: must be a finite number > 0, got inf"),
+    # (f) the table's false-alarm level
+    (dict(level=0), r"level: must be a probability strictly between 0 and 1, got 0; give"),
+    (dict(level=1.0), r"level: must be a probability strictly between 0 and 1, got 1.0"),
+    (dict(level="x"), r"level: must be a probability strictly between 0 and 1, got 'x'"),
+    (dict(level=np.nan), r"level: must be a probability strictly between 0 and 1, got nan"),
+    (dict(tolerance=1.5), r"tolerance: is not a setting of sweep\(\)"),
     # (g) settings sweep sets itself
     (dict(step_size=0.1), r"step_size: is set by sweep\(\) itself; use "
      r"step_sizes="),
@@ -197,13 +198,13 @@ def test_sweep_accepts_numpy_arrays_and_scalars(linear):
     res = sweep(linear, methods=np.array(["penalty-mala", "sgld"]),
                 step_sizes=np.array([0.5, 1.0]), batch_sizes=[np.int64(64)],
                 chains=np.int64(2), draws=np.int64(150), warmup=np.int64(100),
-                seed=np.int64(2), tolerance=np.float32(1.5), workers=np.int64(1),
+                seed=np.int64(2), level=np.float32(0.05), workers=np.int64(1),
                 scheduler="serial")
     assert len(res.rows) == 4
     assert {(r["method"], r["step_size"], r["batch_size"]) for r in res.rows} == {
         ("penalty-mala", 0.5, 64), ("penalty-mala", 1.0, 64), ("sgld", 0.5, 64),
         ("sgld", 1.0, 64)}
-    assert isinstance(res.tolerance, float)
+    assert isinstance(res.tolerance, float) and isinstance(res.level, float)
 
 
 def test_sweep_takes_a_seedsequence(linear):
