@@ -52,6 +52,18 @@ def test_validate_exits_1_on_a_biased_setting_and_0_on_a_sound_one(folder, capsy
     assert json.loads((folder / "good" / "validate.json").read_text())["passed"] is True
 
 
+def test_validate_exits_3_when_too_few_effective_draws(folder, capsys):
+    # validate once said "passed" at bulk ESS 7-19: now it says inconclusive, exit code 3
+    short = _config(folder, "short", 'method = "mala"\nchains = 1\ndraws = 60\nwarmup = 200')
+    assert main(["validate", short]) == 3
+    out = capsys.readouterr().out
+    assert "below 100: too few effective draws to judge; raise draws" in out
+    assert out.splitlines()[-1].startswith("inconclusive (false-alarm rate 0.05 over 3 "
+                                           "coefficients, threshold 1.")
+    assert json.loads((folder / "short" / "validate.json").read_text())["verdict"] == \
+        "inconclusive"
+
+
 def test_sweep_and_calibrate_write_their_files(folder):
     cfg = _config(folder, "grid", "draws = 400\nwarmup = 200\nchains = 2")
     assert main(["sweep", cfg, "--methods", "penalty-mala,sgld", "--step-sizes", "0.5,2",

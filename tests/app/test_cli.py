@@ -292,7 +292,7 @@ def test_a_folder_for_a_file_and_a_file_for_a_folder_exit_2(tmp_path, rng, capsy
     (["--thinned-draws", "0"], r"--thinned-draws: must be >= 1, got 0"),
     (["--draws", "0"], r"sampler\.draws \(from the command line\): must be >= 1, got 0"),
     (["--replications", "1"], r"--replications: must be >= 2, got 1"),
-    (["--level", "2"], r"--level: must be a probability between 0 and 1, got 2\.0"),
+    (["--level", "2"], r"--level: must be a probability strictly between 0 and 1, got 2\.0"),
 ])
 def test_bad_calibrate_options_name_the_option(tmp_path, rng, capsys, argv, pattern):
     path = _setup(tmp_path, *_logistic_data(rng))

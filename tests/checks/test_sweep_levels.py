@@ -127,5 +127,5 @@ def test_a_bad_level_is_one_line_naming_it(linear, bad, monkeypatch):
     monkeypatch.setattr(_sweep, "prepare", lambda *a, **k: pytest.fail("reached the mode"))
     with pytest.raises(tc.InputError, match=r"^level: must be a probability strictly between "
                                             r"0 and 1, got .*; give the false-alarm rate of the "
-                                            r"whole table, e\.g\. 0\.05$"):
+                                            r"whole check, e\.g\. 0\.05$"):
         sweep(linear, level=bad, scheduler="serial")

@@ -93,7 +93,7 @@ CALIBRATE_CASES = [
      r"calibrate"),
     (dict(progress="yes"), r"progress: must be True or False"),
     (dict(prior="flat"), r"prior: unknown calibration prior 'flat'"),
-    (dict(level=1.5), r"level: must be a probability between 0 and 1"),
+    (dict(level=1.5), r"level: must be a probability strictly between 0 and 1"),
 ]
 
 
@@ -219,10 +219,11 @@ def test_sweep_takes_a_seedsequence(linear):
 # ---------------------------------------------------------------- check_on_twin
 
 TWIN_CASES = [
-    (dict(tolerance=0), r"tolerance: must be a finite number > 0, got 0"),
-    (dict(tolerance=-1), r"tolerance: must be a finite number > 0, got -1"),
-    (dict(tolerance="x"), r"tolerance: must be a finite number > 0, got 'x'"),
-    (dict(tolerance=np.nan), r"tolerance: must be a finite number > 0, got nan"),
+    (dict(level=0), r"level: must be a probability strictly between 0 and 1, got 0; give"),
+    (dict(level=1.5), r"level: must be a probability strictly between 0 and 1, got 1.5"),
+    (dict(level="x"), r"level: must be a probability strictly between 0 and 1, got 'x'"),
+    (dict(level=np.nan), r"level: must be a probability strictly between 0 and 1, got nan"),
+    (dict(tolerance=1.5), r"tolerance: is not a setting of check_on_twin\(\)"),
     (dict(seed="abc"), r"seed: must be an integer from 0 to 2\*\*64 - 1, got 'abc'"),
     (dict(seed=-1), r"seed: must be an integer from 0 to 2\*\*64 - 1, got -1"),
     (dict(method="malla"), r"method: unknown method 'malla'"),
@@ -249,9 +250,9 @@ def test_conjugate_twin_checks_its_seed_before_the_mode(logistic, no_expensive_w
 
 
 def test_check_on_twin_accepts_numpy_scalars(logistic):
-    res = check_on_twin(logistic, tolerance=np.float32(3.0), seed=np.int64(1), method="mala",
+    res = check_on_twin(logistic, level=np.float32(0.05), seed=np.int64(1), method="mala",
                         chains=2, draws=np.int64(200), warmup=100)
-    assert res.ks.ks.shape == (logistic.n_coef,)
+    assert res.ks.ks.shape == (logistic.n_coef,) and isinstance(res.level, float)
 
 
 # ---------------------------------------------------------------- find_mode

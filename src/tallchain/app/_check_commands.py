@@ -7,8 +7,11 @@ from pathlib import Path
 
 from ..outputs import write_json
 from ._config import named_fields
-from ._registry import (EXIT_CHECK_FAILED, EXIT_OK, add_config_arguments, command,
-                        config_from_args, option_or, warnings_as_lines)
+from ._registry import (EXIT_CHECK_FAILED, EXIT_INCONCLUSIVE, EXIT_OK, add_config_arguments,
+                        command, config_from_args, option_or, warnings_as_lines)
+
+# The exit code of each verdict of a check.
+_EXIT_FOR = {"passed": EXIT_OK, "failed": EXIT_CHECK_FAILED, "inconclusive": EXIT_INCONCLUSIVE}
 from ._service import build_model
 
 
@@ -31,8 +34,15 @@ def _load(args):
     return config, model, out
 
 
+def _level_argument(parser, what):
+    parser.add_argument("--level", type=float, default=0.05, metavar="A",
+                        help=f"false-alarm rate of the whole check, Bonferroni over {what} "
+                             "(default 0.05)")
+
+
 def _add_validate_arguments(parser):
     add_config_arguments(parser)
+    _level_argument(parser, "coefficients")
     parser.add_argument("--quiet", action="store_true", help="print only warnings and errors")
 
 
@@ -42,8 +52,8 @@ def _validate(args):
     from ..checks import check_on_twin
 
     config, model, out = _load(args)
-    with warnings_as_lines(), config.named_fields():
-        check = check_on_twin(model, config.sampler)
+    with warnings_as_lines(), config.named_fields(), named_fields({"level": "--level"}):
+        check = check_on_twin(model, config.sampler, level=args.level)
     write_json(out / "validate.json", check.as_dict())
     if not args.quiet:
         k = check.ks
@@ -55,8 +65,10 @@ def _validate(args):
             print(f"{name:<{w}}{ks:>9.4f}{fl:>9.4f}{ratio:>10.2f}  {v}")
         for note in check.notes:
             print(f"note: {note}")
-        print(f"{'passed' if check.passed else 'FAILED'}: wrote validate.json to {out}")
-    return EXIT_OK if check.passed else EXIT_CHECK_FAILED
+        print(f"{check.verdict.upper() if check.verdict == 'failed' else check.verdict} "
+              f"(false-alarm rate {check.level:g} over {len(k.coef_names)} coefficients, "
+              f"threshold {k.tolerance:.3f} floors): wrote validate.json to {out}")
+    return _EXIT_FOR[check.verdict]
 
 
 def _number_list(kind, example):
@@ -153,8 +165,7 @@ def _add_calibrate_arguments(parser):
     parser.add_argument("--prior", choices=("laplace", "model"), default="laplace",
                         metavar="laplace|model",
                         help="calibration prior (default: Laplace approximation of the posterior)")
-    parser.add_argument("--level", type=float, default=0.05, metavar="A",
-                        help="family-wise level, Bonferroni over coefficients (default 0.05)")
+    _level_argument(parser, "coefficients")
     _scheduler_argument(parser)
 
 
@@ -166,7 +177,7 @@ _CALIBRATE_OPTIONS = {"thinned_draws": "--thinned-draws", "replications": "--rep
 @command("calibrate", "simulation-based calibration of the configured sampler on this X",
          _add_calibrate_arguments)
 def _calibrate(args):
-    from ..checks import calibrate
+    from ..checks import MAX_SHORT_SHARE, calibrate
     from ..plots import plot_calibration
 
     config, model, out = _load(args)
@@ -196,6 +207,14 @@ def _calibrate(args):
         w = max(14, *(len(name) for name in res.coef_names))
         for name, p in zip(res.coef_names, res.p_values):
             print(f"  {name:<{w}} p = {p:.4f}  {'calibrated' if p > per else 'MISCALIBRATED'}")
-        print(f"{'passed' if res.passed else 'FAILED'} in {seconds:.0f} s: wrote calibrate.json, "
-              f"calibrate.png to {out}")
-    return EXIT_OK if res.passed else EXIT_CHECK_FAILED
+        if res.refits.sum():
+            print(f"note: {int(res.refits.sum())} simulated data sets could not be fitted "
+                  "(no posterior mode) and were replaced by fresh draws")
+        if res.verdict == "inconclusive":
+            print(f"note: {res.short_share:.0%} of the replications have fewer effective "
+                  f"draws than the {res.n_draws} they rank among (limit "
+                  f"{MAX_SHORT_SHARE:.0%}): their ranks are over-dispersed; raise draws or "
+                  "lower --thinned-draws")
+        print(f"{res.verdict.upper() if res.verdict == 'failed' else res.verdict} in "
+              f"{seconds:.0f} s: wrote calibrate.json, calibrate.png to {out}")
+    return _EXIT_FOR[res.verdict]

@@ -28,7 +28,7 @@ from typing import Callable
 from ._config import load_config
 
 PROG = "tallchain"
-EXIT_OK, EXIT_CHECK_FAILED, EXIT_BAD_INPUT = 0, 1, 2
+EXIT_OK, EXIT_CHECK_FAILED, EXIT_BAD_INPUT, EXIT_INCONCLUSIVE = 0, 1, 2, 3
 
 
 class UsageError(Exception):

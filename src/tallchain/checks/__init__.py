@@ -1,12 +1,14 @@
 """Checks of a sampler's answer: KS distances with their noise floor, the conjugate twin,
 step-size sweeps and simulation-based calibration."""
 
-from ._calibration import CalibrationResult, calibrate, ecdf_bands, rank_uniformity_pvalues
-from ._ks import KS_CRITICAL, KSCheck, ecdf_ess, family_threshold, ks_check
+from ._calibration import (MAX_SHORT_SHARE, CalibrationResult, calibrate, ecdf_bands,
+                           rank_uniformity_pvalues)
+from ._ks import (KS_CRITICAL, MIN_ESS_FOR_VERDICT, KSCheck, ecdf_ess, family_threshold,
+                  ks_check)
 from ._sweep import SweepResult, reference_draws, sweep, write_sweep
 from ._twin import TwinCheck, check_on_twin, conjugate_twin
 
-__all__ = ["calibrate", "CalibrationResult", "ecdf_bands", "rank_uniformity_pvalues",
-           "ks_check", "KSCheck", "KS_CRITICAL", "ecdf_ess", "family_threshold", "sweep",
+__all__ = ["calibrate", "CalibrationResult", "MAX_SHORT_SHARE", "ecdf_bands", "rank_uniformity_pvalues",
+           "ks_check", "KSCheck", "KS_CRITICAL", "MIN_ESS_FOR_VERDICT", "ecdf_ess", "family_threshold", "sweep",
            "SweepResult", "write_sweep", "reference_draws", "check_on_twin", "TwinCheck",
            "conjugate_twin"]

@@ -13,11 +13,13 @@ from dataclasses import dataclass, replace
 import numpy as np
 from scipy import stats
 
-from .._validation import check_flag, check_seed, fail, is_integer, is_number, positive_int
+from .._validation import check_flag, check_seed, fail, is_integer, positive_int
 from ..executors import check_scheduler, check_workers, run_tasks, worker_count
 from ..mcmc import sample, settings_from, spawn_seeds
+from ..exceptions import ModeNotFoundError
 from ..models import GaussianPrior, check_model
 from ..posterior import find_mode
+from ._ks import check_level, ecdf_ess
 
 
 @dataclass
@@ -36,8 +38,18 @@ class CalibrationResult:
         Bins of the ranks in that test (2 <= n_bins <= L + 1).
     level : float
         Family-wise level; each coefficient is tested at level / n_coef (Bonferroni).
+    verdict : {"passed", "failed", "inconclusive"}
+        "inconclusive" when more than `MAX_SHORT_SHARE` of the replications have fewer
+        effective draws (smallest ECDF ESS over coefficients) than the L draws they rank
+        among: their thinned draws are autocorrelated, which over-disperses the ranks.
+        Otherwise "passed" when every coefficient's p-value is above level / n_coef.
     passed : bool
-        Every coefficient's p-value is above level / n_coef.
+        ``verdict == "passed"``.
+    ess : ndarray of shape (R,)
+        Smallest ECDF ESS over coefficients of each replication's draws.
+    refits : ndarray of shape (R,)
+        Simulated data sets each replication replaced because their posterior mode could not
+        be found (at most ``ATTEMPTS - 1``).
     coef_names : list of str
     prior : str
         "laplace" or "model".
@@ -50,10 +62,21 @@ class CalibrationResult:
     p_values: np.ndarray
     n_bins: int
     level: float
-    passed: bool
+    verdict: str
     coef_names: list
     prior: str
     settings: object
+    ess: np.ndarray
+    refits: np.ndarray
+
+    @property
+    def passed(self):
+        return self.verdict == "passed"
+
+    @property
+    def short_share(self):
+        """Share of replications with fewer effective draws than ranked draws."""
+        return float(np.mean(self.ess < self.n_draws))
 
     def ecdf_bands(self, n_points):
         """Simultaneous 1 - level bands of the rank ECDF difference at ``n_points`` points
@@ -64,7 +87,12 @@ class CalibrationResult:
         return {"replications": int(self.ranks.shape[0]), "n_draws": self.n_draws,
                 "n_bins": self.n_bins, "level": self.level,
                 "per_coefficient_level": self.level / len(self.coef_names),
-                "passed": self.passed, "prior": self.prior, "settings": self.settings.record(),
+                "verdict": self.verdict, "passed": self.passed,
+                "replaced_data_sets": int(self.refits.sum()),
+                "short_replications": {"share": self.short_share, "limit": MAX_SHORT_SHARE,
+                                       "rule": "smallest ECDF ESS below the ranked draws L"},
+                "ess_ecdf_min": self.ess.tolist(),
+                "prior": self.prior, "settings": self.settings.record(),
                 "coefficients": [{"coef": n, "p_value": float(p),
                                   "verdict": "calibrated" if p > self.level / len(self.coef_names)
                                   else "miscalibrated"}
@@ -103,19 +131,37 @@ def ecdf_bands(n_replications, n_points, level=0.05, n_sim=2000, seed=0):
     return z, lo, hi
 
 
+#: Simulated data sets a replication may draw before it gives up: one whose posterior mode
+#: cannot be found (e.g. a separated logistic response) is replaced by a fresh draw.
+ATTEMPTS = 5
+
+#: Largest share of replications with fewer effective draws than ranked draws (L) for which
+#: a verdict is still given; above it the check is "inconclusive".
+MAX_SHORT_SHARE = 0.05
+
+
 def _replicate(model, prior, n_draws, seed, settings, parallel):
-    rng = np.random.default_rng(seed)
+    """One replication: (ranks, smallest ECDF ESS, simulated data sets that failed), or
+    (None, nan, ATTEMPTS) when none of ATTEMPTS data sets could be fitted."""
     mean, _, cov = prior.resolve(model.n_coef)
-    beta = rng.multivariate_normal(mean, cov, method="cholesky")
-    sim = model.with_response(model.simulate(beta, rng), prior=prior)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        r = sample(sim, replace(settings, seed=int(rng.integers(2**63))), parallel=parallel)
-    flat = r.draws.reshape(-1, r.draws.shape[2])
-    # thin to L draws, equally spaced over the pooled chains (thinning reduces the
-    # autocorrelation that would otherwise make the ranks over-dispersed; Talts et al. 2018)
-    pick = np.linspace(0, flat.shape[0] - 1, n_draws).round().astype(int)
-    return np.sum(flat[pick] < beta, axis=0)
+    for attempt in range(ATTEMPTS):
+        # attempt 0 uses the replication's own seed; a retry, the next child spawned from it
+        rng = np.random.default_rng(seed if attempt == 0 else seed.spawn(1)[0])
+        beta = rng.multivariate_normal(mean, cov, method="cholesky")
+        sim = model.with_response(model.simulate(beta, rng), prior=prior)
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                r = sample(sim, replace(settings, seed=int(rng.integers(2**63))),
+                           parallel=parallel)
+        except ModeNotFoundError:
+            continue
+        flat = r.draws.reshape(-1, r.draws.shape[2])
+        # thin to L draws, equally spaced over the pooled chains (thinning reduces the
+        # autocorrelation that would otherwise make the ranks over-dispersed; Talts et al. 2018)
+        pick = np.linspace(0, flat.shape[0] - 1, n_draws).round().astype(int)
+        return np.sum(flat[pick] < beta, axis=0), float(np.min(ecdf_ess(r.draws))), attempt
+    return None, float("nan"), ATTEMPTS
 
 
 def _replicate_task(shared, seed):
@@ -188,9 +234,7 @@ def calibrate(model, settings=None, *, replications=100, thinned_draws=99, prior
         fail("n_bins", f"must be an integer from 2 to thinned_draws + 1 = {draws + 1}, "
              f"got {n_bins!r}", "give e.g. 10 (ranks take thinned_draws + 1 values)")
     n_bins = int(n_bins)
-    if not is_number(level) or not 0 < level < 1:
-        fail("level", f"must be a probability between 0 and 1, got {level!r}",
-             "give e.g. 0.05 (the family-wise false-alarm rate)")
+    level = check_level(level)
     if not isinstance(prior, str) or prior not in ("laplace", "model"):
         fail("prior", f"unknown calibration prior {prior!r}", 'use "laplace" or "model"')
     check_seed(seed)
@@ -215,14 +259,25 @@ def calibrate(model, settings=None, *, replications=100, thinned_draws=99, prior
     n_workers = worker_count(workers, replications)
     parallel = scheduler == "serial" or (scheduler == "processes" and n_workers == 1)
     ranks = np.zeros((replications, model.n_coef), dtype=np.int64)
-    def _done(i, rk):
+    ess = np.empty(replications)
+    refits = np.zeros(replications, dtype=np.int64)
+
+    def _done(i, outcome):
+        rk, ess[i], refits[i] = outcome
+        if rk is None:
+            fail("calibrate", f"replication {i}: none of its {ATTEMPTS} simulated data sets "
+                 "could be fitted (the posterior mode was not found)", "use prior = "
+                 '"laplace" (simulated coefficients near the posterior) or a tighter prior')
         ranks[i] = rk
 
     run_tasks(_replicate_task, (model, cal_prior, draws, settings, parallel), seeds,
               scheduler=scheduler,
               workers=n_workers, on_result=_done, progress="calibrate" if progress else None)
     p = rank_uniformity_pvalues(ranks, draws, n_bins)
-    passed = bool(np.all(p > level / model.n_coef))
+    if np.mean(ess < draws) > MAX_SHORT_SHARE:
+        verdict = "inconclusive"
+    else:
+        verdict = "passed" if np.all(p > level / model.n_coef) else "failed"
     return CalibrationResult(ranks=ranks, n_draws=draws, p_values=p, n_bins=n_bins, level=level,
-                             passed=passed, coef_names=list(model.coef_names), prior=prior,
-                             settings=settings)
+                             verdict=verdict, coef_names=list(model.coef_names), prior=prior,
+                             settings=settings, ess=ess, refits=refits)

@@ -5,8 +5,15 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
+from .._validation import fail, is_number
+
 # 95% quantile of the Kolmogorov distribution of sqrt(n) D_n (standard tables; METHODS.md 5).
 KS_CRITICAL = 1.358
+
+#: Below this ESS of the empirical CDF a KS verdict is "inconclusive": ESS estimates are
+#: themselves unreliable from short chains, and the floor is too wide to show bias (common
+#: practice puts the minimum for trusting ESS and R-hat at 100 or more effective draws).
+MIN_ESS_FOR_VERDICT = 100
 
 
 #: The quantiles at which `ecdf_ess` measures the ESS of the empirical CDF: both tails and
@@ -41,6 +48,14 @@ def ecdf_ess(draws):
 
     return np.array([min(float(az.ess(draws[:, :, j], method="quantile", prob=q))
                          for q in ECDF_QUANTILES) for j in range(draws.shape[2])])
+
+
+def check_level(level):
+    """A family-wise false-alarm rate as a float; InputError unless strictly in (0, 1)."""
+    if not is_number(level) or not 0 < level < 1:
+        fail("level", f"must be a probability strictly between 0 and 1, got {level!r}",
+             "give the false-alarm rate of the whole check, e.g. 0.05")
+    return float(level)
 
 
 def family_threshold(level, n_tests):
@@ -90,6 +105,11 @@ class KSCheck:
     @property
     def passed(self):
         return bool(np.all(self.ratio <= self.tolerance))
+
+    @property
+    def conclusive(self):
+        """Every coefficient has at least `MIN_ESS_FOR_VERDICT` ECDF ESS."""
+        return bool(np.all(self.ess >= MIN_ESS_FOR_VERDICT))
 
     def as_dict(self):
         return {"coef": list(self.coef_names), "ks": self.ks.tolist(), "floor": self.floor.tolist(),

@@ -16,7 +16,7 @@ from ..mcmc import METHODS, ess_bulk, prepare, sample, settings_from, spawn_seed
 from ..models import check_model
 from ..outputs import atomic_write, write_json, write_npz
 from ..posterior import conjugate_posterior
-from ._ks import ecdf_ess, family_threshold, ks_check
+from ._ks import MIN_ESS_FOR_VERDICT, check_level, ecdf_ess, family_threshold, ks_check
 
 # The quantities run.json also reports are spelled as there.
 COLUMNS = ("method", "step_size", "batch_size", "ks_max", "ks_ratio_max", "ks_floor",
@@ -25,7 +25,6 @@ COLUMNS = ("method", "step_size", "batch_size", "ks_max", "ks_ratio_max", "ks_fl
 DEFAULT_STEP_FACTORS = tuple(2.0**k for k in range(-3, 4))
 # Below this ESS of the empirical CDF the noise floor is so wide that "within noise" says
 # little (common practice: ESS of a few hundred for stable tail summaries; we ask for 100).
-MIN_ESS_FOR_VERDICT = 100
 
 
 @dataclass
@@ -313,9 +312,7 @@ def sweep(model, settings=None, *, methods=("penalty-mala", "sgld"), step_sizes=
     """
     check_model(model)
     methods, step_sizes, batch_sizes = _check_grid(model, methods, step_sizes, batch_sizes)
-    if not is_number(level) or not 0 < level < 1:
-        fail("level", f"must be a probability strictly between 0 and 1, got {level!r}",
-             "give the false-alarm rate of the whole table, e.g. 0.05")
+    level = check_level(level)
     check_scheduler(scheduler)
     check_workers(workers)
     check_flag("progress", progress)

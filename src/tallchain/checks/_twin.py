@@ -4,11 +4,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .._validation import check_seed, positive_number
+from .._validation import check_seed
 from ..mcmc import sample, settings_from
 from ..models import LinearRegression, _passes, check_model
 from ..posterior import conjugate_posterior, find_mode
-from ._ks import ks_check
+from ._ks import MIN_ESS_FOR_VERDICT, check_level, family_threshold, ks_check
 
 
 @dataclass
@@ -17,8 +17,15 @@ class TwinCheck:
 
     Attributes
     ----------
+    verdict : {"passed", "failed", "inconclusive"}
+        "inconclusive" when some coefficient has fewer than `MIN_ESS_FOR_VERDICT` effective
+        draws (ESS of the empirical CDF): too few to show bias or its absence. Otherwise
+        "passed" when every coefficient's KS distance to the exact marginal is within the
+        threshold of the check's family-wise ``level``, else "failed".
     passed : bool
-        Every coefficient's KS distance to the exact marginal is within ``tolerance`` floors.
+        ``verdict == "passed"``.
+    level : float
+        Chance that a setting without bias fails the check (all coefficients together).
     ks : KSCheck
     noise_sd : float
         Noise sd of the twin (see `conjugate_twin`).
@@ -28,15 +35,21 @@ class TwinCheck:
     notes : list of str
     """
 
-    passed: bool
+    verdict: str
+    level: float
     ks: object
     noise_sd: float
     response: str
     result: object
     notes: list
 
+    @property
+    def passed(self):
+        return self.verdict == "passed"
+
     def as_dict(self):
-        return {"passed": self.passed, "noise_sd": self.noise_sd, "response": self.response,
+        return {"verdict": self.verdict, "passed": self.passed, "level": self.level,
+                "min_ess_for_verdict": MIN_ESS_FOR_VERDICT, "noise_sd": self.noise_sd, "response": self.response,
                 "method": self.result.method, "settings": self.result.settings.record(),
                 "tuned": self.result.tuned,
                 "ks": self.ks.as_dict(), "notes": list(self.notes),
@@ -82,14 +95,7 @@ def conjugate_twin(model, *, seed=None):
     return model.with_response(y, family=LinearRegression, noise_sd=noise_sd), "prior-predictive"
 
 
-def check_tolerance(tolerance):
-    """A KS tolerance (multiples of the noise floor) as a float; InputError unless > 0."""
-    return positive_number("tolerance", tolerance,
-                           "give the KS distance allowed in multiples of its noise floor, "
-                           "e.g. 1.5")
-
-
-def check_on_twin(model, settings=None, *, tolerance=1.5, **options):
+def check_on_twin(model, settings=None, *, level=0.05, **options):
     """Run a sampler setting on the conjugate twin and compare with the exact posterior.
 
     Parameters
@@ -98,8 +104,10 @@ def check_on_twin(model, settings=None, *, tolerance=1.5, **options):
     settings : SamplerSettings, optional
         The sampler settings to check (default: ``SamplerSettings()``); its ``seed`` also
         seeds the twin's simulated response (GLMs).
-    tolerance : float, default=1.5
-        KS distance allowed, in multiples of the noise floor 1.358/sqrt(ESS); finite, > 0.
+    level : float, default=0.05
+        Family-wise false-alarm rate: each coefficient's KS distance is tested at
+        ``level / n_coef`` (Bonferroni; see `family_threshold`), so that a setting without
+        bias fails with probability at most ``level``.
     **options
         Settings of `tallchain.SamplerSettings` that replace those of ``settings`` (method,
         step_size, batch_size, seed, ...).
@@ -111,7 +119,7 @@ def check_on_twin(model, settings=None, *, tolerance=1.5, **options):
     Raises
     ------
     InputError
-        When ``model`` is not a regression model, ``tolerance`` is not a finite number > 0,
+        When ``model`` is not a regression model, ``level`` is not strictly between 0 and 1,
         ``seed`` is not a valid seed, or a setting would be refused by `tallchain.sample`
         (an unknown method or keyword, ``chains=0``, ...); raised before the mode is found or
         any sampling starts.
@@ -120,7 +128,8 @@ def check_on_twin(model, settings=None, *, tolerance=1.5, **options):
     """
     check_model(model)
     settings = settings_from(settings, options, owner="check_on_twin()").check_against(model)
-    tolerance = check_tolerance(tolerance)
+    level = check_level(level)
+    tolerance, _ = family_threshold(level, model.n_coef)
     twin, response = conjugate_twin(model, seed=settings.seed)
     post = conjugate_posterior(twin)
     result = sample(twin, settings)
@@ -130,5 +139,12 @@ def check_on_twin(model, settings=None, *, tolerance=1.5, **options):
         notes.append("with second-order control variates the linear twin's log-ratio noise is "
                      "exactly zero: this check covers the proposal, tuning and chain, not the "
                      "noise correction; repeat with control_variates = false to test that")
-    return TwinCheck(passed=check.passed, ks=check, noise_sd=float(twin.noise_sd),
+    if not check.conclusive:
+        verdict = "inconclusive"
+        notes.append(f"the smallest ESS of a coefficient's empirical CDF is "
+                     f"{float(np.min(check.ess)):.0f}, below {MIN_ESS_FOR_VERDICT}: too few "
+                     "effective draws to judge; raise draws (or chains) and check again")
+    else:
+        verdict = "passed" if check.passed else "failed"
+    return TwinCheck(verdict=verdict, level=level, ks=check, noise_sd=float(twin.noise_sd),
                      response=response, result=result, notes=notes)
