@@ -94,6 +94,10 @@ def _to_original_scale(result, dataset, load_seconds):
         changes["draws"] = scaling.to_original(result.draws)
         if result.laplace_mode is not None:
             changes["laplace_mode"] = scaling.to_original(result.laplace_mode)
+        if result.laplace_cov is not None:
+            # to_original is linear, b -> M b, so the covariance maps to M cov M^T; applying it
+            # to the rows of cov gives cov M^T, and to the rows of its transpose M cov M^T.
+            changes["laplace_cov"] = scaling.to_original(scaling.to_original(result.laplace_cov).T)
     return dataclasses.replace(result, **changes)
 
 
