@@ -8,7 +8,7 @@ import numpy as np
 from ._summary import summarize
 
 
-@dataclass
+@dataclass(repr=False)
 class SampleResult:
     """Draws, per-iteration statistics, cost counters and timings of one run.
 
@@ -67,6 +67,15 @@ class SampleResult:
     warnings: list = field(default_factory=list)
     laplace_cov: np.ndarray | None = None
     model_record: dict | None = None
+
+    def __repr__(self):
+        """The run in a few lines and the coefficient table (see `summary`)."""
+        from ._tables import coefficient_table, run_header, table_notes
+
+        if self.n_draws == 0:
+            return f"{run_header(self)}; no draws"
+        summary = self.summary(warn=False)
+        return "\n".join([run_header(self), *coefficient_table(summary), *table_notes(summary)])
 
     @property
     def method(self):
