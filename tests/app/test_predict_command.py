@@ -9,6 +9,7 @@ import pyarrow.csv as pacsv
 import pyarrow.parquet as pq
 import pytest
 from scipy import stats
+from app.test_cli import _assert_one_error, _run
 
 from tallchain.app import _cli as cli
 
@@ -31,12 +32,6 @@ draws = 1500
 warmup = 400
 seed = 3
 """
-
-
-def _run(capsys, *argv):
-    code = cli.main([str(a) for a in argv])
-    out, err = capsys.readouterr()
-    return code, out, err
 
 
 @pytest.fixture(scope="module")
@@ -153,11 +148,3 @@ def test_a_npy_table_must_have_the_runs_columns(run_dir, capsys, tmp_path):
     code, out, err = _run(capsys, "predict", folder / "run", tmp_path / "new.npy")
     _assert_one_error(code, err, r"NEW_TABLE: new\.npy has shape \(2, 3\), but the run has 2 "
                                  r"columns \(rain, dose\)")
-
-
-def _assert_one_error(code, err, pattern):
-    assert code == 2
-    lines = err.strip().splitlines()
-    assert len(lines) == 1, err
-    assert lines[0].startswith("tallchain: error: ")
-    assert re.search(pattern, lines[0]), lines[0]
