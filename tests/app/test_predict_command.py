@@ -10,6 +10,7 @@ import pyarrow.parquet as pq
 import pytest
 from scipy import stats
 from app.test_cli import _assert_one_error, _run
+from ulps import assert_ulps_close
 
 from tallchain.app import _cli as cli
 
@@ -98,7 +99,6 @@ def test_csv_and_parquet_in_and_out_agree_and_blocks_do_not_matter(run_dir, rng,
     all at once: the same code on the same numbers, so equal to the last bits (CSV keeps 17
     significant digits, which round-trips float64 exactly; a matrix product over another
     block shape may round differently, hence 4 ulps)."""
-    from ulps import assert_ulps_close
 
     folder, _, _ = run_dir
     new = _new_rows(rng, n=5)
@@ -148,3 +148,37 @@ def test_a_npy_table_must_have_the_runs_columns(run_dir, capsys, tmp_path):
     code, out, err = _run(capsys, "predict", folder / "run", tmp_path / "new.npy")
     _assert_one_error(code, err, r"NEW_TABLE: new\.npy has shape \(2, 3\), but the run has 2 "
                                  r"columns \(rain, dose\)")
+
+
+def test_a_poisson_run_with_an_offset_takes_the_new_rows_offset(tmp_path, capsys):
+    """The offset (log exposure) is a column of the run's CSV; new rows carry their own, by
+    the same name or by --offset. The mean response is exp(x . beta + offset) averaged over
+    the draws (the log link's inverse; from memory), computed here with numpy on the draws
+    of posterior.nc: the mean of S terms in another order, within 8 ulps."""
+    import arviz as az
+
+    rng = np.random.default_rng(20_261_203)
+    n = 300
+    x = rng.standard_normal(n)
+    exposure = np.log(rng.uniform(1, 10, n))
+    count = rng.poisson(np.exp(0.1 + 0.5 * x + exposure))
+    pacsv.write_csv(pa.table({"x": x, "log_exposure": exposure, "count": count}), tmp_path / "d.csv")
+    (tmp_path / "run.toml").write_text('[data]\nx = "d.csv"\ny = "count"\noffset = "log_exposure"\n'
+                                       '[model]\nfamily = "poisson"\n[sampler]\nchains = 2\n'
+                                       'draws = 200\nwarmup = 200\nseed = 1\n')
+    assert _run(capsys, "run", tmp_path / "run.toml", "--out", tmp_path / "run", "--quiet")[0] == 0
+    new = {"x": [0.0, 1.0, -1.0], "log_exposure": [0.0, np.log(5.0), 1.0], "hours": [0.0, 1.6, 1.0]}
+    pacsv.write_csv(pa.table(new), tmp_path / "new.csv")
+    beta = az.from_netcdf(tmp_path / "run" / "posterior.nc")["posterior"]["beta"].values.reshape(-1, 2)
+    for extra, offset in [((), new["log_exposure"]), (("--offset", "hours"), new["hours"])]:
+        code, out, err = _run(capsys, "predict", tmp_path / "run", tmp_path / "new.csv", "--out",
+                              tmp_path / "p.csv", *extra)
+        assert code == 0, err
+        mean = pacsv.read_csv(tmp_path / "p.csv").column("mean").to_numpy()
+        expected = np.exp(beta[:, 0][None, :] + np.outer(new["x"], beta[:, 1])
+                          + np.array(offset)[:, None]).mean(axis=1)
+        assert_ulps_close(mean, expected, ulps=8)
+    pacsv.write_csv(pa.table({"x": new["x"]}), tmp_path / "bare.csv")
+    code, out, err = _run(capsys, "predict", tmp_path / "run", tmp_path / "bare.csv")
+    _assert_one_error(code, err, r"--offset: the run had an offset \(log_exposure\) and bare\.csv "
+                                 r"has no column of that name; name the new rows' offset column")
