@@ -99,7 +99,6 @@ def test_csv_and_parquet_in_and_out_agree_and_blocks_do_not_matter(run_dir, rng,
     all at once: the same code on the same numbers, so equal to the last bits (CSV keeps 17
     significant digits, which round-trips float64 exactly; a matrix product over another
     block shape may round differently, hence 4 ulps)."""
-
     folder, _, _ = run_dir
     new = _new_rows(rng, n=5)
     pacsv.write_csv(pa.table(new), folder / "new.csv")
