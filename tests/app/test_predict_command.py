@@ -181,3 +181,22 @@ def test_a_poisson_run_with_an_offset_takes_the_new_rows_offset(tmp_path, capsys
     code, out, err = _run(capsys, "predict", tmp_path / "run", tmp_path / "bare.csv")
     _assert_one_error(code, err, r"--offset: the run had an offset \(log_exposure\) and bare\.csv "
                                  r"has no column of that name; name the new rows' offset column")
+
+
+def test_a_standardised_runs_laplace_columns_are_on_the_original_scale(run_dir):
+    """The linear posterior is normal, so its Laplace sd equals the posterior sd: the ratio
+    is 1 within the sd estimate's relative error 1/sqrt(2 ESS) (normal theory; from memory),
+    4 of them. Power: the Laplace covariance left on the standardised scale would make the
+    slopes' ratio off by the column sd (120 for rain, 0.01 for dose)."""
+    import csv
+    import json
+
+    folder, X, _ = run_dir
+    with open(folder / "run" / "summary.csv") as fh:
+        rows = list(csv.DictReader(fh))
+    ratio = np.array([float(r["laplace_sd_ratio"]) for r in rows])
+    ess = np.array([float(r["ess_bulk"]) for r in rows])
+    assert np.all(np.abs(ratio - 1) < 4 / np.sqrt(2 * ess)), ratio
+    scale = json.loads((folder / "run" / "run.json").read_text())["data"]["standardization"]["scale"]
+    unmapped = ratio[1:] * np.array(scale)
+    assert not np.all(np.abs(unmapped - 1) < 4 / np.sqrt(2 * ess[1:]))
