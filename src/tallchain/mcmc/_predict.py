@@ -87,8 +87,7 @@ def predict_blocks(coef, blocks, record, *, interval=0.9, seed=0):
     """
     interval = check_interval(interval)
     rng = np.random.default_rng(check_seed(seed))
-    response = response_from_record({k: v for k, v in record.items()
-                                      if k not in ("add_intercept", "feature_names")})
+    response = response_from_record(record)
     coef = np.ascontiguousarray(coef, dtype=float)
     for X, offset in blocks:
         yield predict_block(coef, X, offset, intercept=record["add_intercept"],
@@ -115,9 +114,10 @@ def predict(result, new_X, *, interval=0.9, offset=None, seed=None, chunk_rows=N
     step = rows_per_block(coef.shape[0], chunk_rows)
     blocks = ((X[i:i + step], None if offset is None else offset[i:i + step])
               for i in range(0, n_rows, step))
-    seed = result.settings.seed if seed is None else seed
-    parts = list(predict_blocks(coef, blocks, record, interval=interval,
-                                seed=0 if seed is None else seed))
+    if seed is None:   # the run's seed when it was a number (a generator would be advanced)
+        run_seed = result.settings.seed
+        seed = run_seed if isinstance(run_seed, (int, np.integer)) else 0
+    parts = list(predict_blocks(coef, blocks, record, interval=interval, seed=seed))
     return {name: np.concatenate([p[name] for p in parts]) if parts else np.empty(0)
             for name in prediction_columns(interval)}
 

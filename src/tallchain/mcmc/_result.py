@@ -174,10 +174,12 @@ class SampleResult:
         offset : array-like of shape (n_new,), optional
             Offset of the new rows (log exposure for Poisson); default 0.
         seed : int, optional
-            Seed of the simulated observations; default: the run's seed (0 if it had none).
+            Seed of the simulated observations; default: the run's seed when it was a number,
+            else 0.
         chunk_rows : int, optional
             Rows per block; default: as many as keep a block of rows x draws within 2^22
-            values. The values do not depend on it.
+            values. The values do not depend on it beyond the last bits of a matrix
+            product.
 
         Returns
         -------

@@ -142,8 +142,7 @@ def ratio_columns(flat, record, interval):
 def _ratio_name(record):
     if record is None:
         return None
-    return response_from_record({k: v for k, v in record.items()
-                                 if k not in ("add_intercept", "feature_names")}).ratio_name
+    return response_from_record(record).ratio_name
 
 
 def _finite_extreme(values, extreme):

@@ -101,8 +101,13 @@ class PoissonResponse(Response):
 RESPONSES = {cls.family_name: cls for cls in (NormalResponse, BernoulliResponse, PoissonResponse)}
 
 
+#: The keys of a model's record (``model.record()``) that describe the design, not the
+#: response; `response_from_record` passes over them.
+DESIGN_KEYS = ("add_intercept", "feature_names")
+
+
 def response_from_record(record, field="run.json"):
-    """The `Response` a record of `Response.record` describes.
+    """The `Response` a record of `Response.record` (or of ``model.record()``) describes.
 
     Raises
     ------
@@ -113,7 +118,7 @@ def response_from_record(record, field="run.json"):
         family = record.get("family") if isinstance(record, dict) else record
         fail(field, f"names no known model family ({family!r})",
              f"use a run folder written by tallchain run (families: {', '.join(RESPONSES)})")
-    options = {k: v for k, v in record.items() if k != "family"}
+    options = {k: v for k, v in record.items() if k not in ("family", *DESIGN_KEYS)}
     try:
         return RESPONSES[record["family"]](**options)
     except TypeError:
