@@ -199,3 +199,34 @@ def test_named_columns_are_taken_by_name(rng):
     by_name = result.predict(pd.DataFrame({"x1": X_new[:, 1], "x0": X_new[:, 0]}))
     for key in by_position:   # the same code on the same numbers: bitwise
         np.testing.assert_array_equal(by_name[key], by_position[key])
+
+
+def test_parameters_beyond_the_coefficients_reach_the_response():
+    """Draws may carry a family's further parameters after the coefficients (a noise sd, a
+    dispersion): they stay out of the linear predictor and reach ``Response.draw``. A normal
+    response whose sd is that column (3 in every draw), at eta = 0.5 + 1.0 x 2: the 90%
+    bounds 2.5 +- 1.645 x 3 (scipy.stats.norm) within 4 standard errors of a sample quantile,
+    sqrt(p (1-p) / S) / phi(z) x 3. Power: the response of the known-sd family (sd 1)
+    fails."""
+    from tallchain.mcmc._predict import predict_block
+    from tallchain.models import NormalResponse
+
+    class SampledSd(NormalResponse):
+        def draw(self, eta, rng, extra=None):
+            return eta + extra[:, 0] * rng.standard_normal(eta.shape)
+
+    S = 20_000
+    coef = np.column_stack([np.full(S, 0.5), np.full(S, 1.0), np.full(S, 3.0)])
+    z = stats.norm.ppf(0.95)
+    se = np.sqrt(0.05 * 0.95 / S) / stats.norm.pdf(z) * 3.0
+
+    def bounds(response):
+        out = predict_block(coef, np.array([[2.0]]), None, intercept=True, response=response,
+                            interval=0.9, rng=np.random.default_rng(4))
+        assert out["mean"][0] == 2.5   # the extra column is not a coefficient
+        return out["predictive_lower_90"][0], out["predictive_upper_90"][0]
+
+    lo, hi = bounds(SampledSd())
+    assert abs(lo - (2.5 - 3 * z)) < 4 * se and abs(hi - (2.5 + 3 * z)) < 4 * se
+    lo, hi = bounds(NormalResponse(1.0))
+    assert not (abs(lo - (2.5 - 3 * z)) < 4 * se and abs(hi - (2.5 + 3 * z)) < 4 * se)

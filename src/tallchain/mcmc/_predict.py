@@ -33,8 +33,10 @@ def predict_block(coef, X, offset, *, intercept, response, interval, rng):
 
     Parameters
     ----------
-    coef : ndarray of shape (n_draws, n_coef)
-        Posterior draws, the intercept first when ``intercept``.
+    coef : ndarray of shape (n_draws, n_params)
+        Posterior draws, the intercept first when ``intercept``, then one coefficient per
+        column of X; any further columns are the family's other parameters, passed to
+        ``response.draw``.
     X : ndarray of shape (n_rows, n_features)
     offset : ndarray of shape (n_rows,) or None
     intercept : bool
@@ -51,13 +53,14 @@ def predict_block(coef, X, offset, *, intercept, response, interval, rng):
         The columns of `prediction_columns`.
     """
     k = int(intercept)
-    eta = X @ coef[:, k:].T                     # (rows, draws)
+    n_coef = k + X.shape[1]
+    eta = X @ coef[:, k:n_coef].T               # (rows, draws)
     if k:
         eta += coef[:, 0]
     if offset is not None:
         eta += offset[:, None]
     mu = response.mean(eta)
-    y_new = response.draw(eta, rng)             # one new observation per posterior draw
+    y_new = response.draw(eta, rng, coef[:, n_coef:])   # one new observation per draw
     tail = (1.0 - interval) / 2.0
     mu_q = np.quantile(mu, [tail, 1.0 - tail], axis=1)
     y_q = np.quantile(y_new, [tail, 1.0 - tail], axis=1)

@@ -120,8 +120,9 @@ def ratio_columns(flat, record, interval):
     `Response.ratio_name`: odds ratio for logistic, rate ratio for Poisson): the posterior
     median and central interval of exp(beta_j), one column each, named after the ratio
     (``odds_ratio``, ``odds_ratio_lower_90``, ``odds_ratio_upper_90``). The intercept's
-    entries are NaN: exp(intercept) is the odds or rate at x = 0, not a ratio. No columns for
-    other families or without a model record."""
+    entries are NaN: exp(intercept) is the odds or rate at x = 0, not a ratio; so are those
+    of parameters other than coefficients (a dispersion). No columns for other families or
+    without a model record."""
     if record is None:
         return {}
     ratio = _ratio_name(record)
@@ -134,6 +135,8 @@ def ratio_columns(flat, record, interval):
          else np.full((3, n_coef), np.nan))
     if record["add_intercept"]:
         q[:, 0] = np.nan
+    n_coef = int(record["add_intercept"]) + len(record["feature_names"])
+    q[:, n_coef:] = np.nan          # a dispersion or a noise sd: not a coefficient
     lower, upper = interval_columns(interval)
     return {name: q[0].tolist(), f"{name}_{lower}": q[1].tolist(),
             f"{name}_{upper}": q[2].tolist()}

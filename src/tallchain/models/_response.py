@@ -25,8 +25,13 @@ class Response:
         """E[y | eta], elementwise: the inverse link."""
         return self.inverse_link(np.asarray(eta, dtype=float))
 
-    def draw(self, eta, rng):
-        """One new observation y ~ p(y | eta) for every element of ``eta`` (any shape)."""
+    def draw(self, eta, rng, extra=None):
+        """One new observation y ~ p(y | eta) for every element of ``eta`` (any shape).
+
+        ``extra``: the draws of the family's parameters beyond the coefficients (a noise sd,
+        a dispersion), shape (n_draws, k), for eta of shape (rows, n_draws); the families
+        here have none and ignore it.
+        """
         return self.sample(self.mean(eta), rng)
 
     def inverse_link(self, eta):
