@@ -63,6 +63,7 @@ def run_record(result, summary, wall_seconds=None):
         "settings": result.settings.record(),
         "tuned": result.tuned,
         "coef_names": result.coef_names,
+        "model": result.model_record,
         "n_rows": result.n_rows,
         "setup_seconds": result.setup_seconds,
         "sampling_seconds": result.sampling_seconds,

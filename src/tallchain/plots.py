@@ -164,3 +164,68 @@ def plot_calibration(result, path):
     fig.suptitle(f"simulation-based calibration: R = {R}, L = {result.n_draws}", fontsize=10)
     fig.savefig(path, dpi=110)
     plt.close(fig)
+
+
+def plot_coefficients(summary, path):
+    """The coefficient plot of a report: per coefficient (the intercept left out, its scale
+    being another), the posterior median as a point and the central interval as a line,
+    with the numbers printed beside them, so coefficients on very different scales stay
+    readable; a second panel with the ratios exp(coefficient) on a log axis when the family
+    has them (odds ratio, rate ratio), a line marking 1 (no effect).
+
+    Parameters
+    ----------
+    summary : tallchain.mcmc.Summary
+    path : path-like
+        The PNG to write.
+
+    Returns
+    -------
+    pathlib.Path
+    """
+    plt = _pyplot()
+    fig = coefficient_figure(summary)
+    fig.savefig(path, dpi=120)
+    plt.close(fig)
+    return Path(path)
+
+
+def coefficient_figure(summary):
+    """The figure `plot_coefficients` writes (a matplotlib Figure, left open)."""
+    plt = _pyplot()
+    t = summary.table
+    lower, upper = summary.interval_columns
+    keep = [i for i, name in enumerate(t["coef"]) if name != "intercept"] or [0]
+    panels = [("coefficient", "median", lower, upper, 0.0, False)]
+    if summary.ratio is not None:
+        key = summary.ratio.replace(" ", "_")
+        panels.append((summary.ratio, key, f"{key}_{lower}", f"{key}_{upper}", 1.0, True))
+    height = 1.2 + 0.42 * len(keep)
+    fig, axes = plt.subplots(1, len(panels), figsize=(6.4 * len(panels), height),
+                             constrained_layout=True, squeeze=False)
+    rows = np.arange(len(keep))[::-1]                   # the first coefficient on top
+    for ax, (label, mid, lo, hi, null, log) in zip(axes[0], panels):
+        m, a, b = (np.array([t[k][i] for i in keep]) for k in (mid, lo, hi))
+        ax.hlines(rows, a, b, color="tab:blue", lw=2.2)
+        ax.plot(m, rows, "o", color="tab:blue", ms=6)
+        ax.axvline(null, color="gray", ls="--", lw=1)
+        if log:
+            from matplotlib import ticker
+
+            ax.set_xscale("log")
+            # Plain numbers (0.6, 1, 2) rather than powers of ten: ratios are read as such.
+            ax.xaxis.set_major_locator(ticker.LogLocator(subs=(1.0, 2.0, 3.0, 5.0)))
+            ax.xaxis.set_major_formatter(ticker.FuncFormatter(lambda v, _: f"{v:g}"))
+            ax.xaxis.set_minor_formatter(ticker.NullFormatter())
+        for y, mi, ai, bi in zip(rows, m, a, b):
+            ax.annotate(f"{mi:.3g} [{ai:.3g}, {bi:.3g}]", (1.0, y),
+                        xycoords=("axes fraction", "data"), xytext=(6, 0),
+                        textcoords="offset points", va="center", fontsize=8)
+        ax.set_yticks(rows, [t["coef"][i] for i in keep])
+        ax.set_ylim(-0.7, len(keep) - 0.3)
+        ax.set_xlabel(label)
+        ax.grid(True, axis="x", alpha=0.3)
+        ax.set_title(f"{label}: median and {100 * summary.interval:.6g}% interval", fontsize=10)
+    if len(keep) < len(t["coef"]):
+        axes[0][0].set_xlabel("coefficient (the intercept is in summary.csv)")
+    return fig

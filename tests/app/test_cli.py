@@ -81,7 +81,9 @@ def test_run_writes_the_contract_files(tmp_path, rng, capsys):
         rows = list(csv.DictReader(fh))
     assert [r["coef"] for r in rows] == ["intercept", "x0", "x1"]
     assert list(rows[0]) == ["coef", "mean", "sd", "lower_90", "median", "upper_90",
-                             "ess_bulk", "ess_tail", "r_hat", "mcse_mean"]
+                             "odds_ratio", "odds_ratio_lower_90", "odds_ratio_upper_90",
+                             "ess_bulk", "ess_tail", "r_hat", "mcse_mean", "laplace_ks",
+                             "ks_floor", "laplace_shift", "laplace_sd_ratio"]
     record = json.loads((tmp_path / "out" / "run.json").read_text())
     for key in RUN_KEYS:
         assert key in record
@@ -89,8 +91,11 @@ def test_run_writes_the_contract_files(tmp_path, rng, capsys):
     assert record["settings"]["draws"] == 150 and record["family"] == "logistic"
     # the human summary and where the files went
     assert "penalty-mala: 2 chains x 150 draws after 100 warmup, N = 400 rows" in out
-    assert re.search(r"^coefficient +mean +sd +90% interval +ESS \(bulk\) +R-hat$", out, re.M)
-    assert re.search(r"^intercept +\S+ +\S+ +\[ *\S+, +\S+\] +\d+ +\d\.\d{3}$", out, re.M)
+    assert re.search(r"^coefficient +mean +sd +90% interval +odds ratio +90% interval "
+                     r"+ESS \(bulk\) +R-hat +Laplace KS/floor$", out, re.M)
+    # the intercept has no odds ratio ("-"); the Laplace gap is in noise floors
+    assert re.search(r"^intercept +\S+ +\S+ +\[ *\S+, +\S+\] +- +- +\d+ +\d\.\d{3} +\d+\.\d\d$",
+                     out, re.M)
     assert "ESS/s" in out
     assert f"wrote posterior.nc, summary.csv, run.json to {tmp_path / 'out'}" in out
     # 150 draws are too few for the ESS rule: reported as one warning line each, no traceback

@@ -28,7 +28,8 @@ def run():
 def test_interval_columns_follow_the_probability_and_equal_arviz(run, interval, lower, upper):
     s = summarize(run, warn=False, interval=interval)
     assert list(s.table) == ["coef", "mean", "sd", lower, "median", upper, "ess_bulk",
-                             "ess_tail", "r_hat", "mcse_mean"]
+                             "ess_tail", "r_hat", "mcse_mean", "laplace_ks", "ks_floor",
+                             "laplace_shift", "laplace_sd_ratio"]
     assert s.interval == interval and s.interval_columns == (lower, upper)
     tree = run.to_arviz()
     eti = az.eti(tree, prob=interval)["beta"]

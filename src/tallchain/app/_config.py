@@ -22,6 +22,7 @@ from .._validation import check_folder, did_you_mean, fail, one_of
 from ..data import ARRAY_SUFFIXES, DataSource, load_array
 from ..exceptions import InputError
 from ..mcmc import SamplerSettings
+from ..mcmc._summary import check_interval
 from ..models import FAMILIES, GaussianPrior, check_noise_sd
 
 
@@ -54,12 +55,14 @@ SCHEMA = {
     # The fields of tallchain.SamplerSettings, which checks their values and holds the
     # defaults.
     "sampler": {name: None for name in SamplerSettings.names()},
-    "output": {"dir": _STR},
+    "output": {"dir": _STR, "interval": _NUMBER},
     # Where the chains of a run, and the runs of sweeps and calibrations, execute
     # (tallchain.executors); --scheduler/--workers override.
     "compute": {"scheduler": _STR, "workers": _INT},
 }
 REQUIRED = (("data", "x"), ("model", "family"))
+#: The default of ``[output] interval``: the summary's central 90% intervals.
+DEFAULT_INTERVAL = 0.9
 
 # Argument names used in the messages of the lower layers, and the config key each one is.
 _ARGUMENT_KEYS = {
@@ -144,6 +147,9 @@ class RunConfig:
     sampler_keys : frozenset of str
         The ``[sampler]`` keys that were given (in the file or on the command line).
     output_dir : pathlib.Path
+    interval : float
+        ``[output] interval``: probability of the central intervals in the summary, the
+        printed table and the coefficient plot (default 0.9).
     compute : mapping
         The ``[compute]`` keys given: ``scheduler`` ("threads", "processes", "dask-local" or
         a Dask scheduler address) and ``workers``. ``run`` defaults to "threads", sweeps and
@@ -160,6 +166,7 @@ class RunConfig:
     overridden: frozenset = frozenset()
     compute: MappingProxyType = MappingProxyType({})
     sampler_keys: frozenset = frozenset()
+    interval: float = DEFAULT_INTERVAL
 
     def sampler_given(self):
         """The ``[sampler]`` settings that were given, as keywords (for callers with defaults
@@ -273,10 +280,19 @@ def config_from_dict(raw, *, base_dir=".", stem="run", overrides=None, path=None
             output_dir = (Path.cwd() if "output.dir" in overridden else base_dir) / output_dir
     output_dir = Path(os.path.normpath(output_dir))
     check_folder(_label("output.dir", overridden), output_dir)
+    interval = _interval(raw.get("output", {}).get("interval", DEFAULT_INTERVAL), overridden)
     return RunConfig(path=path, data=data, model=model, sampler=sampler,
                      sampler_keys=frozenset(given),
                      output_dir=output_dir, overridden=overridden,
-                     compute=MappingProxyType(compute))
+                     compute=MappingProxyType(compute), interval=interval)
+
+
+def _interval(value, overridden):
+    try:
+        return check_interval(value)
+    except InputError as exc:
+        raise InputError(str(exc).replace("interval:", f"{_label('output.interval', overridden)}:", 1)
+                         .replace("e.g. interval=0.9", "e.g. 0.9")) from None
 
 
 def _check_compute(compute):

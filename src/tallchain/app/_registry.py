@@ -99,10 +99,18 @@ OVERRIDES = (
 )
 
 
-def add_config_arguments(parser, *, exclude=()):
-    """Add the CONFIG argument and the override options (minus the flags in ``exclude``)."""
+# Overrides only some commands take (``add_config_arguments(parser, extra=...)``).
+REPORT_OVERRIDES = (
+    ("--interval", "output.interval", float, "P",
+     "probability of the central intervals in the summary and plots (default 0.9)"),
+)
+
+
+def add_config_arguments(parser, *, exclude=(), extra=()):
+    """Add the CONFIG argument and the override options (minus the flags in ``exclude``,
+    plus the entries of ``extra``, such as `REPORT_OVERRIDES`)."""
     parser.add_argument("config", metavar="CONFIG", help="TOML run configuration")
-    for flag, key, kind, metavar, text in OVERRIDES:
+    for flag, key, kind, metavar, text in OVERRIDES + tuple(extra):
         if flag not in exclude:
             parser.add_argument(flag, dest=_dest(flag), type=kind, default=None,
                                 metavar=metavar, help=f"{text} (overrides {key})")
@@ -114,7 +122,8 @@ def _dest(flag):
 
 def config_from_args(args):
     """Load ``args.config`` with the override options that were given."""
-    overrides = {key: getattr(args, _dest(flag)) for flag, key, *_ in OVERRIDES
+    overrides = {key: getattr(args, _dest(flag))
+                 for flag, key, *_ in OVERRIDES + REPORT_OVERRIDES
                  if getattr(args, _dest(flag), None) is not None}
     if "output.dir" in overrides:
         overrides["output.dir"] = str(Path(overrides["output.dir"]).absolute())

@@ -3,20 +3,21 @@
 from pathlib import Path
 
 from ._config import load_config
-from ._registry import (EXIT_OK, add_config_arguments, command, config_from_args, warning_line,
-                        warnings_as_lines)
+from ._registry import (EXIT_OK, REPORT_OVERRIDES, add_config_arguments, command,
+                        config_from_args, warning_line, warnings_as_lines)
 from ._report import print_outputs, print_summary
 from ._service import run_config
 
 
 def _add_run_arguments(parser):
-    add_config_arguments(parser)
+    add_config_arguments(parser, extra=REPORT_OVERRIDES)
     parser.add_argument("--quiet", action="store_true", help="print only warnings and errors")
     parser.add_argument("--resume", action="store_true",
                         help="continue an interrupted run from its checkpoint in the output "
                              "folder (same config and options)")
     parser.add_argument("--plots", action="store_true",
-                        help="also write trace.png, rank.png and log_ratio_sd.png")
+                        help="also write trace.png, rank.png, log_ratio_sd.png and "
+                             "coefficients.png")
     parser.add_argument("--scheduler", default=None, metavar="WHERE",
                         help='where the chains run: "threads" of this process (default), '
                              '"processes", "dask-local", or a Dask scheduler address such as '
@@ -36,14 +37,16 @@ def _run(args):
     for msg in summary.warnings:
         warning_line(msg)
     if args.plots:
-        from ..plots import plot_run
+        from ..plots import plot_coefficients, plot_run
 
         plot_run(result, config.output_dir)
+        plot_coefficients(summary, Path(config.output_dir) / "coefficients.png")
     if not args.quiet:
         print_summary(result, summary, standardized=dataset.standardization is not None)
         print_outputs(config.output_dir)
         if args.plots:
-            print(f"wrote trace.png, rank.png, log_ratio_sd.png to {config.output_dir}")
+            print(f"wrote trace.png, rank.png, log_ratio_sd.png, coefficients.png to "
+                  f"{config.output_dir}")
     return EXIT_OK
 
 

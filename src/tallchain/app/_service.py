@@ -58,7 +58,7 @@ def run_config(config, *, progress=False, resume=False, scheduler=None, workers=
                             workers=option_or(workers, config.compute.get("workers")))
     except SamplingInterrupted as stop:
         partial = _to_original_scale(stop.result, dataset, load_seconds)
-        save_result(partial, config.output_dir)
+        save_result(partial, config.output_dir, interval=config.interval)
         raise KeyboardInterrupt(
             f"{partial.completed_draws} draws per chain kept in "
             f"{Path(config.output_dir) / 'posterior.nc'}; continue with: tallchain run "
@@ -66,14 +66,14 @@ def run_config(config, *, progress=False, resume=False, scheduler=None, workers=
     result = _to_original_scale(result, dataset, load_seconds)
     scaling = dataset.standardization
     extra = {"config": None if config.path is None else str(config.path.absolute()),
-             "family": config.model.family,
+             "family": config.model.family, "interval": config.interval,
              "data": {"x": str(config.data.x), "y": str(config.data.y),
                       "offset": None if config.data.offset is None else str(config.data.offset),
                       "add_intercept": config.data.add_intercept,
                       "standardization": None if scaling is None else scaling.as_dict()}}
     try:
         summary = save_result(result, config.output_dir, wall_seconds=time.perf_counter() - t0,
-                              extra=extra)
+                              extra=extra, interval=config.interval)
     except KeyboardInterrupt:
         # The checkpoint holds every draw (the driver writes it at the end): keep it.
         raise KeyboardInterrupt(
@@ -94,6 +94,10 @@ def _to_original_scale(result, dataset, load_seconds):
         changes["draws"] = scaling.to_original(result.draws)
         if result.laplace_mode is not None:
             changes["laplace_mode"] = scaling.to_original(result.laplace_mode)
+        if result.laplace_cov is not None:
+            # to_original is linear, b -> M b, so the covariance maps to M cov M^T; applying it
+            # to the rows of cov gives cov M^T, and to the rows of its transpose M cov M^T.
+            changes["laplace_cov"] = scaling.to_original(scaling.to_original(result.laplace_cov).T)
     return dataclasses.replace(result, **changes)
 
 

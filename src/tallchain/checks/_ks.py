@@ -6,48 +6,12 @@ import numpy as np
 from scipy import stats
 
 from .._validation import fail, is_number
-
-# 95% quantile of the Kolmogorov distribution of sqrt(n) D_n (standard tables; METHODS.md 5).
-KS_CRITICAL = 1.358
+from ..mcmc._laplace_gap import ECDF_QUANTILES, KS_CRITICAL, ecdf_ess  # noqa: F401
 
 #: Below this ESS of the empirical CDF a KS verdict is "inconclusive": ESS estimates are
 #: themselves unreliable from short chains, and the floor is too wide to show bias (common
 #: practice puts the minimum for trusting ESS and R-hat at 100 or more effective draws).
 MIN_ESS_FOR_VERDICT = 100
-
-
-#: The quantiles at which `ecdf_ess` measures the ESS of the empirical CDF: both tails and
-#: the middle, where the smallest of them usually lies for antithetic chains. Nine points
-#: gave the same calibration as nineteen (0.05, 0.10, ..., 0.95) at half the cost.
-ECDF_QUANTILES = (0.05, 0.1, 0.2, 0.3, 0.5, 0.7, 0.8, 0.9, 0.95)
-
-
-def ecdf_ess(draws):
-    """Effective sample size of the empirical CDF, per coefficient: the smallest ESS of the
-    indicator 1{x <= x_q} over the quantiles q in `ECDF_QUANTILES` (5% to 95%).
-
-    The KS distance is the largest deviation of the empirical CDF, and at each point the
-    empirical CDF is the mean of such an indicator; its Monte Carlo error follows that
-    indicator's autocorrelation, not the position's. The bulk ESS (of the rank-normalised
-    position) overstates it for chains that are antithetic in the position, as MALA is at
-    steps above the tuned one: exact MALA on N(0, 1) at acceptance 0.66 exceeded the 95%
-    point of the Kolmogorov distribution in 19.7% of 600 runs with the bulk ESS as n, 9.5%
-    with the smaller of bulk and tail ESS, 5.0% with this one; at acceptance 0.78-0.95,
-    2.3-4.3% with this one (benchmarks/bench_sweep_false_alarms.py).
-
-    Parameters
-    ----------
-    draws : ndarray of shape (n_chains, n_draws, n_coef)
-
-    Returns
-    -------
-    ndarray of shape (n_coef,)
-        ``min over q of arviz.ess(draws[:, :, j], method="quantile", prob=q)``.
-    """
-    import arviz as az
-
-    return np.array([min(float(az.ess(draws[:, :, j], method="quantile", prob=q))
-                         for q in ECDF_QUANTILES) for j in range(draws.shape[2])])
 
 
 def check_level(level):

@@ -8,7 +8,7 @@ import numpy as np
 from ._summary import summarize
 
 
-@dataclass
+@dataclass(repr=False)
 class SampleResult:
     """Draws, per-iteration statistics, cost counters and timings of one run.
 
@@ -45,6 +45,12 @@ class SampleResult:
         Advice raised during the run (noise level, Gaussianity of the log-ratio).
     laplace_mode : ndarray of shape (n_coef,) or None
         The posterior mode found for the run (None when the method needed none).
+    laplace_cov : ndarray of shape (n_coef, n_coef) or None
+        The covariance of the Laplace (normal) approximation at that mode: the inverse of the
+        negative log-posterior Hessian there.
+    model_record : dict or None
+        What predictions need of the model: its family and options (e.g. ``noise_sd``),
+        ``add_intercept`` and ``feature_names`` (``model.record()``).
     """
 
     draws: np.ndarray
@@ -59,6 +65,17 @@ class SampleResult:
     completed_draws: int
     laplace_mode: np.ndarray | None = None
     warnings: list = field(default_factory=list)
+    laplace_cov: np.ndarray | None = None
+    model_record: dict | None = None
+
+    def __repr__(self):
+        """The run in a few lines and the coefficient table (see `summary`)."""
+        from ._tables import coefficient_table, run_header, table_notes
+
+        if self.n_draws == 0:
+            return f"{run_header(self)}; no draws"
+        summary = self.summary(warn=False)
+        return "\n".join([run_header(self), *coefficient_table(summary), *table_notes(summary)])
 
     @property
     def method(self):
@@ -136,6 +153,45 @@ class SampleResult:
             R-hat above 1.01 or a bulk/tail ESS below 400 for some coefficient.
         """
         return summarize(self, warn=warn, interval=interval)
+
+    def predict(self, new_X, *, interval=0.9, offset=None, seed=None, chunk_rows=None):
+        """Posterior predictions for new rows, block by block of rows (bounded memory).
+
+        For every new row x and every draw beta: eta = x . beta (+ intercept, + offset), the
+        mean response mu = E[y | eta] (the family's inverse link) and one new observation
+        y ~ p(y | eta) drawn from the family (normal noise of the run's sd, Bernoulli,
+        Poisson). Their quantiles over the draws give the intervals.
+
+        Parameters
+        ----------
+        new_X : array-like of shape (n_new, n_features), or a table
+            A pandas, polars or pyarrow table (or a dict of columns) is read by column name
+            (the run's coefficient names without the intercept); a plain array must hold the
+            features in the run's order. On the scale the draws are on (a run of
+            ``tallchain run`` with ``standardize`` writes draws on the original scale).
+        interval : float, default=0.9
+            Probability of the central intervals.
+        offset : array-like of shape (n_new,), optional
+            Offset of the new rows (log exposure for Poisson); default 0.
+        seed : int, optional
+            Seed of the simulated observations; default: the run's seed when it was a number,
+            else 0.
+        chunk_rows : int, optional
+            Rows per block; default: as many as keep a block of rows x draws within 2^22
+            values. The values do not depend on it beyond the last bits of a matrix
+            product.
+
+        Returns
+        -------
+        dict of str to ndarray of shape (n_new,)
+            ``mean``: posterior mean of the mean response; ``lower_90``, ``upper_90``: its
+            central interval (named for ``interval``); ``predictive_lower_90``,
+            ``predictive_upper_90``: the central interval of a new observation.
+        """
+        from ._predict import predict
+
+        return predict(self, new_X, interval=interval, offset=offset, seed=seed,
+                       chunk_rows=chunk_rows)
 
     def save(self, directory, *, interval=0.9):
         """Write posterior.nc, summary.csv and run.json into ``directory``, atomically.

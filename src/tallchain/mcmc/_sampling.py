@@ -157,4 +157,6 @@ def _result(model, settings, setup, states, runner, schedule, timings):
         draws=runner.all_draws[:, warmup:warmup + n_done].copy(), stats=stats,
         warmup_stats=warm, coef_names=list(model.coef_names), settings=settings, tuned=tuned,
         n_rows=model.n_rows, setup_seconds=timings[0], sampling_seconds=timings[1], completed_draws=n_done,
-        laplace_mode=None if setup.laplace is None else setup.laplace.mode)
+        laplace_mode=None if setup.laplace is None else setup.laplace.mode,
+        laplace_cov=None if setup.laplace is None else setup.laplace.cov,
+        model_record=model.record())

@@ -7,6 +7,8 @@ import numpy as np
 
 from .._validation import fail, is_number
 from ..exceptions import ConvergenceWarning
+from ..models import response_from_record
+from ._laplace_gap import laplace_gap
 
 RHAT_MAX = 1.01      # Vehtari, Gelman, Simpson, Carpenter & Buerkner (2021), Bayesian Analysis
 ESS_MIN = 400        # ibid.: bulk and tail ESS of at least 100 per chain, 4 chains
@@ -50,8 +52,11 @@ def summarize(result, *, warn=True, interval=0.9):
     -------
     Summary
         ``table``: dict of column name to list, one entry per coefficient, with columns
-        coef, mean, sd, the interval's lower bound, median, its upper bound, ess_bulk,
-        ess_tail, r_hat, mcse_mean; ``run``: dict with acceptance_rate, log_ratio_sd_mean,
+        coef, mean, sd, the interval's lower bound, median, its upper bound; for logistic and
+        Poisson the ratio exp(coefficient) (``odds_ratio`` or ``rate_ratio``, its median, and
+        its interval, see `ratio_columns`); ess_bulk, ess_tail, r_hat, mcse_mean; and when the
+        run had a Laplace approximation, laplace_ks, ks_floor, laplace_shift,
+        laplace_sd_ratio (see `tallchain.mcmc.laplace_gap`); ``run``: dict with acceptance_rate, log_ratio_sd_mean,
         data_passes, sampling_seconds, ess_bulk_min, ess_per_second, ess_per_data_pass;
         ``warnings``: list of str; ``interval``.
     """
@@ -69,6 +74,7 @@ def summarize(result, *, warn=True, interval=0.9):
          else np.full((3, n_coef), np.nan))
     lower, upper = interval_columns(interval)
     table[lower], table["median"], table[upper] = q[0].tolist(), q[1].tolist(), q[2].tolist()
+    table.update(ratio_columns(flat, result.model_record, interval))
     if draws.shape[1] >= 4:
         tree = az.from_dict({"posterior": {"beta": draws}}, dims={"beta": ["coef"]},
                             coords={"coef": list(result.coef_names)})
@@ -79,6 +85,9 @@ def summarize(result, *, warn=True, interval=0.9):
     else:
         for key in ("ess_bulk", "ess_tail", "r_hat", "mcse_mean"):
             table[key] = [float("nan")] * n_coef
+    if result.laplace_cov is not None and draws.shape[1] >= 4:
+        table.update({k: v.tolist() for k, v in
+                      laplace_gap(draws, result.laplace_mode, result.laplace_cov).items()})
     ess_min = float(np.nanmin(table["ess_bulk"])) if n_coef else float("nan")
     sd = result.stats.get("log_ratio_sd")
     run = {
@@ -102,7 +111,41 @@ def summarize(result, *, warn=True, interval=0.9):
                     "of tails and sd are unreliable; draw more")
     if warn and msgs:
         warnings.warn("; and ".join(msgs), ConvergenceWarning, stacklevel=2)
-    return Summary(table=table, run=run, warnings=msgs, interval=interval)
+    return Summary(table=table, run=run, warnings=msgs, interval=interval,
+                   ratio=_ratio_name(result.model_record))
+
+
+def ratio_columns(flat, record, interval):
+    """exp of the draws, for families whose exp(coefficient) is a ratio (the family's
+    `Response.ratio_name`: odds ratio for logistic, rate ratio for Poisson): the posterior
+    median and central interval of exp(beta_j), one column each, named after the ratio
+    (``odds_ratio``, ``odds_ratio_lower_90``, ``odds_ratio_upper_90``). The intercept's
+    entries are NaN: exp(intercept) is the odds or rate at x = 0, not a ratio; so are those
+    of parameters other than coefficients (a dispersion). No columns for other families or
+    without a model record."""
+    if record is None:
+        return {}
+    ratio = _ratio_name(record)
+    if ratio is None:
+        return {}
+    name = ratio.replace(" ", "_")
+    tail = (1.0 - interval) / 2.0
+    n_coef = flat.shape[1]
+    q = (np.quantile(np.exp(flat), [0.5, tail, 1.0 - tail], axis=0) if flat.size
+         else np.full((3, n_coef), np.nan))
+    if record["add_intercept"]:
+        q[:, 0] = np.nan
+    n_coef = int(record["add_intercept"]) + len(record["feature_names"])
+    q[:, n_coef:] = np.nan          # a dispersion or a noise sd: not a coefficient
+    lower, upper = interval_columns(interval)
+    return {name: q[0].tolist(), f"{name}_{lower}": q[1].tolist(),
+            f"{name}_{upper}": q[2].tolist()}
+
+
+def _ratio_name(record):
+    if record is None:
+        return None
+    return response_from_record(record).ratio_name
 
 
 def _finite_extreme(values, extreme):
@@ -121,8 +164,9 @@ class Summary:
     ----------
     table : dict of str to list
         One entry per coefficient: coef, mean, sd, lower_<P>, median, upper_<P> (the central
-        interval of probability ``interval``, P in percent), ess_bulk, ess_tail, r_hat,
-        mcse_mean.
+        interval of probability ``interval``, P in percent), the ratio columns (see
+        ``ratio``), ess_bulk, ess_tail, r_hat, mcse_mean, and the Laplace columns when the run
+        had a Laplace approximation (see `summarize`). ``print(summary)`` shows it as a table.
     run : dict
         acceptance_rate, log_ratio_sd_mean, data_passes, sampling_seconds, ess_bulk_min,
         ess_per_second, ess_per_data_pass.
@@ -130,12 +174,21 @@ class Summary:
         Convergence advice (R-hat, ESS).
     interval : float
         Probability of the central interval in ``table``.
+    ratio : str or None
+        What exp(coefficient) is for the family ("odds ratio", "rate ratio"), whose columns
+        ``table`` then holds; None for families without one.
     """
 
     table: dict
     run: dict
     warnings: list
     interval: float = 0.9
+    ratio: str | None = None
+
+    def __str__(self):
+        from ._tables import coefficient_table, table_notes
+
+        return "\n".join(coefficient_table(self) + table_notes(self))
 
     @property
     def interval_columns(self):

@@ -5,9 +5,12 @@ from ._families import FAMILIES, LinearRegression, LogisticRegression, PoissonRe
 from ._glm import _GLM
 from ._inputs import check_noise_sd
 from ._prior import GaussianPrior
+from ._response import (RESPONSES, BernoulliResponse, NormalResponse, PoissonResponse, Response,
+                        response_from_record)
 
 __all__ = ["GaussianPrior", "LinearRegression", "LogisticRegression", "PoissonRegression",
-           "FAMILIES", "check_model", "check_noise_sd"]
+           "FAMILIES", "check_model", "check_noise_sd", "Response", "NormalResponse",
+           "BernoulliResponse", "PoissonResponse", "RESPONSES", "response_from_record"]
 
 
 def check_model(model):

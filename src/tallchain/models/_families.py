@@ -1,7 +1,6 @@
 """Regression families: linear (known noise sd), logistic and Poisson GLMs."""
 
 import numpy as np
-from scipy import special
 
 from .._arrays import symmetrized
 from .._validation import fail
@@ -9,6 +8,7 @@ from ..exceptions import ModeNotFoundError
 from . import _kernels
 from ._glm import _GLM
 from ._inputs import check_noise_sd, rows_text
+from ._response import BernoulliResponse, NormalResponse, PoissonResponse
 
 
 class LinearRegression(_GLM):
@@ -61,8 +61,10 @@ class LinearRegression(_GLM):
         super().__init__(X, y, prior=prior, add_intercept=add_intercept, noise_sd=noise_sd,
                          coef_names=coef_names, check=check)
 
-    def _draw_response(self, eta, rng):
-        return eta + self.noise_sd * rng.standard_normal(eta.shape[0])
+    @property
+    def response(self):
+        """The response given the linear predictor: `NormalResponse` with this noise sd."""
+        return NormalResponse(self.noise_sd)
 
 
 class LogisticRegression(_GLM):
@@ -106,8 +108,7 @@ class LogisticRegression(_GLM):
         super().__init__(X, y, prior=prior, add_intercept=add_intercept, coef_names=coef_names,
                          check=check)
 
-    def _draw_response(self, eta, rng):
-        return (rng.random(eta.shape[0]) < special.expit(eta)).astype(float)
+    response_class = BernoulliResponse
 
     def check_mode(self, mode, information):
         """Raise when logistic data are (quasi-)separated and the prior is too weak to hold
@@ -190,9 +191,7 @@ class PoissonRegression(_GLM):
         super().__init__(X, y, prior=prior, add_intercept=add_intercept, offset=offset,
                          coef_names=coef_names, check=check)
 
-    def _draw_response(self, eta, rng):
-        # exp(30) ~ 1e13 counts: far beyond any data, and within the sampler's float range.
-        return rng.poisson(np.exp(np.minimum(eta, 30.0))).astype(float)
+    response_class = PoissonResponse
 
     def _check_response(self, y):
         bad = np.flatnonzero((y < 0) | (y != np.floor(y)))

@@ -231,5 +231,21 @@ class _GLM:
         full-data passes the check spent. The default accepts every mode, with no pass."""
         return 0
 
+    #: The family's `Response` class (mean response, simulation, ratio name).
+    response_class = None
+
+    @property
+    def response(self):
+        """The family's response given the linear predictor (a `tallchain.models.Response`):
+        its mean, a simulated observation, the ratio exp(coefficient) means, and the record a
+        run folder keeps for predictions."""
+        return self.response_class()
+
+    def record(self):
+        """What a prediction needs of the model besides the draws: the response's record
+        (family and options), ``add_intercept`` and ``feature_names``."""
+        return {**self.response.record(), "add_intercept": self.add_intercept,
+                "feature_names": list(self.feature_names)}
+
     def _draw_response(self, eta, rng):
-        raise NotImplementedError
+        return self.response.draw(eta, rng)
