@@ -53,7 +53,7 @@ def run_config(config, *, progress=False, resume=False, scheduler=None, workers=
     try:
         with config.named_fields():
             result = sample(model, config.sampler, progress=progress, checkpoint=checkpoint,
-                            resume=resume,
+                            resume=resume, checkpoint_extra=_data_identity(config, dataset),
                             scheduler=option_or(scheduler, config.compute.get("scheduler", "threads")),
                             workers=option_or(workers, config.compute.get("workers")))
     except SamplingInterrupted as stop:
@@ -84,6 +84,13 @@ def run_config(config, *, progress=False, resume=False, scheduler=None, workers=
 
 
 CHECKPOINT_NAME = "checkpoint.npz"
+
+
+def _data_identity(config, dataset):
+    """What a resume must match beyond the model: how the columns were chosen and scaled."""
+    scaling = dataset.standardization
+    return {"data.columns": None if config.data.columns is None else list(config.data.columns),
+            "standardization": None if scaling is None else scaling.as_dict()}
 
 
 def _to_original_scale(result, dataset, load_seconds):

@@ -11,6 +11,7 @@ are `SamplerSettings.check_against`.
 """
 
 import hashlib
+import json
 import math
 import os
 import textwrap
@@ -346,6 +347,11 @@ class RunOptions:
     resume: bool = _setting(False, check_flag, "bool, default=False",
                             "Continue from ``checkpoint``; the settings must be those of the "
                             "interrupted run.")
+    checkpoint_extra: dict = _setting(
+        None, lambda name, v: _extra(name, v), "dict, optional",
+        "More items a resume must match, recorded in the checkpoint beside the settings and "
+        "the model's fingerprint (JSON-ready values, e.g. how the data were standardised); "
+        "a key that differs is named in the refusal.")
     checkpoint_seconds: float = _setting(
         30.0, lambda name, v: positive_number(name, v, "give the seconds between checkpoint "
                                               "writes, e.g. 30"),
@@ -392,6 +398,18 @@ def _path_or_none(name, value):
     if value is not None and not isinstance(value, (str, os.PathLike)):
         fail(name, f"must be a file path, got {show_value(value)}", "give a path, or leave it out")
     return value
+
+
+def _extra(name, value):
+    if value is None:
+        return {}
+    if not isinstance(value, dict) or not all(isinstance(k, str) for k in value):
+        fail(name, f"must be a dict with string keys, got {show_value(value)}",
+             'give e.g. {"standardization": None}, or leave it out')
+    try:
+        return json.loads(json.dumps(value, allow_nan=False))   # as the checkpoint reads it
+    except (TypeError, ValueError) as exc:
+        fail(name, f"must hold JSON values ({exc})", "give numbers, strings, lists and dicts")
 
 
 def _preparation(name, value):
