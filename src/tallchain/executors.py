@@ -33,6 +33,7 @@ from concurrent.futures import CancelledError, ProcessPoolExecutor, as_completed
 from concurrent.futures.process import BrokenProcessPool
 
 
+from ._addresses import CONNECT_SECONDS, looks_like_address, parse_address
 from ._validation import fail, is_integer
 from .exceptions import WorkerDiedError
 
@@ -103,7 +104,9 @@ def check_scheduler(scheduler, *, threads=False):
     """
     if scheduler in ("processes", "serial") or (threads and scheduler == "threads"):
         return
-    if scheduler == "dask-local" or (isinstance(scheduler, str) and "://" in scheduler):
+    if looks_like_address(scheduler):
+        parse_address(scheduler)    # scheme, host and port range, before Dask is imported
+    if scheduler == "dask-local" or looks_like_address(scheduler):
         _import_distributed(repr(scheduler))
         return
     if type(scheduler).__name__ == "Client":
@@ -144,14 +147,16 @@ class TaskPool:
     retries : int, default=2
         Dask only: how often a task whose worker died is resubmitted, and how often a task is
         sent again after the cluster lost every copy of ``shared``.
+    timeout : float, default=10.0
+        Dask address only: seconds to wait for the scheduler to answer.
     """
 
-    def __init__(self, fn, shared, scheduler, workers, retries=2):
+    def __init__(self, fn, shared, scheduler, workers, retries=2, timeout=CONNECT_SECONDS):
         check_scheduler(scheduler)
         if scheduler == "serial":
             fail("scheduler", '"serial" has no worker pool', "call the function directly")
         self.fn, self.shared, self.scheduler = fn, shared, scheduler
-        self.workers, self.retries = max(1, int(workers)), retries
+        self.workers, self.retries, self.timeout = max(1, int(workers)), retries, timeout
         self._pool = self._client = self._cluster = self._shared_f = None
         self._run = uuid.uuid4().hex[:8]
         self._distributed = None
@@ -171,7 +176,13 @@ class TaskPool:
                                                      processes=True, dashboard_address=None)
             self._client = distributed.Client(self._cluster)
         elif isinstance(self.scheduler, str):
-            self._client = distributed.Client(self.scheduler)
+            try:
+                self._client = distributed.Client(self.scheduler, timeout=self.timeout)
+            except OSError as exc:   # distributed raises OSError after its timeout
+                fail("scheduler", f"could not connect to {self.scheduler} within "
+                     f"{self.timeout:g} s ({str(exc).splitlines()[0] if str(exc) else 'no answer'})",
+                     "start the scheduler or check the address; if it is slow to answer, "
+                     "raise connect_seconds")
         else:
             self._client = self.scheduler
         try:

@@ -22,6 +22,21 @@ def atomic_write(path, write):
             tmp.unlink()
 
 
+def check_writable(field, folder):
+    """Create ``folder`` if needed and write (and remove) a small file in it, so that a folder
+    that cannot be written is refused in one line before any work, not after sampling."""
+    folder = Path(folder)
+    check_folder(field, folder)
+    probe = folder / f".tallchain-write-test-{os.getpid()}"
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        probe.write_bytes(b"")
+        probe.unlink()
+    except OSError as exc:
+        fail(field, f'cannot write to "{folder}" ({exc.strerror or exc})',
+             "give a folder you can create and write to (--out DIR or [output] dir)")
+
+
 def write_npz(path, **arrays):
     """`numpy.savez` of ``arrays`` to ``path``, atomically (pickle-free arrays only)."""
     def _write(tmp):

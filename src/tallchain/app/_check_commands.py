@@ -9,7 +9,7 @@ from ..outputs import write_json
 from ._config import named_fields
 from ._registry import (EXIT_CHECK_FAILED, EXIT_OK, add_config_arguments, command,
                         config_from_args, option_or, warnings_as_lines)
-from ._service import build_model
+from ._service import build_model, check_before_work
 
 
 def _scheduler_argument(parser):
@@ -22,13 +22,13 @@ def _scheduler_argument(parser):
 
 
 def _load(args):
-    """The config, its model and the (created) output folder of a checking command."""
+    """The config, its model and the (created, writable) output folder of a checking command;
+    the folder and a scheduler address are checked before the data are read."""
     config = config_from_args(args)
+    check_before_work(config, getattr(args, "scheduler", None), "processes")
     with warnings_as_lines():
         model, _ = build_model(config)
-    out = Path(config.output_dir)
-    out.mkdir(parents=True, exist_ok=True)
-    return config, model, out
+    return config, model, Path(config.output_dir)
 
 
 def _add_validate_arguments(parser):

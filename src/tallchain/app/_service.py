@@ -4,11 +4,14 @@ import dataclasses
 import time
 from pathlib import Path
 
+from .._addresses import CONNECT_SECONDS, looks_like_address, probe_address
 from ..data import load_data
+from ..executors import check_scheduler
 from ..exceptions import SamplingInterrupted
 from ..mcmc import sample
 from ..models import FAMILIES
-from ..outputs import save_result
+from ..outputs import check_writable, save_result
+from ._config import named_fields
 from ._registry import option_or
 
 
@@ -33,6 +36,28 @@ def build_model(config):
     return model, dataset
 
 
+def check_before_work(config, scheduler=None, default_scheduler="threads"):
+    """The checks that need no pass over the data but the world outside the config: the output
+    folder can be created and written, and a scheduler address (``--scheduler`` or
+    ``compute.scheduler``) is well formed and answers within ``compute.connect_seconds``.
+
+    Returns the scheduler the command uses.
+    """
+    label = ("output.dir (from the command line)" if "output.dir" in config.overridden
+             else "output.dir")
+    check_writable(label, config.output_dir)
+    compute = config.compute
+    if scheduler is not None:
+        with named_fields({"scheduler": "--scheduler", "workers": "--workers"}):
+            check_scheduler(scheduler, threads=default_scheduler == "threads")
+    chosen = option_or(scheduler, compute.get("scheduler", default_scheduler))
+    if looks_like_address(chosen):
+        where = "--scheduler" if scheduler is not None else "compute.scheduler"
+        probe_address(chosen, compute.get("connect_seconds", CONNECT_SECONDS), where,
+                      "raise compute.connect_seconds")
+    return chosen
+
+
 def run_config(config, *, progress=False, resume=False, scheduler=None, workers=None):
     """Build the model, sample, map back to the original scale and write the output files.
 
@@ -47,6 +72,7 @@ def run_config(config, *, progress=False, resume=False, scheduler=None, workers=
     dataset : tallchain.data.Dataset
     """
     t0 = time.perf_counter()
+    scheduler = check_before_work(config, scheduler)
     model, dataset = build_model(config)
     load_seconds = time.perf_counter() - t0
     checkpoint = Path(config.output_dir) / CHECKPOINT_NAME
@@ -54,8 +80,10 @@ def run_config(config, *, progress=False, resume=False, scheduler=None, workers=
         with config.named_fields():
             result = sample(model, config.sampler, progress=progress, checkpoint=checkpoint,
                             resume=resume, checkpoint_extra=_data_identity(config, dataset),
-                            scheduler=option_or(scheduler, config.compute.get("scheduler", "threads")),
-                            workers=option_or(workers, config.compute.get("workers")))
+                            scheduler=scheduler,
+                            workers=option_or(workers, config.compute.get("workers")),
+                            connect_seconds=config.compute.get("connect_seconds",
+                                                               CONNECT_SECONDS))
     except SamplingInterrupted as stop:
         partial = _to_original_scale(stop.result, dataset, load_seconds)
         save_result(partial, config.output_dir)

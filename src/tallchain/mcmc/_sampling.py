@@ -136,7 +136,7 @@ def _runner(model, settings, run, setup):
         return Runner(job, all_draws, all_stats, run.progress,
                       run.parallel and run.scheduler == "threads")
     return TaskRunner(job, all_draws, all_stats, run.progress, run.scheduler,
-                      worker_count(run.workers, settings.chains))
+                      worker_count(run.workers, settings.chains), run.connect_seconds)
 
 
 def _result(model, settings, setup, states, runner, schedule, timings):

@@ -22,7 +22,7 @@ import numpy as np
 
 from .._validation import (check_flag, check_seed, did_you_mean, fail, is_number, one_of,
                            positive_int, positive_number, show_value, spd_matrix_and_inverse)
-from ..executors import check_scheduler, check_workers
+from ..executors import CONNECT_SECONDS, check_scheduler, check_workers
 from ..posterior import MASS_MATRIX_KINDS
 from . import _transition as _loop
 from ._methods import BROKEN_METHODS, LOG_RATIO_VARIANCE, METHODS
@@ -376,6 +376,12 @@ class RunOptions:
         None, lambda name, v: _workers(v), "int, optional",
         "Worker processes for \"processes\" and \"dask-local\" (default: one per chain, at most "
         "the number of cores).")
+    connect_seconds: float = _setting(
+        CONNECT_SECONDS, lambda name, v: positive_number(
+            name, v, "give the seconds to wait for the scheduler, e.g. 10"),
+        f"float, default={CONNECT_SECONDS}",
+        "Seconds to wait for a Dask scheduler at an address to answer before the run stops "
+        "with an error (the address itself is checked when the options are built).")
 
     def __post_init__(self):
         for f in fields(self):
