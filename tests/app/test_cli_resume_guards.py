@@ -3,6 +3,7 @@ line (exit 2, no traceback) and loses nothing: the interrupted run's outputs and
 left byte for byte, and the unchanged config then resumes to the uninterrupted run's draws, bit
 for bit (the same code resumed from its saved state)."""
 
+import json
 import re
 import shutil
 
@@ -133,7 +134,7 @@ def test_the_unchanged_config_resumes_bit_for_bit(runs, tmp_path, capsys):
     code, err = _resume(capsys, _config(tmp_path), out)
     assert code == 0, err
     assert np.array_equal(_beta(out), _beta(runs[0] / "full"))
-    assert not (out / "checkpoint.npz").exists()
+    assert json.loads((out / "run.json").read_text())["status"] == "complete"
 
 
 def _truncated(path):

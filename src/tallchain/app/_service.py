@@ -1,6 +1,7 @@
 """The run service: build the model of a config, sample, map back to the original scale, write."""
 
 import dataclasses
+import shlex
 import time
 from pathlib import Path
 
@@ -12,6 +13,7 @@ from ..mcmc import sample
 from ..models import FAMILIES
 from ..outputs import check_writable, save_result
 from ._config import named_fields
+from ._folder import CHECKPOINT_NAME, prepare_folder
 from ._registry import option_or
 
 
@@ -43,9 +45,7 @@ def check_before_work(config, scheduler=None, default_scheduler="threads"):
 
     Returns the scheduler the command uses.
     """
-    label = ("output.dir (from the command line)" if "output.dir" in config.overridden
-             else "output.dir")
-    check_writable(label, config.output_dir)
+    check_writable(_output_label(config), config.output_dir)
     compute = config.compute
     if scheduler is not None:
         with named_fields({"scheduler": "--scheduler", "workers": "--workers"}):
@@ -58,11 +58,16 @@ def check_before_work(config, scheduler=None, default_scheduler="threads"):
     return chosen
 
 
-def run_config(config, *, progress=False, resume=False, scheduler=None, workers=None):
+def run_config(config, *, progress=False, resume=False, scheduler=None, workers=None,
+               extend=None, overwrite=False, command=None):
     """Build the model, sample, map back to the original scale and write the output files.
 
     ``scheduler`` and ``workers`` (where the chains run) override the config's ``[compute]``
-    section; without either, the chains run in threads of this process.
+    section; without either, the chains run in threads of this process. A folder holding a
+    run is refused unless ``resume``, ``extend`` (that many more draws per chain, from the
+    checkpoint) or ``overwrite`` says what to do with it (`_folder.prepare_folder`).
+    ``command`` (the run's command-line words without --resume, --extend, --overwrite)
+    makes the hint printed on interruption.
 
     Returns
     -------
@@ -73,6 +78,10 @@ def run_config(config, *, progress=False, resume=False, scheduler=None, workers=
     """
     t0 = time.perf_counter()
     scheduler = check_before_work(config, scheduler)
+    config = prepare_folder(config, _output_label(config), resume=resume, extend=extend,
+                            overwrite=overwrite)
+    resume = resume or extend is not None
+    hint = _resume_hint(config, command, extend)
     model, dataset = build_model(config)
     load_seconds = time.perf_counter() - t0
     checkpoint = Path(config.output_dir) / CHECKPOINT_NAME
@@ -88,9 +97,9 @@ def run_config(config, *, progress=False, resume=False, scheduler=None, workers=
         partial = _to_original_scale(stop.result, dataset, load_seconds)
         save_result(partial, config.output_dir)
         raise KeyboardInterrupt(
-            f"{partial.completed_draws} draws per chain kept in "
-            f"{Path(config.output_dir) / 'posterior.nc'}; continue with: tallchain run "
-            f"{config.path or 'CONFIG'} --resume (with the same options)") from None
+            f"{partial.completed_draws} of {config.sampler.draws} draws per chain kept in "
+            f"{Path(config.output_dir) / 'posterior.nc'} (status interrupted); continue with: "
+            f"{hint}") from None
     result = _to_original_scale(result, dataset, load_seconds)
     scaling = dataset.standardization
     extra = {"config": None if config.path is None else str(config.path.absolute()),
@@ -106,12 +115,25 @@ def run_config(config, *, progress=False, resume=False, scheduler=None, workers=
         # The checkpoint holds every draw (the driver writes it at the end): keep it.
         raise KeyboardInterrupt(
             f"while writing the outputs; every draw is kept in {checkpoint}; write them with: "
-            f"tallchain run {config.path or 'CONFIG'} --resume (with the same options)") from None
-    checkpoint.unlink(missing_ok=True)   # only once the outputs are safely written
+            f"{hint}") from None
+    # The checkpoint stays: --extend continues the finished run from it.
     return result, summary, dataset
 
 
-CHECKPOINT_NAME = "checkpoint.npz"
+def _output_label(config):
+    return ("output.dir (from the command line)" if "output.dir" in config.overridden
+            else "output.dir")
+
+
+def _resume_hint(config, command, extend):
+    """The command that continues this run: its own words and --resume; after --extend, the
+    draws it was extended to (a resume may ask for more draws, never fewer)."""
+    words = list(command) if command is not None else [str(config.path or "CONFIG")]
+    if extend is not None:
+        words = [w for i, w in enumerate(words)
+                 if w != "--draws" and (i == 0 or words[i - 1] != "--draws")]
+        words += ["--draws", str(config.sampler.draws)]
+    return shlex.join(["tallchain", "run", *words, "--resume"])
 
 
 def _data_identity(config, dataset):

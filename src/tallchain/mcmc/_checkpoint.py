@@ -19,18 +19,23 @@ class Checkpoint:
 
     It stores each chain's state arrays and generator state, the draws and statistics so far,
     the schedule's position and batch size, and the identity a resume must match: the
-    settings and the model's fingerprint (prior, family options, data digests, ...).
+    settings but ``draws`` and the model's fingerprint (prior, family options, data digests,
+    ...). A resume may ask for more draws than the run it continues (``draws``): the sampling
+    segment then runs on, and the draws equal those of a run started with the larger count
+    (the kernel's state does not depend on the count; chunking changes nothing).
     """
 
-    def __init__(self, path, identity):
+    def __init__(self, path, identity, draws):
         self.path = Path(path)
         self.identity = identity
+        self.draws = draws
 
     def write(self, states, schedule, runner):
         done = max(st.iteration for st in states)
         meta = {
             "version": CHECKPOINT_VERSION,
             "identity": self.identity,
+            "draws": self.draws,
             "segment": schedule.segment,
             "n_batch": schedule.n_batch,
             "chains": [{"iteration": st.iteration, "carried_ready": st.carried_ready,
@@ -60,6 +65,13 @@ class Checkpoint:
             fail("resume", f"the checkpoint was made with other settings or data (changed: "
                  f"{', '.join(changed)})",
                  "resume with the settings, model and data of the interrupted run, or start anew")
+        try:
+            kept = max(int(c["iteration"]) for c in meta["chains"]) - self.identity["warmup"]
+        except (TypeError, KeyError, ValueError):
+            self._damaged("the chains' positions are unreadable")
+        if kept > self.draws:
+            fail("draws", f"is {self.draws}, fewer than the {kept} draws per chain the "
+                 "checkpoint holds", "give at least as many draws to resume this run")
         return meta
 
     def restore(self, states, schedule, runner):
@@ -81,7 +93,8 @@ class Checkpoint:
             st.iteration = meta["chains"][c]["iteration"]
             st.carried_ready = meta["chains"][c]["carried_ready"]
             st.rng.bit_generator.state = meta["chains"][c]["rng"]
-        schedule.segment = meta["segment"]
+        # A finished run resumed with more draws re-enters its sampling segment, the last.
+        schedule.segment = min(meta["segment"], len(schedule.segments) - 1)
         schedule.n_batch = meta["n_batch"]
 
     def _read(self, with_arrays):

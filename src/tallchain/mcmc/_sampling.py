@@ -70,7 +70,8 @@ def sample(model, settings=None, **options):
     run.check_against(model)
     ckpt = None
     if run.checkpoint is not None:
-        ckpt = Checkpoint(run.checkpoint, checkpoint_identity(model, settings, run))
+        ckpt = Checkpoint(run.checkpoint, checkpoint_identity(model, settings, run),
+                          settings.draws)
         if run.resume:
             ckpt.check()   # before the mode: a changed problem is refused at once
     rngs = chain_generators(settings.seed, settings.chains + 1)
@@ -119,10 +120,11 @@ sample.__signature__ = inspect.Signature(
 
 
 def checkpoint_identity(model, settings, run):
-    """What a checkpoint must match to be resumed: every setting, the model's shape and
-    fingerprint (`model.fingerprint`: one pass over the data) and the caller's
-    ``run.checkpoint_extra``."""
-    return {**settings.record(), "n_rows": model.n_rows, "n_coef": model.n_coef,
+    """What a checkpoint must match to be resumed: every setting but ``draws`` (a resume may
+    add draws), the model's shape and fingerprint (`model.fingerprint`: one pass over the
+    data) and the caller's ``run.checkpoint_extra``."""
+    record = {k: v for k, v in settings.record().items() if k != "draws"}
+    return {**record, "n_rows": model.n_rows, "n_coef": model.n_coef,
             **model.fingerprint(), **run.checkpoint_extra}
 
 
