@@ -61,7 +61,7 @@ class _GLM:
         y = float_vector("y", y)
         offset = np.zeros(n_rows) if offset is None else float_vector("offset", offset)
         if check:
-            check_finite_matrix("X", X)
+            check_finite_matrix("X", X, names[int(add_intercept):])
             check_finite_matrix("y", y)
             check_finite_matrix("offset", offset)
             self._check_response(y)
