@@ -27,6 +27,7 @@ Dask is optional: ``pip install 'tallchain[distributed]'``.
 import multiprocessing
 import os
 import sys
+import threading
 import uuid
 import warnings
 from concurrent.futures import CancelledError, ProcessPoolExecutor, as_completed
@@ -95,6 +96,34 @@ def _import_distributed(what):
         fail("scheduler", f"{what} needs Dask's distributed scheduler, which is not installed",
              "pip install 'tallchain[distributed]'")
     return distributed
+
+
+def _connect(distributed, address, timeout):
+    """A Client of the scheduler at ``address``, or one line when none answers in ``timeout``
+    seconds.
+
+    The Client is made in a helper thread and waited for: distributed's own ``timeout``
+    bounds the TCP connection, but its handshake read has no bound (comm/core.py,
+    ``connect``: ``await comm.read()``), so a listener that is no scheduler would hang the run
+    for ever. Such a thread is left behind (a daemon) when it does not finish.
+    """
+    made = {}
+
+    def make():
+        try:
+            made["client"] = distributed.Client(address, timeout=timeout)
+        except Exception as exc:   # reported below, in the caller's thread
+            made["error"] = exc
+
+    thread = threading.Thread(target=make, name="tallchain-connect", daemon=True)
+    thread.start()
+    thread.join(timeout)
+    if "client" in made:
+        return made["client"]
+    detail = str(made.get("error") or "no answer").splitlines()[0] or "no answer"
+    fail("scheduler", f"could not connect to {address} within {timeout:g} s ({detail[:120]})",
+         "start the scheduler or check the address; if it is slow to answer, raise "
+         "connect_seconds")
 
 
 def check_scheduler(scheduler, *, threads=False):
@@ -176,13 +205,7 @@ class TaskPool:
                                                      processes=True, dashboard_address=None)
             self._client = distributed.Client(self._cluster)
         elif isinstance(self.scheduler, str):
-            try:
-                self._client = distributed.Client(self.scheduler, timeout=self.timeout)
-            except OSError as exc:   # distributed raises OSError after its timeout
-                fail("scheduler", f"could not connect to {self.scheduler} within "
-                     f"{self.timeout:g} s ({str(exc).splitlines()[0] if str(exc) else 'no answer'})",
-                     "start the scheduler or check the address; if it is slow to answer, "
-                     "raise connect_seconds")
+            self._client = _connect(distributed, self.scheduler, self.timeout)
         else:
             self._client = self.scheduler
         try:

@@ -173,3 +173,51 @@ def test_the_largest_seed_is_stored_by_every_output(tmp_path, rng, capsys):
     tree = az.from_netcdf(tmp_path / "o" / "posterior.nc")
     assert int(tree["posterior"].attrs["setting_seed"]) == 2**64 - 1
     assert '"seed": 18446744073709551615' in (tmp_path / "o" / "run.json").read_text()
+
+
+def test_a_listener_that_is_no_scheduler_ends_in_one_line_after_the_stated_timeout(tmp_path, rng,
+                                                                                    capsys):
+    # The probe's TCP connection succeeds, but nothing speaks Dask's protocol there: the
+    # Client gives up after compute.connect_seconds and the run ends in one line, exit 2.
+    pytest.importorskip("distributed")
+    X = rng.standard_normal((200, 2))
+    np.save(tmp_path / "X.npy", X)
+    np.save(tmp_path / "y.npy", X @ [1.0, -1.0] + rng.standard_normal(200))
+    path = tmp_path / "run.toml"
+    path.write_text(CONFIG.format(sampler="seed = 1", compute="[compute]\nconnect_seconds = 1"))
+    with socket.socket() as server:
+        server.bind(("127.0.0.1", 0))
+        server.listen()
+        address = f"tcp://127.0.0.1:{server.getsockname()[1]}"
+        t = time.monotonic()
+        _refused(capsys, ["run", path, "--out", tmp_path / "o", "--scheduler", address,
+                          "--quiet"],
+                 rf"^tallchain: error: scheduler: could not connect to {re.escape(address)} "
+                 r"within 1 s \(.*\); start the scheduler or check the address; if it is slow "
+                 r"to answer, raise connect_seconds$")
+        assert time.monotonic() - t < 30
+
+
+def test_power_a_scheduler_at_an_address_runs_the_chains_to_the_threads_draws(tmp_path, rng,
+                                                                                capsys):
+    # The other side of the refusals above: a real scheduler at a tcp:// address passes the
+    # checks and the probe, the Client connects within the timeout, and the chains (one task
+    # per chain and round) give the draws of the run in threads, bit for bit (the same kernel
+    # from the same states).
+    distributed = pytest.importorskip("distributed")
+    X = rng.standard_normal((200, 2))
+    np.save(tmp_path / "X.npy", X)
+    np.save(tmp_path / "y.npy", X @ [1.0, -1.0] + rng.standard_normal(200))
+    path = tmp_path / "run.toml"
+    path.write_text(CONFIG.format(sampler="seed = 1", compute="[compute]\nconnect_seconds = 20"))
+    assert cli.main(["run", str(path), "--out", str(tmp_path / "threads"), "--quiet"]) == 0
+    with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=False,
+                                  protocol="tcp", dashboard_address=None) as cluster:
+        address = cluster.scheduler_address
+        assert address.startswith("tcp://")
+        code = cli.main(["run", str(path), "--out", str(tmp_path / "dask"), "--scheduler",
+                         address, "--quiet"])
+    assert code == 0, capsys.readouterr().err
+    a = az.from_netcdf(tmp_path / "threads" / "posterior.nc")["posterior"]["beta"].values
+    b = az.from_netcdf(tmp_path / "dask" / "posterior.nc")["posterior"]["beta"].values
+    assert np.array_equal(a, b)
