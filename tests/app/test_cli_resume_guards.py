@@ -174,9 +174,18 @@ def test_a_damaged_checkpoint_is_one_line_and_nothing_is_touched(runs, tmp_path,
     before["checkpoint.npz"] = ckpt.read_bytes()
     code, err = _resume(capsys, _config(tmp_path), out)
     _assert_refused(code, err, rf"^tallchain: error: resume: the checkpoint {re.escape(str(ckpt))}"
-                               rf" is {pattern}.*; start afresh: delete .*checkpoint\.npz and "
-                               r"run without --resume")
+                               rf" is {pattern}.*; start afresh without resuming \(on the "
+                               r"command line: --overwrite instead of --resume\)")
     _assert_untouched(out, before)
+
+
+def test_a_damaged_checkpoint_gives_way_to_overwrite_as_the_message_says(runs, tmp_path,
+                                                                          capsys):
+    out, _ = _copy_cut(runs, tmp_path)
+    _truncated(out / "checkpoint.npz")
+    code = cli.main(["run", str(_config(tmp_path)), "--out", str(out), "--overwrite", "--quiet"])
+    assert code == 0, capsys.readouterr().err
+    assert np.array_equal(_beta(out), _beta(runs[0] / "full"))
 
 
 def test_power_an_intact_copy_of_the_checkpoint_is_not_called_damaged(runs, tmp_path, capsys):

@@ -124,5 +124,5 @@ class Checkpoint:
 
     def _damaged(self, what):
         fail("resume", f"the checkpoint {self.path} is damaged ({what})",
-             f"start afresh: delete {self.path} and run without --resume (the outputs "
-             "already written are kept until then)")
+             "start afresh without resuming (on the command line: --overwrite instead of "
+             "--resume); the outputs already written are kept until then")
