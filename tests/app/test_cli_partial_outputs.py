@@ -184,3 +184,21 @@ def test_an_interrupted_extension_is_continued_by_its_hint(config, tmp_path, cap
 def test_folder_options_are_checked_before_any_work(config, tmp_path, capsys, argv, pattern):
     code, err = _main(capsys, "run", config, "--out", tmp_path / "empty", *argv)
     _one_error(code, err, "^tallchain: error: " + pattern)
+
+
+def test_a_resume_with_fewer_draws_than_kept_is_refused_and_keeps_the_run(config, tmp_path,
+                                                                          capsys):
+    out = tmp_path / "o"
+    assert _main(capsys, "run", config, "--out", out, "--quiet")[0] == 0
+    before = {p.name: p.read_bytes() for p in out.iterdir()}
+    finished = _beta(out)
+    code, err = _main(capsys, "run", config, "--out", out, "--resume", "--draws", "100",
+                      "--quiet")
+    _one_error(code, err, r"^tallchain: error: sampler\.draws \(from the command line\): is 100, "
+                          r"fewer than the 300 draws per chain the checkpoint holds; give at "
+                          r"least as many draws to resume this run$")
+    assert {p.name: p.read_bytes() for p in out.iterdir()} == before
+    # Power: as many draws as kept resumes the finished run to the same draws.
+    assert _main(capsys, "run", config, "--out", out, "--resume", "--draws", "300",
+                 "--quiet")[0] == 0
+    assert np.array_equal(_beta(out), finished)
