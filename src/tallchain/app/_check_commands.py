@@ -25,7 +25,9 @@ def _load(args):
     """The config, its model and the (created, writable) output folder of a checking command;
     the folder and a scheduler address are checked before the data are read."""
     config = config_from_args(args)
-    check_before_work(config, getattr(args, "scheduler", None), "processes")
+    uses_workers = hasattr(args, "scheduler")   # validate runs its chains in this process
+    check_before_work(config, getattr(args, "scheduler", None),
+                      "processes" if uses_workers else None)
     with warnings_as_lines():
         model, _ = build_model(config)
     return config, model, Path(config.output_dir)

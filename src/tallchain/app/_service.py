@@ -43,9 +43,12 @@ def check_before_work(config, scheduler=None, default_scheduler="threads"):
     folder can be created and written, and a scheduler address (``--scheduler`` or
     ``compute.scheduler``) is well formed and answers within ``compute.connect_seconds``.
 
+    ``default_scheduler`` None: the command uses no scheduler (validate), nothing to probe.
     Returns the scheduler the command uses.
     """
     check_writable(_output_label(config), config.output_dir)
+    if default_scheduler is None:
+        return None
     compute = config.compute
     if scheduler is not None:
         with named_fields({"scheduler": "--scheduler", "workers": "--workers"}):
