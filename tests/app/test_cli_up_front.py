@@ -221,3 +221,13 @@ def test_power_a_scheduler_at_an_address_runs_the_chains_to_the_threads_draws(tm
     a = az.from_netcdf(tmp_path / "threads" / "posterior.nc")["posterior"]["beta"].values
     b = az.from_netcdf(tmp_path / "dask" / "posterior.nc")["posterior"]["beta"].values
     assert np.array_equal(a, b)
+
+
+def test_validate_probes_no_address_it_would_not_use(config, capsys):
+    # validate runs its chains in this process: a silent compute.scheduler does not stop it,
+    # while sweep, which would use it, is refused before the data (the power of the check).
+    path = config(compute=f'[compute]\nscheduler = "tcp://127.0.0.1:{_free_port()}"\n'
+                          "connect_seconds = 0.5")
+    _reaches_the_data(["validate", path, "--quiet"])
+    _refused(capsys, ["sweep", path, "--quiet"],
+             r"^tallchain: error: compute\.scheduler: nothing answered at tcp://127\.0\.0\.1")
