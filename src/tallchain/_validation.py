@@ -18,17 +18,54 @@ def fail(field, problem, fix):
     raise InputError(f"{field}: {problem}; {fix}")
 
 
-def check_finite_matrix(name, a):
-    """Raise InputError naming the first row and column holding NaN or inf."""
+def check_finite_matrix(name, a, columns=None):
+    """Raise InputError naming the first row and column holding NaN or inf, or a value too
+    large for the products of the full-data passes (`overflow_limit`); ``columns`` names the
+    columns of a matrix in the message."""
     if a.dtype.kind not in "fiu":
         fail(name, f"has dtype {a.dtype}, not numeric", "give a float or integer array")
     if a.dtype.kind == "f":
+        limit = overflow_limit(a.shape[0])
+        # float32 (or narrower) values cannot reach the limit below 10^230 rows
+        wide = float(np.finfo(a.dtype).max) > limit
         for start, block in row_blocks(a, dtype=None):
             bad = ~np.isfinite(block)
             if bad.any():
                 r, *c = np.argwhere(bad)[0]
                 where = f"row {start + r}" + (f", column {c[0]}" if c else "")
                 fail(name, f"contains {block[(r, *c)]} in {where}", "remove or impute that value")
+            big = np.abs(block).max(axis=0) > limit if wide and block.size else False
+            if np.any(big):
+                too_large(name, a, int(np.argmax(big)) if a.ndim == 2 else None, columns)
+
+
+def overflow_limit(n_rows):
+    """The largest |value| whose products the full-data passes can sum over ``n_rows`` rows.
+
+    The set-up sums f''(eta_i) x_ij x_ik over the rows (the Hessian at the prior mean and at
+    the mode; the linear model sums squared residuals likewise). With |x| below
+    sqrt(max float64 / N), no product x_ij x_ik and no sum of N of them overflows. The
+    weight f'' (at most 1/4 for logistic, 1/noise_sd^2 for linear, the rate for Poisson)
+    can still push an extreme sum over; mode finding reports that case.
+    """
+    return math.sqrt(np.finfo(np.float64).max / max(int(n_rows), 1))
+
+
+def too_large(name, a, column=None, columns=None):
+    """Raise InputError naming the row (and column) of the largest |value| of ``a`` (or of
+    its ``column``), which exceeds `overflow_limit`."""
+    best, where = -1.0, 0
+    for start, block in row_blocks(a if column is None else a[:, column], dtype=None):
+        i = int(np.argmax(np.abs(block)))
+        if abs(float(block[i])) > best:
+            best, where = abs(float(block[i])), start + i
+    value = a[where] if column is None else a[where, column]
+    label = "" if column is None else \
+        f"column {columns[column] if columns is not None else column} "
+    fail(name, f"{label}holds {float(value):.3g} in row {where}, too large: the products the "
+         f"set-up sums over {a.shape[0]} rows would overflow (|value| must stay below "
+         f"{overflow_limit(a.shape[0]):.3g})",
+         "rescale that column (e.g. divide it by a power of ten) or correct the value")
 
 
 def is_number(value):

@@ -27,12 +27,14 @@ Dask is optional: ``pip install 'tallchain[distributed]'``.
 import multiprocessing
 import os
 import sys
+import threading
 import uuid
 import warnings
 from concurrent.futures import CancelledError, ProcessPoolExecutor, as_completed
 from concurrent.futures.process import BrokenProcessPool
 
 
+from ._addresses import CONNECT_SECONDS, looks_like_address, parse_address
 from ._validation import fail, is_integer
 from .exceptions import WorkerDiedError
 
@@ -96,6 +98,34 @@ def _import_distributed(what):
     return distributed
 
 
+def _connect(distributed, address, timeout):
+    """A Client of the scheduler at ``address``, or one line when none answers in ``timeout``
+    seconds.
+
+    The Client is made in a helper thread and waited for: distributed's own ``timeout``
+    bounds the TCP connection, but its handshake read has no bound (comm/core.py,
+    ``connect``: ``await comm.read()``), so a listener that is no scheduler would hang the run
+    for ever. Such a thread is left behind (a daemon) when it does not finish.
+    """
+    made = {}
+
+    def make():
+        try:
+            made["client"] = distributed.Client(address, timeout=timeout)
+        except Exception as exc:   # reported below, in the caller's thread
+            made["error"] = exc
+
+    thread = threading.Thread(target=make, name="tallchain-connect", daemon=True)
+    thread.start()
+    thread.join(timeout)
+    if "client" in made:
+        return made["client"]
+    detail = str(made.get("error") or "no answer").splitlines()[0] or "no answer"
+    fail("scheduler", f"could not connect to {address} within {timeout:g} s ({detail[:120]})",
+         "start the scheduler or check the address; if it is slow to answer, raise "
+         "connect_seconds")
+
+
 def check_scheduler(scheduler, *, threads=False):
     """Validate a scheduler setting early (before any work), with the one-line message shape.
 
@@ -103,7 +133,9 @@ def check_scheduler(scheduler, *, threads=False):
     """
     if scheduler in ("processes", "serial") or (threads and scheduler == "threads"):
         return
-    if scheduler == "dask-local" or (isinstance(scheduler, str) and "://" in scheduler):
+    if looks_like_address(scheduler):
+        parse_address(scheduler)    # scheme, host and port range, before Dask is imported
+    if scheduler == "dask-local" or looks_like_address(scheduler):
         _import_distributed(repr(scheduler))
         return
     if type(scheduler).__name__ == "Client":
@@ -144,14 +176,16 @@ class TaskPool:
     retries : int, default=2
         Dask only: how often a task whose worker died is resubmitted, and how often a task is
         sent again after the cluster lost every copy of ``shared``.
+    timeout : float, default=10.0
+        Dask address only: seconds to wait for the scheduler to answer.
     """
 
-    def __init__(self, fn, shared, scheduler, workers, retries=2):
+    def __init__(self, fn, shared, scheduler, workers, retries=2, timeout=CONNECT_SECONDS):
         check_scheduler(scheduler)
         if scheduler == "serial":
             fail("scheduler", '"serial" has no worker pool', "call the function directly")
         self.fn, self.shared, self.scheduler = fn, shared, scheduler
-        self.workers, self.retries = max(1, int(workers)), retries
+        self.workers, self.retries, self.timeout = max(1, int(workers)), retries, timeout
         self._pool = self._client = self._cluster = self._shared_f = None
         self._run = uuid.uuid4().hex[:8]
         self._distributed = None
@@ -171,7 +205,7 @@ class TaskPool:
                                                      processes=True, dashboard_address=None)
             self._client = distributed.Client(self._cluster)
         elif isinstance(self.scheduler, str):
-            self._client = distributed.Client(self.scheduler)
+            self._client = _connect(distributed, self.scheduler, self.timeout)
         else:
             self._client = self.scheduler
         try:

@@ -22,6 +22,21 @@ def atomic_write(path, write):
             tmp.unlink()
 
 
+def check_writable(field, folder):
+    """Create ``folder`` if needed and write (and remove) a small file in it, so that a folder
+    that cannot be written is refused in one line before any work, not after sampling."""
+    folder = Path(folder)
+    check_folder(field, folder)
+    probe = folder / f".tallchain-write-test-{os.getpid()}"
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        probe.write_bytes(b"")
+        probe.unlink()
+    except OSError as exc:
+        fail(field, f'cannot write to "{folder}" ({exc.strerror or exc})',
+             "give a folder you can create and write to (--out DIR or [output] dir)")
+
+
 def write_npz(path, **arrays):
     """`numpy.savez` of ``arrays`` to ``path``, atomically (pickle-free arrays only)."""
     def _write(tmp):
@@ -58,8 +73,15 @@ def _jsonable(obj):
 
 
 def run_record(result, summary, wall_seconds=None):
-    """The run.json content (keys of the interface contract plus the settings after tuning)."""
+    """The run.json content (keys of the interface contract plus the settings after tuning).
+
+    ``summary`` is None for a run interrupted before its first draw: the figures that need
+    draws are then null, and ``status`` says "interrupted" with ``completed_draws`` 0.
+    """
+    run = summary.run if summary is not None else {}
     return {
+        "status": result.status,
+        "completed_draws": result.completed_draws,
         "settings": result.settings.record(),
         "tuned": result.tuned,
         "coef_names": result.coef_names,
@@ -72,17 +94,13 @@ def run_record(result, summary, wall_seconds=None):
         "data_evaluations": result.data_evaluations,
         "data_evaluations_per_draw": result.data_evaluations
         / max(1, result.n_chains * (result.settings.warmup + result.completed_draws)),
-        "acceptance_rate": summary.run["acceptance_rate"],
-        "log_ratio_sd_mean": summary.run["log_ratio_sd_mean"],
-        "ess_bulk_min": summary.run["ess_bulk_min"],
-        "ess_per_second": summary.run["ess_per_second"],
-        "ess_per_data_pass": summary.run["ess_per_data_pass"],
-        "data_passes": summary.run["data_passes"],
+        **{key: run.get(key) for key in ("acceptance_rate", "log_ratio_sd_mean", "ess_bulk_min",
+                                         "ess_per_second", "ess_per_data_pass")},
+        "data_passes": run.get("data_passes", result.data_passes),
         "nonfinite_count": result.nonfinite_count,
         "penalty_beyond_bound_count": result.penalty_beyond_bound_count,
         "warmup_counts": result.warmup_counts,
-        "completed_draws": result.completed_draws,
-        "warnings": list(result.warnings) + list(summary.warnings),
+        "warnings": list(result.warnings) + list(summary.warnings if summary else ()),
     }
 
 
@@ -90,20 +108,25 @@ def save_result(result, directory, *, summary=None, wall_seconds=None, extra=Non
                 interval=0.9):
     """Write posterior.nc, summary.csv and run.json of ``result`` into ``directory`` (created
     if needed); ``summary`` is ``result.summary(warn=False, interval=interval)`` unless given.
+    A run interrupted before its first draw gets no summary.csv (there is nothing to
+    summarise); run.json and posterior.nc say ``status`` "interrupted", 0 draws kept.
 
-    Returns the summary, so a caller can report it without recomputing.
+    Returns the summary (None without draws), so a caller can report it without recomputing.
     """
     if not isinstance(directory, (str, os.PathLike)):
         fail("directory", f"must be a folder path, got {type(directory).__name__}",
              'give a path such as "runs/example"')
     out = Path(directory)
     check_folder("directory", out)
-    if summary is None:
+    if summary is None and result.completed_draws:
         summary = result.summary(warn=False, interval=interval)
     out.mkdir(parents=True, exist_ok=True)
     tree = result.to_arviz()
     atomic_write(out / "posterior.nc", lambda tmp: tree.to_netcdf(tmp, engine="h5netcdf"))
-    atomic_write(out / "summary.csv", summary.to_csv)
+    if summary is not None:
+        atomic_write(out / "summary.csv", summary.to_csv)
+    else:   # interrupted in warmup: no table of NaN, and none left from an earlier run
+        (out / "summary.csv").unlink(missing_ok=True)
     record = run_record(result, summary, wall_seconds)
     if extra:
         record.update(extra)

@@ -1,6 +1,7 @@
 """A real signal to a real `tallchain run`: completed draws are kept, --resume finishes the run
 bitwise identical to an uninterrupted one."""
 
+import json
 import os
 import signal
 import subprocess
@@ -72,7 +73,8 @@ def test_signal_keeps_draws_and_resume_is_bitwise_identical(tmp_path, rng, sig):
     a = az.from_netcdf(tmp_path / "full" / "posterior.nc")["posterior"]["beta"].values
     b = az.from_netcdf(tmp_path / "cut" / "posterior.nc")["posterior"]["beta"].values
     assert np.array_equal(a, b)  # the same code resumed from its saved state: bitwise
-    assert not ckpt.exists()
+    assert json.loads((tmp_path / "cut" / "run.json").read_text())["status"] == "complete"
+    assert ckpt.exists()   # kept for --extend
 
 
 def test_an_interrupt_while_writing_the_outputs_keeps_every_draw_for_resume(tmp_path, rng, capsys,
@@ -109,4 +111,4 @@ def test_an_interrupt_while_writing_the_outputs_keeps_every_draw_for_resume(tmp_
     a = az.from_netcdf(tmp_path / "full" / "posterior.nc")["posterior"]["beta"].values
     b = az.from_netcdf(tmp_path / "cut" / "posterior.nc")["posterior"]["beta"].values
     assert np.array_equal(a, b)  # the same code resumed from its saved state: bitwise
-    assert not (tmp_path / "cut" / "checkpoint.npz").exists()
+    assert json.loads((tmp_path / "cut" / "run.json").read_text())["status"] == "complete"

@@ -55,7 +55,7 @@ def test_resolves_paths_defaults_and_given_sampler_keys(folder):
 
 
 def test_sampler_keys_are_the_fields_of_the_settings():
-    where = {"scheduler", "workers"}   # the [compute] section: run options of sample()
+    where = {"scheduler", "workers", "connect_seconds"}   # [compute]: run options of sample()
     assert tuple(config.SCHEMA["sampler"]) == tc.SamplerSettings.names()
     assert set(config.SCHEMA["compute"]) == where and where <= set(tc.RunOptions.names())
 

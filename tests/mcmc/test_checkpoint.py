@@ -7,7 +7,7 @@ import pytest
 
 import tallchain as tc
 from tallchain.exceptions import SamplingInterrupted
-from tallchain.mcmc import _driver, _runners
+from interrupts import interrupt_on_rounds
 
 
 @pytest.fixture(scope="module")
@@ -29,24 +29,6 @@ def assert_interrupted(exc, checkpoint):
     assert Path(checkpoint).exists()
 
 
-def _interrupt_on_rounds(monkeypatch, rounds):
-    """Make the k-th round (k in rounds) behave as if Ctrl-C arrived while chains were running:
-    the chains stop after their current chunk and the driver sees the interrupt."""
-    original = _runners.Runner.run
-    count = {"n": 0}
-
-    def run(self, states, until, n_batch, pool):
-        count["n"] += 1
-        if count["n"] in rounds:
-            # Let the chains run part of the round, stopping at a chunk boundary mid-round.
-            original(self, states, min(until, states[0].iteration + 300), n_batch, pool)
-            raise _driver.Interrupted()
-        return original(self, states, until, n_batch, pool)
-
-    monkeypatch.setattr(_runners.Runner, "run", run)
-    return count
-
-
 @pytest.mark.parametrize("method,extra", [
     ("penalty-mala", {"batch_size": "auto"}),   # resumes inside the batch-size pilot phases
     ("penalty-mala", {"batch_size": 64, "gradient_batch": "carried"}),
@@ -56,7 +38,7 @@ def test_two_interrupts_and_two_resumes_equal_the_uninterrupted_run(model, tmp_p
                                                                    method, extra):
     full = tc.sample(model, method=method, **SETTINGS, **extra)
     ckpt = tmp_path / "run.ckpt.npz"
-    count = _interrupt_on_rounds(monkeypatch, {2, 4})
+    count = interrupt_on_rounds(monkeypatch, {2, 4})
     with pytest.raises(SamplingInterrupted, match=INTERRUPTED) as first:
         tc.sample(model, method=method, checkpoint=ckpt, **SETTINGS, **extra)
     assert_interrupted(first.value, ckpt)
@@ -78,7 +60,7 @@ def test_two_interrupts_and_two_resumes_equal_the_uninterrupted_run(model, tmp_p
 
 
 def test_interrupted_result_keeps_completed_draws(model, tmp_path, monkeypatch):
-    _interrupt_on_rounds(monkeypatch, {3})
+    interrupt_on_rounds(monkeypatch, {3})
     with pytest.raises(SamplingInterrupted, match=INTERRUPTED) as info:
         tc.sample(model, method="mala", checkpoint=tmp_path / "c.npz", **SETTINGS)
     assert_interrupted(info.value, tmp_path / "c.npz")
@@ -88,12 +70,12 @@ def test_interrupted_result_keeps_completed_draws(model, tmp_path, monkeypatch):
 
 
 def test_resume_with_other_settings_is_refused(model, tmp_path, monkeypatch):
-    _interrupt_on_rounds(monkeypatch, {2})
+    interrupt_on_rounds(monkeypatch, {2})
     ckpt = tmp_path / "c.npz"
     with pytest.raises(SamplingInterrupted, match=INTERRUPTED):
         tc.sample(model, method="mala", checkpoint=ckpt, **SETTINGS)
     with pytest.raises(tc.InputError, match=r"resume: the checkpoint was made with other "
-                                            r"settings \(seed\)"):
+                                            r"settings or data \(changed: seed\)"):
         tc.sample(model, method="mala", checkpoint=ckpt, resume=True,
                   **dict(SETTINGS, seed=32))
     with pytest.raises(tc.InputError, match="resume: no checkpoint at"):
@@ -105,7 +87,7 @@ def test_a_checkpoint_of_an_older_version_is_refused(model, tmp_path, monkeypatc
     # per-iteration statistics, so such a file cannot be resumed.
     import json
 
-    _interrupt_on_rounds(monkeypatch, {2})
+    interrupt_on_rounds(monkeypatch, {2})
     ckpt = tmp_path / "c.npz"
     with pytest.raises(SamplingInterrupted):
         tc.sample(model, method="mala", checkpoint=ckpt, **SETTINGS)
@@ -116,5 +98,5 @@ def test_a_checkpoint_of_an_older_version_is_refused(model, tmp_path, monkeypatc
     arrays["meta"] = np.array(json.dumps(meta))
     np.savez(ckpt, **arrays)
     with pytest.raises(tc.InputError, match=r"resume: the checkpoint was made with other "
-                                            r"settings \(checkpoint version\)"):
+                                            r"settings or data \(changed: checkpoint version\)"):
         tc.sample(model, method="mala", checkpoint=ckpt, resume=True, **SETTINGS)

@@ -9,10 +9,10 @@ from ..outputs import write_json
 from ._config import named_fields
 from ._registry import (EXIT_CHECK_FAILED, EXIT_INCONCLUSIVE, EXIT_OK, add_config_arguments,
                         command, config_from_args, option_or, warnings_as_lines)
+from ._service import build_model, check_before_work
 
 # The exit code of each verdict of a check.
 _EXIT_FOR = {"passed": EXIT_OK, "failed": EXIT_CHECK_FAILED, "inconclusive": EXIT_INCONCLUSIVE}
-from ._service import build_model
 
 
 def _scheduler_argument(parser):
@@ -25,13 +25,15 @@ def _scheduler_argument(parser):
 
 
 def _load(args):
-    """The config, its model and the (created) output folder of a checking command."""
+    """The config, its model and the (created, writable) output folder of a checking command;
+    the folder and a scheduler address are checked before the data are read."""
     config = config_from_args(args)
+    uses_workers = hasattr(args, "scheduler")   # validate runs its chains in this process
+    check_before_work(config, getattr(args, "scheduler", None),
+                      "processes" if uses_workers else None)
     with warnings_as_lines():
         model, _ = build_model(config)
-    out = Path(config.output_dir)
-    out.mkdir(parents=True, exist_ok=True)
-    return config, model, out
+    return config, model, Path(config.output_dir)
 
 
 def _level_argument(parser, what):

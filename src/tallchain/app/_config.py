@@ -18,7 +18,7 @@ from types import MappingProxyType
 
 import numpy as np
 
-from .._validation import check_folder, did_you_mean, fail, one_of
+from .._validation import check_folder, did_you_mean, fail, one_of, positive_number
 from ..data import ARRAY_SUFFIXES, DataSource, load_array
 from ..exceptions import InputError
 from ..mcmc import SamplerSettings
@@ -58,7 +58,7 @@ SCHEMA = {
     "output": {"dir": _STR, "interval": _NUMBER},
     # Where the chains of a run, and the runs of sweeps and calibrations, execute
     # (tallchain.executors); --scheduler/--workers override.
-    "compute": {"scheduler": _STR, "workers": _INT},
+    "compute": {"scheduler": _STR, "workers": _INT, "connect_seconds": _NUMBER},
 }
 REQUIRED = (("data", "x"), ("model", "family"))
 #: The default of ``[output] interval``: the summary's central 90% intervals.
@@ -298,8 +298,10 @@ def _interval(value, overridden):
 def _check_compute(compute):
     from ..executors import check_scheduler, check_workers
 
+    seconds = (lambda v: positive_number("connect_seconds", v, "give the seconds to wait for "
+                                         "the scheduler to answer, e.g. 10"))
     for key, check in (("scheduler", lambda v: check_scheduler(v, threads=True)),
-                       ("workers", check_workers)):
+                       ("workers", check_workers), ("connect_seconds", seconds)):
         if key in compute:
             try:
                 check(compute[key])

@@ -112,19 +112,20 @@ def add_config_arguments(parser, *, exclude=(), extra=()):
     parser.add_argument("config", metavar="CONFIG", help="TOML run configuration")
     for flag, key, kind, metavar, text in OVERRIDES + tuple(extra):
         if flag not in exclude:
-            parser.add_argument(flag, dest=_dest(flag), type=kind, default=None,
+            parser.add_argument(flag, dest=dest(flag), type=kind, default=None,
                                 metavar=metavar, help=f"{text} (overrides {key})")
 
 
-def _dest(flag):
+def dest(flag):
+    """The attribute of the parsed arguments that holds an override option."""
     return "override_" + flag.lstrip("-").replace("-", "_")
 
 
 def config_from_args(args):
     """Load ``args.config`` with the override options that were given."""
-    overrides = {key: getattr(args, _dest(flag))
+    overrides = {key: getattr(args, dest(flag))
                  for flag, key, *_ in OVERRIDES + REPORT_OVERRIDES
-                 if getattr(args, _dest(flag), None) is not None}
+                 if getattr(args, dest(flag), None) is not None}
     if "output.dir" in overrides:
         overrides["output.dir"] = str(Path(overrides["output.dir"]).absolute())
     return load_config(args.config, overrides)

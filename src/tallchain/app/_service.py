@@ -1,14 +1,19 @@
 """The run service: build the model of a config, sample, map back to the original scale, write."""
 
 import dataclasses
+import shlex
 import time
 from pathlib import Path
 
+from .._addresses import CONNECT_SECONDS, looks_like_address, probe_address
 from ..data import load_data
+from ..executors import check_scheduler
 from ..exceptions import SamplingInterrupted
 from ..mcmc import sample
 from ..models import FAMILIES
-from ..outputs import save_result
+from ..outputs import check_writable, save_result
+from ._config import named_fields
+from ._folder import CHECKPOINT_NAME, prepare_folder
 from ._registry import option_or
 
 
@@ -33,11 +38,39 @@ def build_model(config):
     return model, dataset
 
 
-def run_config(config, *, progress=False, resume=False, scheduler=None, workers=None):
+def check_before_work(config, scheduler=None, default_scheduler="threads"):
+    """The checks that need no pass over the data but the world outside the config: the output
+    folder can be created and written, and a scheduler address (``--scheduler`` or
+    ``compute.scheduler``) is well formed and answers within ``compute.connect_seconds``.
+
+    ``default_scheduler`` None: the command uses no scheduler (validate), nothing to probe.
+    Returns the scheduler the command uses.
+    """
+    check_writable(_output_label(config), config.output_dir)
+    if default_scheduler is None:
+        return None
+    compute = config.compute
+    if scheduler is not None:
+        with named_fields({"scheduler": "--scheduler", "workers": "--workers"}):
+            check_scheduler(scheduler, threads=default_scheduler == "threads")
+    chosen = option_or(scheduler, compute.get("scheduler", default_scheduler))
+    if looks_like_address(chosen):
+        where = "--scheduler" if scheduler is not None else "compute.scheduler"
+        probe_address(chosen, compute.get("connect_seconds", CONNECT_SECONDS), where,
+                      "raise compute.connect_seconds")
+    return chosen
+
+
+def run_config(config, *, progress=False, resume=False, scheduler=None, workers=None,
+               extend=None, overwrite=False, command=None):
     """Build the model, sample, map back to the original scale and write the output files.
 
     ``scheduler`` and ``workers`` (where the chains run) override the config's ``[compute]``
-    section; without either, the chains run in threads of this process.
+    section; without either, the chains run in threads of this process. A folder holding a
+    run is refused unless ``resume``, ``extend`` (that many more draws per chain, from the
+    checkpoint) or ``overwrite`` says what to do with it (`_folder.prepare_folder`).
+    ``command`` (the run's command-line words without --resume, --extend, --overwrite)
+    makes the hint printed on interruption.
 
     Returns
     -------
@@ -47,22 +80,29 @@ def run_config(config, *, progress=False, resume=False, scheduler=None, workers=
     dataset : tallchain.data.Dataset
     """
     t0 = time.perf_counter()
+    scheduler = check_before_work(config, scheduler)
+    config = prepare_folder(config, _output_label(config), resume=resume, extend=extend,
+                            overwrite=overwrite)
+    resume = resume or extend is not None
+    hint = _resume_hint(config, command, extend)
     model, dataset = build_model(config)
     load_seconds = time.perf_counter() - t0
     checkpoint = Path(config.output_dir) / CHECKPOINT_NAME
     try:
         with config.named_fields():
             result = sample(model, config.sampler, progress=progress, checkpoint=checkpoint,
-                            resume=resume,
-                            scheduler=option_or(scheduler, config.compute.get("scheduler", "threads")),
-                            workers=option_or(workers, config.compute.get("workers")))
+                            resume=resume, checkpoint_extra=_data_identity(config, dataset),
+                            scheduler=scheduler,
+                            workers=option_or(workers, config.compute.get("workers")),
+                            connect_seconds=config.compute.get("connect_seconds",
+                                                               CONNECT_SECONDS))
     except SamplingInterrupted as stop:
         partial = _to_original_scale(stop.result, dataset, load_seconds)
         save_result(partial, config.output_dir, interval=config.interval)
         raise KeyboardInterrupt(
-            f"{partial.completed_draws} draws per chain kept in "
-            f"{Path(config.output_dir) / 'posterior.nc'}; continue with: tallchain run "
-            f"{config.path or 'CONFIG'} --resume (with the same options)") from None
+            f"{partial.completed_draws} of {config.sampler.draws} draws per chain kept in "
+            f"{Path(config.output_dir) / 'posterior.nc'} (status interrupted); continue with: "
+            f"{hint}") from None
     result = _to_original_scale(result, dataset, load_seconds)
     scaling = dataset.standardization
     extra = {"config": None if config.path is None else str(config.path.absolute()),
@@ -78,12 +118,32 @@ def run_config(config, *, progress=False, resume=False, scheduler=None, workers=
         # The checkpoint holds every draw (the driver writes it at the end): keep it.
         raise KeyboardInterrupt(
             f"while writing the outputs; every draw is kept in {checkpoint}; write them with: "
-            f"tallchain run {config.path or 'CONFIG'} --resume (with the same options)") from None
-    checkpoint.unlink(missing_ok=True)   # only once the outputs are safely written
+            f"{hint}") from None
+    # The checkpoint stays: --extend continues the finished run from it.
     return result, summary, dataset
 
 
-CHECKPOINT_NAME = "checkpoint.npz"
+def _output_label(config):
+    return ("output.dir (from the command line)" if "output.dir" in config.overridden
+            else "output.dir")
+
+
+def _resume_hint(config, command, extend):
+    """The command that continues this run: its own words and --resume; after --extend, the
+    draws it was extended to (a resume may ask for more draws, never fewer)."""
+    words = list(command) if command is not None else [str(config.path or "CONFIG")]
+    if extend is not None:
+        words = [w for i, w in enumerate(words)
+                 if w != "--draws" and (i == 0 or words[i - 1] != "--draws")]
+        words += ["--draws", str(config.sampler.draws)]
+    return shlex.join(["tallchain", "run", *words, "--resume"])
+
+
+def _data_identity(config, dataset):
+    """What a resume must match beyond the model: how the columns were chosen and scaled."""
+    scaling = dataset.standardization
+    return {"data.columns": None if config.data.columns is None else list(config.data.columns),
+            "standardization": None if scaling is None else scaling.as_dict()}
 
 
 def _to_original_scale(result, dataset, load_seconds):

@@ -10,7 +10,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .._arrays import row_blocks
-from .._validation import check_finite_matrix, fail
+from .._validation import check_finite_matrix, fail, overflow_limit, too_large
 from ..exceptions import DataWarning
 
 _BLOCK_BYTES = 2**24
@@ -91,13 +91,17 @@ def column_stats(X):
             seen = total
             np.minimum(lo, block.min(axis=0), out=lo)
             np.maximum(hi, block.max(axis=0), out=hi)
-    if not (np.all(np.isfinite(m2)) and np.all(np.isfinite(lo)) and np.all(np.isfinite(hi))):
+    # NaN or inf in X shows in the minimum or maximum (an inf M2 with finite extremes is an
+    # overflow of the squares, which check_columns reports by column name).
+    if not (np.all(np.isfinite(lo)) and np.all(np.isfinite(hi))):
         check_finite_matrix("X", X)
     return {"mean": mean, "sd": np.sqrt(m2 / max(n_rows, 1)), "min": lo, "max": hi}
 
 
 def check_columns(X, names, *, intercept, stats=None):
-    """Warn (`DataWarning`) about constant columns and columns that repeat another one.
+    """Refuse a column with values too large for the set-up's sums (`InputError` naming the
+    column and row); warn (`DataWarning`) about constant columns and columns that repeat
+    another one.
 
     Neither is an error: a Gaussian prior keeps the posterior proper, but such a coefficient is
     identified by the prior alone and the sampler spends effort on it.
@@ -108,6 +112,9 @@ def check_columns(X, names, *, intercept, stats=None):
         The `column_stats` of X.
     """
     stats = column_stats(X) if stats is None else stats
+    big = np.maximum(np.abs(stats["min"]), np.abs(stats["max"])) > overflow_limit(X.shape[0])
+    if big.any():
+        too_large("X", X, int(np.argmax(big)), names)
     constant = [names[j] for j in np.flatnonzero(stats["min"] == stats["max"])]
     if constant:
         also = " and duplicate the intercept" if intercept else ""

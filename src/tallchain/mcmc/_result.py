@@ -1,5 +1,6 @@
 """The result of a sampling run, and its conversion to ArviZ data."""
 
+import warnings
 from dataclasses import dataclass, field
 from importlib.metadata import PackageNotFoundError, version
 
@@ -41,6 +42,8 @@ class SampleResult:
         Data checks, mode finding, and starting and stopping the workers; warmup and draws.
     completed_draws : int
         Draws completed per chain (less than requested when the run was interrupted).
+    status : {"complete", "interrupted"}
+        Property: whether ``completed_draws`` reached the requested ``settings.draws``.
     warnings : list of str
         Advice raised during the run (noise level, Gaussianity of the log-ratio).
     laplace_mode : ndarray of shape (n_coef,) or None
@@ -80,6 +83,11 @@ class SampleResult:
     @property
     def method(self):
         return self.settings.method
+
+    @property
+    def status(self):
+        """``"complete"`` when every requested draw was made, else ``"interrupted"``."""
+        return "complete" if self.completed_draws >= self.settings.draws else "interrupted"
 
     @property
     def n_chains(self):
@@ -239,6 +247,7 @@ def to_arviz(result):
         "setup_seconds": float(result.setup_seconds),
         "sampling_seconds": float(result.sampling_seconds),
         "completed_draws": int(result.completed_draws),
+        "status": result.status,
     }
     for key, val in result.settings.record().items():
         attrs[f"setting_{key}"] = _attr_value(val)
@@ -250,8 +259,12 @@ def to_arviz(result):
         data["warmup_sample_stats"] = dict(result.warmup_stats)
     # ArviZ drops every group whose name holds "warmup" unless asked to keep it (its rcParam
     # data.save_warmup defaults to False).
-    tree = az.from_dict(data, dims={"beta": ["coef"]}, coords={"coef": list(result.coef_names)},
-                        save_warmup=True)
+    with warnings.catch_warnings():
+        # Every dimension is named, so ArviZ's guess that a short draw dimension (an
+        # interrupted run) is misnamed does not apply.
+        warnings.filterwarnings("ignore", "Found chain dimension to be longer than draw")
+        tree = az.from_dict(data, dims={"beta": ["coef"]},
+                            coords={"coef": list(result.coef_names)}, save_warmup=True)
     tree.attrs.update(attrs)
     tree["posterior"].attrs.update(attrs)
     return tree

@@ -6,7 +6,7 @@ from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 
-from ..executors import TaskPool, worker_count
+from ..executors import CONNECT_SECONDS, TaskPool, worker_count
 from . import _transition as _chain
 from ._driver import ROUND, Interrupted
 
@@ -84,13 +84,15 @@ class TaskRunner(Runner):
     interrupt loses at most one round.
     """
 
-    def __init__(self, job, all_draws, all_stats, progress, scheduler, workers):
+    def __init__(self, job, all_draws, all_stats, progress, scheduler, workers,
+                 timeout=CONNECT_SECONDS):
         super().__init__(job, all_draws, all_stats, progress, parallel=True)
-        self.scheduler, self.workers = scheduler, workers
+        self.scheduler, self.workers, self.timeout = scheduler, workers, timeout
         self._round = ROUND
 
     def open_pool(self, n_chains):
-        return TaskPool(_advance_task, self.job, self.scheduler, min(self.workers, n_chains))
+        return TaskPool(_advance_task, self.job, self.scheduler, min(self.workers, n_chains),
+                        timeout=self.timeout)
 
     def round_length(self):
         return self._round

@@ -68,6 +68,12 @@ def sample(model, settings=None, **options):
     settings, run = split_options(settings, options)
     settings.check_against(model)
     run.check_against(model)
+    ckpt = None
+    if run.checkpoint is not None:
+        ckpt = Checkpoint(run.checkpoint, checkpoint_identity(model, settings, run),
+                          settings.draws)
+        if run.resume:
+            ckpt.check()   # before the mode: a changed problem is refused at once
     rngs = chain_generators(settings.seed, settings.chains + 1)
     setup = set_up(model, settings, run.preparation, rngs[0])
     setup_seconds = time.perf_counter() - t_setup
@@ -82,11 +88,8 @@ def sample(model, settings=None, **options):
             _chain.init_full_state(model.glm_data, model.prior_arrays, st.arrays)
     runner = _runner(model, settings, run, setup)
     schedule = Schedule(settings, model.n_rows)
-    ckpt = None
-    if run.checkpoint is not None:
-        ckpt = Checkpoint(run.checkpoint, checkpoint_identity(model, settings))
-        if run.resume:
-            ckpt.restore(states, schedule, runner)
+    if ckpt is not None and run.resume:
+        ckpt.restore(states, schedule, runner)
 
     t_sample = time.perf_counter()
     interrupted = False
@@ -116,10 +119,13 @@ sample.__signature__ = inspect.Signature(
        for f in cls.__dataclass_fields__.values()])
 
 
-def checkpoint_identity(model, settings):
-    """What a checkpoint must match to be resumed: every setting and the model's shape."""
-    return {**settings.record(), "n_rows": model.n_rows, "n_coef": model.n_coef,
-            "family": model.family_name}
+def checkpoint_identity(model, settings, run):
+    """What a checkpoint must match to be resumed: every setting but ``draws`` (a resume may
+    add draws), the model's shape and fingerprint (`model.fingerprint`: one pass over the
+    data) and the caller's ``run.checkpoint_extra``."""
+    record = {k: v for k, v in settings.record().items() if k != "draws"}
+    return {**record, "n_rows": model.n_rows, "n_coef": model.n_coef,
+            **model.fingerprint(), **run.checkpoint_extra}
 
 
 def _runner(model, settings, run, setup):
@@ -132,7 +138,7 @@ def _runner(model, settings, run, setup):
         return Runner(job, all_draws, all_stats, run.progress,
                       run.parallel and run.scheduler == "threads")
     return TaskRunner(job, all_draws, all_stats, run.progress, run.scheduler,
-                      worker_count(run.workers, settings.chains))
+                      worker_count(run.workers, settings.chains), run.connect_seconds)
 
 
 def _result(model, settings, setup, states, runner, schedule, timings):

@@ -11,6 +11,7 @@ are `SamplerSettings.check_against`.
 """
 
 import hashlib
+import json
 import math
 import os
 import textwrap
@@ -21,7 +22,7 @@ import numpy as np
 
 from .._validation import (check_flag, check_seed, did_you_mean, fail, is_number, one_of,
                            positive_int, positive_number, show_value, spd_matrix_and_inverse)
-from ..executors import check_scheduler, check_workers
+from ..executors import CONNECT_SECONDS, check_scheduler, check_workers
 from ..posterior import MASS_MATRIX_KINDS
 from . import _transition as _loop
 from ._methods import BROKEN_METHODS, LOG_RATIO_VARIANCE, METHODS
@@ -346,6 +347,11 @@ class RunOptions:
     resume: bool = _setting(False, check_flag, "bool, default=False",
                             "Continue from ``checkpoint``; the settings must be those of the "
                             "interrupted run.")
+    checkpoint_extra: dict = _setting(
+        None, lambda name, v: _extra(name, v), "dict, optional",
+        "More items a resume must match, recorded in the checkpoint beside the settings and "
+        "the model's fingerprint (JSON-ready values, e.g. how the data were standardised); "
+        "a key that differs is named in the refusal.")
     checkpoint_seconds: float = _setting(
         30.0, lambda name, v: positive_number(name, v, "give the seconds between checkpoint "
                                               "writes, e.g. 30"),
@@ -370,6 +376,12 @@ class RunOptions:
         None, lambda name, v: _workers(v), "int, optional",
         "Worker processes for \"processes\" and \"dask-local\" (default: one per chain, at most "
         "the number of cores).")
+    connect_seconds: float = _setting(
+        CONNECT_SECONDS, lambda name, v: positive_number(
+            name, v, "give the seconds to wait for the scheduler, e.g. 10"),
+        f"float, default={CONNECT_SECONDS}",
+        "Seconds to wait for a Dask scheduler at an address to answer before the run stops "
+        "with an error (the address itself is checked when the options are built).")
 
     def __post_init__(self):
         for f in fields(self):
@@ -392,6 +404,18 @@ def _path_or_none(name, value):
     if value is not None and not isinstance(value, (str, os.PathLike)):
         fail(name, f"must be a file path, got {show_value(value)}", "give a path, or leave it out")
     return value
+
+
+def _extra(name, value):
+    if value is None:
+        return {}
+    if not isinstance(value, dict) or not all(isinstance(k, str) for k in value):
+        fail(name, f"must be a dict with string keys, got {show_value(value)}",
+             'give e.g. {"standardization": None}, or leave it out')
+    try:
+        return json.loads(json.dumps(value, allow_nan=False))   # as the checkpoint reads it
+    except (TypeError, ValueError) as exc:
+        fail(name, f"must hold JSON values ({exc})", "give numbers, strings, lists and dicts")
 
 
 def _preparation(name, value):

@@ -1,10 +1,12 @@
 """Regression families: linear (known noise sd), logistic and Poisson GLMs."""
 
+import warnings
+
 import numpy as np
 
 from .._arrays import symmetrized
 from .._validation import fail
-from ..exceptions import ModeNotFoundError
+from ..exceptions import DataWarning, ModeNotFoundError
 from . import _kernels
 from ._glm import _GLM
 from ._inputs import check_noise_sd, rows_text
@@ -144,6 +146,14 @@ class LogisticRegression(_GLM):
         if bad.size:
             fail("y", f"has label {y[bad[0]]:g} in row {bad[0]} ({rows_text(bad.size)} outside {{0, 1}})",
                  "logistic regression needs labels 0 or 1")
+        events = int(np.count_nonzero(y))
+        if events in (0, y.shape[0]):
+            label, side = (0, "no events") if events == 0 else (1, "no non-events")
+            warnings.warn(f"y: has {side} (every label is {label}): the likelihood keeps "
+                          "rising as the intercept goes to "
+                          f"{'-' if label == 0 else '+'}infinity, so the prior's tail alone "
+                          "sets it; check the response column, or give the intercept a prior "
+                          "that says what you know", DataWarning, stacklevel=4)
 
 
 class PoissonRegression(_GLM):

@@ -5,6 +5,7 @@ import numpy as np
 from .._arrays import row_blocks
 from .._validation import check_finite_matrix, check_flag, fail
 from . import _kernels, _passes
+from ._fingerprint import fingerprint
 from ._inputs import (as_design, check_coef_names, coef_vector, design_storage, float_vector,
                       read_array, rows_text)
 from ._mapped import MappedArray, ZeroOffset, mapped_source
@@ -60,7 +61,7 @@ class _GLM:
         y = float_vector("y", y)
         offset = np.zeros(n_rows) if offset is None else float_vector("offset", offset)
         if check:
-            check_finite_matrix("X", X)
+            check_finite_matrix("X", X, names[int(add_intercept):])
             check_finite_matrix("y", y)
             check_finite_matrix("offset", offset)
             self._check_response(y)
@@ -77,6 +78,16 @@ class _GLM:
 
     def _check_response(self, y):
         pass
+
+    def fingerprint(self):
+        """Everything that defines this model's posterior, as a JSON-ready dict: family and
+        its options, intercept, coefficient names, prior mean and covariance, and a digest
+        of X, y and the offset (shape, dtype, CRC-32 of the values; one pass over the data).
+
+        Two models with equal fingerprints have the same posterior; a checkpoint records it
+        so that a resume on a changed problem is refused, naming the items that differ.
+        """
+        return fingerprint(self)
 
     def __repr__(self):
         return (f"{type(self).__name__}(n_rows={self.n_rows}, n_coef={self.n_coef}, "

@@ -15,13 +15,17 @@ def as_design(X):
         X = X.reshape(-1, 1)
     if X.ndim != 2:
         fail("X", f"must be two-dimensional, got shape {X.shape}", "give an (n_rows, n_features) array")
-    if X.dtype not in (np.float32, np.float64) and X.dtype.kind not in "iub":
-        fail("X", f"has dtype {X.dtype}", "give a float or integer array")
+    if X.dtype.kind == "f" and X.dtype.itemsize > 8:
+        fail("X", f"has dtype {X.dtype}, wider than the float64 the kernels compute in",
+             "give float64 or float32 values (e.g. X.astype(np.float64))")
+    if X.dtype.kind not in "fiub":
+        fail("X", f"has dtype {X.dtype}, not real numbers", "give a float or integer array")
     return X
 
 
 def design_storage(X):
-    """float32/float64 C-contiguous X as it is (a memory map stays one); anything else copied."""
+    """float32/float64 C-contiguous X as it is (a memory map stays one); anything else
+    (float16, integers, bool, another order) copied to float64, which holds it exactly."""
     if X.dtype not in (np.float32, np.float64):
         X = X.astype(np.float64)
     if not X.flags.c_contiguous:
