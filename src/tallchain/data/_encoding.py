@@ -182,14 +182,13 @@ def with_levels(frame, levels):
         values = frame[name]
         if isinstance(values.dtype, pd.CategoricalDtype):
             values = values.astype(object)
-        coded = pd.Categorical(values, categories=cats)
-        unseen = np.flatnonzero(np.asarray(coded.isna()) & ~np.asarray(values.isna()))
+        unseen = np.flatnonzero(~np.asarray(values.isin(cats)) & np.asarray(values.notna()))
         if unseen.size:
             row = frame.index[unseen[0]]
             fail(name, f"has the level {show_value(_plain(values.iloc[unseen[0]]))} in row "
                  f"{row}, which the fitted model did not see (its levels: "
                  f"{_level_text(cats)})", "drop those rows, or refit with them")
-        frame[name] = coded
+        frame[name] = pd.Categorical(values, categories=cats)
     return frame
 
 
@@ -198,7 +197,8 @@ def _materialise(call, spec, frame):
 
     try:
         args = (frame,) if spec is None else (spec, frame)
-        return call(*args, na_action="ignore")
+        with np.errstate(all="ignore"):   # log(0) and the like: refused, by row, afterwards
+            return call(*args, na_action="ignore")
     except FormulaicError as exc:
         fail("formula", f"cannot be evaluated on the table ({_first_line(exc)})",
              "check the spelling of the functions and columns it uses")
