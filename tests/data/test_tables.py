@@ -41,7 +41,7 @@ def _entries(folder):
 # ---------------------------------------------------------------- files and tables in memory
 
 
-@pytest.mark.parametrize("kind", ["csv", "parquet", "pandas", "arrow"])
+@pytest.mark.parametrize("kind", ["csv", "parquet", "pandas", "arrow", "polars"])
 def test_every_source_gives_the_values_written(tmp_path, rng, kind):
     values = np.round(rng.standard_normal((300, 3)), 6)
     frame = pd.DataFrame({"id": np.arange(300), "a": values[:, 0], "b": values[:, 1],
@@ -52,9 +52,11 @@ def test_every_source_gives_the_values_written(tmp_path, rng, kind):
     elif kind == "parquet":
         frame.to_parquet(source, row_group_size=64)   # several row groups
     else:
+        import polars as pl
         import pyarrow as pa
 
-        source = frame if kind == "pandas" else pa.Table.from_pandas(frame)
+        source = {"pandas": frame, "arrow": pa.Table.from_pandas(frame),
+                  "polars": pl.from_pandas(frame)}[kind]
     td = _load(source, response="label", columns=["b", "a"])
     assert td.feature_names == ["b", "a"]
     assert_array_equal(td.X, values[:, [1, 0]])
@@ -98,10 +100,14 @@ def test_offset_column_quotes_and_blank_lines(tmp_path):
 
 
 def test_a_dataframe_keeps_its_column_names_in_a_model(rng):
+    import polars as pl
+
     frame = pd.DataFrame({"wind": rng.standard_normal(50), "waves": rng.standard_normal(50)})
-    model = tc.LinearRegression(frame, rng.standard_normal(50))
-    assert model.coef_names == ["intercept", "wind", "waves"]
-    assert_array_equal(model.X, frame.to_numpy())
+    y = rng.standard_normal(50)
+    for table in (frame, pl.from_pandas(frame)):
+        model = tc.LinearRegression(table, y)
+        assert model.coef_names == ["intercept", "wind", "waves"]
+        assert_array_equal(model.X, frame.to_numpy())
     frame["port"] = "north"
     with pytest.raises(InputError, match=r'^X: column "port" holds text, not numbers; '
                                          r"leave it out, or fit through a formula"):
@@ -127,6 +133,10 @@ def test_incomplete_rows_are_dropped_and_counted_per_column(tmp_path, rng):
     assert_array_equal(td.y, keep["y"].to_numpy())
     assert td.report["missing"] == {"y": 1, "a": 2, "b": 3}
     assert (td.report["rows_read"], td.report["rows_used"]) == (20, 15)
+    # a cached start says so again: every run's output mentions the rows it dropped
+    with pytest.warns(DataWarning, match=r"^dropped 5 of 20 rows of d\.csv"):
+        again = io.load_table(tmp_path / "d.csv", response="y", columns=["a", "b"])
+    assert isinstance(again.X, np.memmap) and again.report == td.report
     # the refusal names the first missing cell, rows counted from 1 (header not counted)
     with pytest.raises(InputError, match=r"^a: is missing in row 3 of d\.csv; fill it in, or "
                                          r'set missing = "drop"'):

@@ -102,15 +102,16 @@ def load_table(table, *, formula=None, response=None, columns=None, offset=None,
         found = _cache.open_entry(entry)
         if found is not None:
             arrays, meta = found
+            _warn_missing(meta["report"], source.label)
             return _table_data(arrays, Encoding.from_dict(meta["encoding"]), meta["report"])
     scan = _scan(source, encoding, types, missing, id_check=columns is None and
                  formula is None)
-    _warn_missing(scan, source)
     shapes = {"X": (scan["kept"], _n_features(source, encoding, types)), "y": (scan["kept"],)}
     if offset is not None:
         shapes["offset"] = (scan["kept"],)
     report = {"rows_read": scan["rows"], "rows_used": scan["kept"], "missing": scan["missing"],
               "missing_policy": missing, "cache": None if entry is None else str(entry)}
+    _warn_missing(report, source.label)
     if use_cache:
         removed = _cache.remove_stale(folder, identity)
         writer = _cache.EntryWriter(entry, shapes, source.label)
@@ -173,11 +174,7 @@ def _column_types(source, encoding, categorical):
     import pyarrow as pa
 
     needed = encoding.needed
-    if source.path is not None and not source.is_parquet:
-        inferred = source.csv_inferred_types(needed)
-    else:
-        schema = source._memory.schema if source.path is None else source._parquet_schema()
-        inferred = {n: schema.field(n).type for n in needed}
+    inferred = source.types(needed)
     types = {}
     numeric_only = set(encoding.variables) if encoding.kind == "columns" else set()
     numeric_only |= {encoding.offset} - {None}
@@ -197,7 +194,7 @@ def _column_types(source, encoding, categorical):
                  "it as a category, or leave it out of the columns")
         if text and encoding.kind == "formula" and name in encoding.variables:
             categorical.add(name)
-        if source.path is not None and not source.is_parquet:
+        if source.is_csv:
             t = pa.string() if text else (
                 pa.int64() if pa.types.is_integer(t) and name in categorical
                 else pa.bool_() if pa.types.is_boolean(t) else pa.float64())
@@ -370,11 +367,12 @@ def _check_finite(block, names, rows, label):
              "a transform such as log() needs values in its domain: correct or drop that row")
 
 
-def _warn_missing(scan, source):
-    dropped = scan["rows"] - scan["kept"]
+def _warn_missing(report, label):
+    """The rows dropped for missing values, per column (on every load, cached or not)."""
+    dropped = report["rows_read"] - report["rows_used"]
     if dropped:
-        per = ", ".join(f"{n} {c:,}" for n, c in scan["missing"].items())
-        warnings.warn(f"dropped {dropped:,} of {scan['rows']:,} rows of {source.label} with a "
+        per = ", ".join(f"{n} {c:,}" for n, c in report["missing"].items())
+        warnings.warn(f"dropped {dropped:,} of {report['rows_read']:,} rows of {label} with a "
                       f"missing value (missing per column: {per}); set missing = \"error\" to "
                       "refuse incomplete rows instead", DataWarning, stacklevel=3)
 

@@ -68,8 +68,8 @@ def iter_new_rows(saved, table, *, batch_rows=BATCH_ROWS):
     for name in encoding.variables:
         source.column(name, "table")
     types = None
-    if source.path is not None and not source.is_parquet:
-        inferred = source.csv_inferred_types(encoding.variables)
+    if source.is_csv:
+        inferred = source.types(encoding.variables)
         types = {n: pa.string() if is_text(t) else
                  pa.int64() if n in encoding.levels and pa.types.is_integer(t) else
                  pa.bool_() if pa.types.is_boolean(t) else pa.float64()

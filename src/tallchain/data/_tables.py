@@ -89,6 +89,18 @@ class Table:
         return self.path is not None and self.path.suffix.lower() in (".parquet", ".pq")
 
     @property
+    def is_csv(self):
+        return self.path is not None and not self.is_parquet
+
+    def types(self, columns):
+        """The pyarrow type of each of ``columns``: the schema's, or for a CSV file the type
+        inferred from its first block (see `csv_inferred_types`)."""
+        if self.is_csv:
+            return self.csv_inferred_types(columns)
+        schema = self._memory.schema if self.path is None else self._parquet_schema()
+        return {name: schema.field(name).type for name in columns}
+
+    @property
     def label(self):
         return self.path.name if self.path is not None else "the table"
 
