@@ -114,3 +114,17 @@ def test_run_a_table_through_a_formula(folder, capsys):
     # a design the formula did not ask for, are not
     other = np.array([-fit.params[3], fit.params[2] - fit.params[3]])
     assert not np.all(np.abs(mean[2:] - other) < 4 * fit.bse[2:])
+
+
+def test_an_unusable_value_is_one_line_and_exit_2(folder, capsys):
+    frame = pd.read_parquet(folder / "f.parquet")
+    frame.loc[41, "distance"] = 0.0            # np.log(0) = -inf
+    frame.to_parquet(folder / "f.parquet")
+    (folder / "run.toml").write_text(TABLE)
+    code = cli.main(["run", str(folder / "run.toml"), "--out", str(folder / "out")])
+    _, err = capsys.readouterr()
+    lines = [line for line in err.strip().splitlines() if "warning" not in line]
+    assert code == 2 and len(lines) == 1 and "Traceback" not in err
+    assert lines[0].startswith("tallchain: error: np.log(distance): is -inf in row 42 of "
+                               "f.parquet; a transform such as log() needs values in its domain")
+    assert not list((folder / ".tallchain-cache").glob("*"))   # no torn entry

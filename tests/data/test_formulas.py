@@ -44,7 +44,7 @@ def _patsy(formula, frame):
     return X[names].to_numpy(), y.to_numpy()[:, -1], names
 
 
-@pytest.mark.parametrize("kind", ["pandas", "parquet", "csv"])
+@pytest.mark.parametrize("kind", ["pandas", "polars", "parquet", "csv"])
 def test_formula_matches_patsy_streamed_in_small_batches(tmp_path, rng, monkeypatch, kind):
     frame = _flights_like(rng)
     # a level absent from the first batches must still get its column in every batch
@@ -56,6 +56,10 @@ def test_formula_matches_patsy_streamed_in_small_batches(tmp_path, rng, monkeypa
         frame.to_parquet(source := tmp_path / "f.parquet", row_group_size=500)
     elif kind == "csv":
         frame.to_csv(source := tmp_path / "f.csv", index=False)
+    elif kind == "polars":
+        import polars as pl
+
+        source = pl.from_pandas(frame)
     td = _quiet_load(source, formula=FORMULA)
     X, y, names = _patsy(FORMULA.replace("late ~", "I(late * 1.0) ~"), frame)
     # the same columns (patsy puts terms without numeric factors first), the same values
