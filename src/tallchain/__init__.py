@@ -15,7 +15,7 @@ every layer and import none of them.
 from importlib.metadata import PackageNotFoundError, version
 
 from .checks import calibrate, check_on_twin, ks_check, sweep
-from .exceptions import (ConvergenceWarning, DataWarning, InputError, ModeNotFoundError,
+from .exceptions import (ConvergenceWarning, DataNote, DataWarning, InputError, ModeNotFoundError,
                          NoisyLogRatioWarning, SamplingInterrupted, WorkerDiedError)
 from .mcmc import RunOptions, SampleResult, SamplerSettings, sample
 from .models import GaussianPrior, LinearRegression, LogisticRegression, PoissonRegression
@@ -55,4 +55,5 @@ __all__ = [
     "NoisyLogRatioWarning",
     "ConvergenceWarning",
     "DataWarning",
+    "DataNote",
 ]

@@ -41,3 +41,9 @@ class ConvergenceWarning(UserWarning):
 
 class DataWarning(UserWarning):
     """The data load, but something about them deserves a look (the text says what to do)."""
+
+
+class DataNote(UserWarning):
+    """Not a problem: something done with the data that a user should know of (a cache of an
+    encoded table written to disk, and where). ``warnings.simplefilter("ignore", DataNote)``
+    silences it."""

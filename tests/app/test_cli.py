@@ -20,7 +20,7 @@ import tallchain as tc
 from tallchain.app import _cli as cli
 from tallchain.app import _demo as demo
 from tallchain.app import _registry
-from tallchain.data import _csv
+from tallchain.data import _load_table
 
 SCRIPT = Path(sys.executable).with_name("tallchain")
 RUN_KEYS = ("setup_seconds", "sampling_seconds", "wall_seconds", "data_evaluations",
@@ -140,8 +140,8 @@ def test_csv_with_standardize_end_to_end_and_cached(tmp_path, rng, capsys, monke
     code, out, _ = _run(capsys, "run", tmp_path / "run.toml", "--out", tmp_path / "a")
     assert code == 0
     assert "coefficients below are on the original scale" in out
-    caches = sorted(tmp_path.glob(".d.csv.*.npy"))
-    assert len(caches) == 2
+    caches = sorted(tmp_path.glob(".tallchain-cache/d.csv-*/*.npy"))
+    assert [p.name for p in caches] == ["X.npy", "y.npy"]
     # Reported on the original scale: the posterior mean sits near the mode of the model fitted
     # to the unstandardised columns (within 4 posterior sd; the Laplace sd is the yardstick).
     # The prior sd 10 on the standardised scale is weak here, so the two modes nearly agree.
@@ -165,10 +165,10 @@ def test_csv_with_standardize_end_to_end_and_cached(tmp_path, rng, capsys, monke
     def no_parse(*args, **kwargs):
         raise AssertionError("the CSV was parsed again")
 
-    monkeypatch.setattr(_csv, "_fill_from_csv", no_parse)
+    monkeypatch.setattr(_load_table, "_fill", no_parse)
     code, _, _ = _run(capsys, "run", tmp_path / "run.toml", "--out", tmp_path / "b", "--quiet")
     assert code == 0
-    assert sorted(tmp_path.glob(".d.csv.*.npy")) == caches
+    assert sorted(tmp_path.glob(".tallchain-cache/d.csv-*/*.npy")) == caches
     assert (tmp_path / "b" / "posterior.nc").exists()
 
 

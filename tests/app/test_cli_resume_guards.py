@@ -82,7 +82,9 @@ def _resume(capsys, config, out):
 
 
 def _assert_refused(code, err, pattern):
-    lines = err.strip().splitlines()
+    # The copied CSV is a new file to the table cache, which says once that it encoded it.
+    lines = [line for line in err.strip().splitlines()
+             if not line.startswith("tallchain: warning: wrote the encoded table")]
     assert code == 2 and len(lines) == 1 and "Traceback" not in err, err
     assert re.search(pattern, lines[0]), lines[0]
 

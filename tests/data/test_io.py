@@ -1,4 +1,4 @@
-"""Data files: .npy memory maps, .npz keys, CSV parsing and its cache, column checks, scaling.
+"""Data files: .npy memory maps, .npz keys, column checks, scaling (tables: test_tables.py).
 
 Reference values are computed with plain NumPy on the same arrays (np.mean, np.std, and the
 linear predictor on both scales for the back-transform). Files are compared bit for bit (a
@@ -15,8 +15,8 @@ from numpy.testing import assert_array_equal
 from ulps import assert_ulps_close
 
 from tallchain import data as io
-from tallchain.data import DataSource, _columns, _csv
-from tallchain.exceptions import DataWarning, InputError
+from tallchain.data import DataSource, _columns
+from tallchain.exceptions import DataNote, DataWarning, InputError
 
 
 def summation_ulps(n_rows, n_blocks=1):
@@ -110,107 +110,6 @@ def test_datasource_parse_relative_to_base(tmp_path):
     assert DataSource.parse("/abs/X.npy", tmp_path) == DataSource(Path("/abs/X.npy"))
 
 
-# ---------------------------------------------------------------- CSV and its cache
-
-
-def test_csv_round_trip_and_cache_is_memory_mapped(tmp_path, rng, monkeypatch):
-    values = np.round(rng.standard_normal((30, 4)), 6)
-    values[:, 3] = rng.integers(0, 2, 30)
-    path = tmp_path / "data.csv"
-    _write_csv(path, ["id", "a", "b", "label"], values.tolist())
-    X, y, off, names = io.read_csv(path, response="label", columns=["b", "a"])
-    assert names == ["b", "a"]
-    assert_array_equal(X, values[:, [2, 1]])
-    assert_array_equal(y, values[:, 3])
-    assert off is None
-    caches = sorted(p.name for p in tmp_path.glob(".data.csv.*.npy"))
-    assert len(caches) == 2 and caches[0].endswith(".x.npy") and caches[1].endswith(".y.npy")
-    assert isinstance(X, np.memmap) and X.flags.c_contiguous
-
-    # Second load: the cache is memory-mapped and the CSV is not parsed again.
-    def no_parse(*args, **kwargs):
-        raise AssertionError("the CSV was parsed again")
-
-    monkeypatch.setattr(_csv, "_fill_from_csv", no_parse)
-    X2, y2, _, _ = io.read_csv(path, response="label", columns=["b", "a"])
-    assert isinstance(X2, np.memmap)
-    assert Path(X2.filename) == tmp_path / caches[0]
-    assert_array_equal(X2, X)
-    assert_array_equal(y2, y)
-
-
-def test_csv_cache_follows_the_file_and_the_columns(tmp_path):
-    path = _write_csv(tmp_path / "d.csv", ["a", "b", "y"], [[1, 2, 0], [3, 4, 1]])
-    io.read_csv(path, response="y")
-    io.read_csv(path, response="y", columns=["a"])
-    assert len(list(tmp_path.glob(".d.csv.*.x.npy"))) == 2
-    _write_csv(path, ["a", "b", "y"], [[1, 2, 0], [3, 5, 1], [6, 7, 1]])
-    X, y, _, _ = io.read_csv(path, response="y")
-    assert_array_equal(X, [[1, 2], [3, 5], [6, 7]])
-    assert_array_equal(y, [0, 1, 1])
-
-
-def test_csv_offset_column_quotes_and_blank_lines(tmp_path):
-    path = tmp_path / "d.csv"
-    path.write_text('"a","n","log_len"\n1,"3",0.5\n\n2,0,-0.5\r\n')
-    X, y, off, names = io.read_csv(path, response="n", offset="log_len")
-    assert names == ["a"]
-    assert_array_equal(X, [[1], [2]])
-    assert_array_equal(y, [3, 0])
-    assert_array_equal(off, [0.5, -0.5])
-
-
-def test_csv_without_a_writable_folder_reads_into_memory(tmp_path, monkeypatch):
-    path = _write_csv(tmp_path / "d.csv", ["a", "y"], [[1, 0], [2, 1]])
-
-    def refuse(*args, **kwargs):
-        raise PermissionError(13, "Permission denied")
-
-    monkeypatch.setattr(_csv.np.lib.format, "open_memmap", refuse)
-    with pytest.warns(DataWarning,
-                      match=r"could not write the cache beside d\.csv .*held in memory"):
-        X, y, _, _ = io.read_csv(path, response="y")
-    assert not isinstance(X, np.memmap)
-    assert_array_equal(X, [[1], [2]])
-    assert not list(tmp_path.glob(".d.csv.*"))
-
-
-@pytest.mark.parametrize("kwargs, message", [
-    ({"response": "labl"},
-     r'^y: column "labl" is not in the header of d\.csv; did you mean "label"\?'),
-    ({"response": "label", "columns": ["a", "zz"]},
-     r'^columns: column "zz" is not in the header of d\.csv; the columns are: a, b, label'),
-    ({"response": "label", "columns": ["a", "label"]},
-     r'^columns: lists "label", which is the response'),
-    ({"response": "label", "columns": ["a", "a"]}, r'^columns: lists "a" twice'),
-    ({"response": "label", "offset": "label"}, r'^offset: is the response column "label"'),
-])
-def test_csv_column_errors(tmp_path, kwargs, message):
-    path = _write_csv(tmp_path / "d.csv", ["a", "b", "label"], [[1, 2, 0], [3, 4, 1]])
-    with pytest.raises(InputError, match=message):
-        io.read_csv(path, **kwargs)
-
-
-def test_csv_bad_value_names_the_line(tmp_path):
-    path = _write_csv(tmp_path / "d.csv", ["a", "y"], [[1, 0], [2, 1], ["NA", 1]])
-    with pytest.raises(InputError, match=r"^X: d\.csv line 4 cannot be read \(could not convert "
-                                         r"string 'NA' to float64\); give a number in every"):
-        io.read_csv(path, response="y")
-    assert not list(tmp_path.glob(".d.csv.*"))  # no torn cache left behind
-
-
-def test_csv_header_problems(tmp_path):
-    (tmp_path / "empty.csv").write_text("")
-    with pytest.raises(InputError, match=r"empty\.csv has no header row"):
-        io.read_csv(tmp_path / "empty.csv", response="y")
-    _write_csv(tmp_path / "dup.csv", ["a", "a", "y"], [[1, 2, 3]])
-    with pytest.raises(InputError, match=r'dup\.csv names the column "a" twice'):
-        io.read_csv(tmp_path / "dup.csv", response="y")
-    _write_csv(tmp_path / "nodata.csv", ["a", "y"], [])
-    with pytest.raises(InputError, match=r"nodata\.csv has a header but no data rows"):
-        io.read_csv(tmp_path / "nodata.csv", response="y")
-
-
 # ---------------------------------------------------------------- column checks and scaling
 
 
@@ -297,7 +196,8 @@ def test_standardize_refuses_a_copy_that_does_not_fit(rng, monkeypatch):
 def test_load_data_csv_with_standardize(tmp_path, rng):
     values = np.column_stack([rng.normal(10, 3, 50), rng.normal(0, 1, 50), rng.integers(0, 2, 50)])
     path = _write_csv(tmp_path / "d.csv", ["u", "v", "y"], values.tolist())
-    ds = io.load_data(DataSource(path), "y", standardize=True)
+    with pytest.warns(DataNote, match="wrote the encoded table"):
+        ds = io.load_data(DataSource(path), "y", standardize=True)
     assert ds.feature_names == ["u", "v"] and ds.n_rows == 50
     # The CSV holds each value's repr, which reads back to the same float.
     assert_standardized(ds.X, values[:, :2], True, summation_ulps(50))

@@ -19,7 +19,7 @@ from types import MappingProxyType
 import numpy as np
 
 from .._validation import check_folder, did_you_mean, fail, one_of, positive_number
-from ..data import ARRAY_SUFFIXES, DataSource, load_array
+from ..data import ARRAY_SUFFIXES, MISSING_CHOICES, TABLE_SUFFIXES, DataSource, load_array
 from ..exceptions import InputError
 from ..mcmc import SamplerSettings
 from ..mcmc._summary import check_interval
@@ -48,10 +48,10 @@ _STR_LIST = ("a list of strings",
              lambda v: isinstance(v, list) and all(isinstance(e, str) for e in v))
 
 SCHEMA = {
-    "data": {"x": _STR, "y": _STR, "add_intercept": _BOOL, "standardize": _BOOL,
-             "columns": _STR_LIST, "offset": _STR},
-    "model": {"family": _STR, "noise_sd": _NUMBER, "prior_mean": _NUMBERS, "prior_sd": _NUMBERS,
-              "prior_cov": _STR},
+    "data": {"x": _STR, "y": _STR, "table": _STR, "add_intercept": _BOOL, "standardize": _BOOL,
+             "columns": _STR_LIST, "offset": _STR, "missing": _STR, "cache_dir": _STR},
+    "model": {"family": _STR, "formula": _STR, "noise_sd": _NUMBER, "prior_mean": _NUMBERS,
+              "prior_sd": _NUMBERS, "prior_cov": _STR},
     # The fields of tallchain.SamplerSettings, which checks their values and holds the
     # defaults.
     "sampler": {name: None for name in SamplerSettings.names()},
@@ -60,7 +60,7 @@ SCHEMA = {
     # (tallchain.executors); --scheduler/--workers override.
     "compute": {"scheduler": _STR, "workers": _INT, "connect_seconds": _NUMBER},
 }
-REQUIRED = (("data", "x"), ("model", "family"))
+REQUIRED = (("model", "family"),)
 #: The default of ``[output] interval``: the summary's central 90% intervals.
 DEFAULT_INTERVAL = 0.9
 
@@ -71,6 +71,7 @@ _ARGUMENT_KEYS = {
     "prior cov": "model.prior_cov", "noise_sd": "model.noise_sd",
     "X": "data.x", "y": "data.y", "offset": "data.offset", "columns": "data.columns",
     "coef_names": "data.columns", "standardize": "data.standardize",
+    "table": "data.table", "missing": "data.missing", "formula": "model.formula",
 }
 
 
@@ -95,14 +96,20 @@ def named_fields(names):
 
 @dataclass(frozen=True)
 class DataSettings:
-    """The resolved ``[data]`` section (see `tallchain.data.load_data` for the meaning)."""
+    """The resolved ``[data]`` section (see `tallchain.data.load_data` for the meaning).
 
-    x: DataSource
-    y: DataSource | str
+    Either ``x`` (arrays, or a CSV/Parquet file with ``y`` a column) or ``table`` is set.
+    """
+
+    x: DataSource | None
+    y: DataSource | str | None
     offset: DataSource | str | None = None
     columns: tuple | None = None
     add_intercept: bool = True
     standardize: bool = False
+    table: DataSource | None = None
+    missing: str = "drop"
+    cache_dir: Path | None = None
 
 
 @dataclass(frozen=True)
@@ -112,6 +119,8 @@ class ModelSettings:
     Attributes
     ----------
     family : {"linear", "logistic", "poisson"}
+    formula : str or None
+        ``"response ~ terms"`` for a ``[data] table``.
     noise_sd : float or None
         Linear models only (None: the model's default).
     prior_mean, prior_sd : float or tuple of float, or None
@@ -121,6 +130,7 @@ class ModelSettings:
     """
 
     family: str
+    formula: str | None = None
     noise_sd: float | None = None
     prior_mean: float | tuple | None = None
     prior_sd: float | tuple | None = None
@@ -266,7 +276,7 @@ def config_from_dict(raw, *, base_dir=".", stem="run", overrides=None, path=None
     _check_required(raw)
     with named_fields(_field_names(overridden)):
         model = _model_settings(raw.get("model", {}), raw.get("data", {}), base_dir)
-        data = _data_settings(raw["data"], model.family, base_dir)
+        data = _data_settings(raw.get("data", {}), model.formula, base_dir)
         given = raw.get("sampler", {})
         sampler = SamplerSettings(**given)
         compute = dict(raw.get("compute", {}))
@@ -379,7 +389,11 @@ def _model_settings(table, data_table, base_dir):
         GaussianPrior(sd=sd).resolve(_length(sd))
     if cov is not None:
         GaussianPrior(cov=cov).resolve(cov.shape[0] if cov.ndim else 1)
-    return ModelSettings(family=family, noise_sd=None if noise_sd is None else float(noise_sd),
+    formula = table.get("formula")
+    if formula is not None and "~" not in formula:
+        fail("model.formula", f"has no ~ in {formula!r}",
+             'write it as "response ~ terms", e.g. "late ~ hour + C(carrier)"')
+    return ModelSettings(family=family, formula=formula, noise_sd=None if noise_sd is None else float(noise_sd),
                          prior_mean=mean, prior_sd=sd, prior_cov=cov)
 
 
@@ -393,18 +407,38 @@ def _length(v):
     return len(v) if isinstance(v, tuple) else 1
 
 
-def _data_settings(table, family, base_dir):
+def _data_settings(table, formula, base_dir):
+    if "x" not in table and "table" not in table:
+        fail("data.x", "is missing", 'give x = "X.npy" with y = "y.npy", or a table: '
+             'table = "flights.parquet" with [model] formula = "y ~ a + b"')
+    if "x" in table and "table" in table:
+        fail("data.table", "is given together with data.x", "give the data once: x or table")
+    missing = one_of("data.missing", table.get("missing", "drop"), MISSING_CHOICES,
+                     "missing-value policy")
+    cache_dir = table.get("cache_dir")
+    if cache_dir is not None:
+        cache_dir = Path(cache_dir).expanduser()
+        cache_dir = cache_dir if cache_dir.is_absolute() else Path(base_dir) / cache_dir
+        check_folder("data.cache_dir", cache_dir)
+    common = {"add_intercept": table.get("add_intercept", True),
+              "standardize": table.get("standardize", False), "missing": missing,
+              "cache_dir": cache_dir}
+    if "table" in table:
+        return _table_settings(table, formula, base_dir, common)
+    if formula is not None:
+        fail("model.formula", "needs [data] table", 'give the data as table = "<file>" (a '
+             "Parquet or CSV file) instead of x")
     x = DataSource.parse(table["x"], base_dir)
     _check_exists(x, "X")
     if x.is_table:
         if "y" not in table:
-            fail("data.y", "is missing", 'name the response column of the CSV: y = "<column>"')
+            fail("data.y", "is missing", 'name the response column of the table: y = "<column>"')
         y = table["y"]
         offset = table.get("offset")
     else:
         if x.path.suffix.lower() not in ARRAY_SUFFIXES:
             fail("X", f"{x.path.name} has an unsupported file type {x.path.suffix!r}",
-                 "give a .npy, .npz or .csv file")
+                 "give a .npy, .npz, .csv or .parquet file")
         if "y" in table:
             y = DataSource.parse(table["y"], base_dir)
         elif x.path.suffix.lower() == ".npz":
@@ -418,9 +452,31 @@ def _data_settings(table, family, base_dir):
             _check_exists(offset, "offset")
     columns = table.get("columns")
     return DataSettings(x=x, y=y, offset=offset,
+                        columns=None if columns is None else tuple(columns), **common)
+
+
+def _table_settings(table, formula, base_dir, common):
+    """``[data] table``: a file read by a formula, or by y and columns."""
+    source = DataSource.parse(table["table"], base_dir)
+    _check_exists(source, "data.table")
+    if source.path.suffix.lower() not in TABLE_SUFFIXES:
+        fail("data.table", f"{source.path.name} has an unsupported file type "
+             f"{source.path.suffix!r}", "give a .parquet or .csv file")
+    columns = table.get("columns")
+    if formula is not None:
+        for key in ("y", "columns", "add_intercept"):
+            if key in table:
+                fail(f"data.{key}", "is given together with model.formula",
+                     "remove it: the formula names the response and the terms, and decides "
+                     "the intercept (- 1 in the formula removes it)")
+    elif "y" not in table or columns is None:
+        fail("data.table", "needs a formula, or y and columns",
+             'give [model] formula = "y ~ a + b", or y = "<response column>" and columns = '
+             '["a", "b"] (every column is not taken by default: an identifier would go in as '
+             "a covariate)")
+    return DataSettings(x=None, y=table.get("y"), offset=table.get("offset"),
                         columns=None if columns is None else tuple(columns),
-                        add_intercept=table.get("add_intercept", True),
-                        standardize=table.get("standardize", False))
+                        table=source, **common)
 
 
 def _check_exists(source, field):
@@ -428,7 +484,8 @@ def _check_exists(source, field):
         fail(field, f'file "{source.path}" does not exist',
              "check the path (relative paths are relative to the folder of the config file)")
     if not source.path.is_file():
-        fail(field, f'"{source.path}" is a folder, not a file', "give a .npy, .npz or .csv file")
+        fail(field, f'"{source.path}" is a folder, not a file',
+             "give a .npy, .npz or .csv file (or .parquet)")
 
 
 __all__ = ["RunConfig", "DataSettings", "ModelSettings", "load_config", "config_from_dict",

@@ -28,10 +28,12 @@ def build_model(config):
     d, m = config.data, config.model
     with config.named_fields():
         dataset = load_data(d.x, d.y, offset=d.offset, columns=d.columns,
-                            add_intercept=d.add_intercept, standardize=d.standardize)
+                            add_intercept=d.add_intercept, standardize=d.standardize,
+                            table=None if d.table is None else d.table.path,
+                            formula=m.formula, missing=d.missing, cache_dir=d.cache_dir)
         family = FAMILIES[m.family]
         options = {"noise_sd": m.noise_sd, "offset": dataset.offset}
-        model = family(dataset.X, dataset.y, prior=m.prior(), add_intercept=d.add_intercept,
+        model = family(dataset.X, dataset.y, prior=m.prior(), add_intercept=dataset.add_intercept,
                        coef_names=dataset.feature_names,
                        **{k: v for k, v in options.items()
                           if k in family.family_options and v is not None})
@@ -104,13 +106,9 @@ def run_config(config, *, progress=False, resume=False, scheduler=None, workers=
             f"{Path(config.output_dir) / 'posterior.nc'} (status interrupted); continue with: "
             f"{hint}") from None
     result = _to_original_scale(result, dataset, load_seconds)
-    scaling = dataset.standardization
     extra = {"config": None if config.path is None else str(config.path.absolute()),
              "family": config.model.family, "interval": config.interval,
-             "data": {"x": str(config.data.x), "y": str(config.data.y),
-                      "offset": None if config.data.offset is None else str(config.data.offset),
-                      "add_intercept": config.data.add_intercept,
-                      "standardization": None if scaling is None else scaling.as_dict()}}
+             "data": _data_record(config, dataset)}
     try:
         summary = save_result(result, config.output_dir, wall_seconds=time.perf_counter() - t0,
                               extra=extra, interval=config.interval)
@@ -143,6 +141,18 @@ def _data_identity(config, dataset):
     """What a resume must match beyond the model: how the columns were chosen and scaled."""
     scaling = dataset.standardization
     return {"data.columns": None if config.data.columns is None else list(config.data.columns),
+            "standardization": None if scaling is None else scaling.as_dict()}
+
+
+def _data_record(config, dataset):
+    """run.json's ``data``: where the data came from, how a table was encoded (for new rows),
+    rows dropped for missing values, the cache entry, the standardisation."""
+    d, scaling = config.data, dataset.standardization
+    text = (lambda v: None if v is None else str(v))
+    return {"x": text(d.x), "table": text(d.table), "y": text(d.y), "offset": text(d.offset),
+            "formula": config.model.formula, "add_intercept": dataset.add_intercept,
+            "rows": dataset.table_report,
+            "encoding": None if dataset.encoding is None else dataset.encoding.to_dict(),
             "standardization": None if scaling is None else scaling.as_dict()}
 
 

@@ -6,8 +6,9 @@ import numpy as np
 
 from .._validation import fail
 from ._columns import Standardization, check_columns, standardize_columns
-from ._csv import read_csv
+from ._load_table import load_table
 from ._sources import DataSource, load_array
+
 
 @dataclass
 class Dataset:
@@ -20,8 +21,15 @@ class Dataset:
     y : ndarray of shape (n_rows,)
     offset : ndarray of shape (n_rows,) or None
     feature_names : list of str
-        Column names (``x0, x1, ...`` for arrays without names).
+        Column names (``x0, x1, ...`` for arrays without names; from the formula for a
+        table read through one).
     standardization : Standardization or None
+    add_intercept : bool
+        Whether the model adds an intercept (a formula decides it).
+    encoding : Encoding or None
+        How a table's rows became X (saved with the run; `encode_new_rows` reuses it).
+    table_report : dict or None
+        Rows read and used, missing values per column, the cache entry (see `load_table`).
     """
 
     X: np.ndarray
@@ -29,31 +37,47 @@ class Dataset:
     offset: np.ndarray | None
     feature_names: list
     standardization: Standardization | None = None
+    add_intercept: bool = True
+    encoding: object = None
+    table_report: dict | None = None
 
     @property
     def n_rows(self):
         return self.X.shape[0]
 
 
-def load_data(x, y, *, offset=None, columns=None, add_intercept=True, standardize=False):
+def load_data(x=None, y=None, *, offset=None, columns=None, add_intercept=True,
+              standardize=False, table=None, formula=None, missing="drop", cache_dir=None):
     """Load X, y and an optional offset, check the columns, and standardise if asked.
+
+    Two routes: arrays (``x`` and ``y``: ``.npy``/``.npz`` files, or a CSV ``x`` with ``y``
+    one of its columns), or a table (``table``: a ``.parquet``/``.csv`` file or a table in
+    memory) with a ``formula`` or with ``y`` and ``columns`` naming its columns.
 
     Parameters
     ----------
-    x : DataSource or path-like
+    x : DataSource or path-like, optional
         ``.npy`` (memory-mapped), ``.npz`` (array ``x`` or the key given) or ``.csv``.
-    y : DataSource, path-like or str
-        A ``.npy``/``.npz`` file; when x is a CSV, the name of its response column (a str, or
-        a `DataSource` whose key is the column).
+    y : DataSource, path-like or str, optional
+        A ``.npy``/``.npz`` file; for a CSV ``x`` or a table, the name of the response column.
     offset : DataSource, path-like or str, optional
         As for y (Poisson models).
     columns : sequence of str, optional
-        For a CSV, the feature columns to use, by name (default: all but the response and
-        offset). For a ``.npy``/``.npz`` X, the names of its columns, one per column in order
-        (default: x0, x1, ...).
+        For a CSV or table, the feature columns to use, by name (a CSV ``x``: default all but
+        the response and offset; a table needs them or a formula). For a ``.npy``/``.npz`` X,
+        the names of its columns, one per column in order (default: x0, x1, ...).
     add_intercept : bool, default=True
+        Ignored with a formula, which decides (``- 1`` removes the intercept).
     standardize : bool, default=False
         Fit on standardised columns (see `standardize_columns` and `Standardization.to_original`).
+    table : path-like or table, optional
+    formula : str, optional
+        ``"response ~ terms"`` for a table (see `load_table`).
+    missing : {"drop", "error"}, default="drop"
+        Tables and CSV files: what to do with rows that miss a value in a column used.
+    cache_dir : path-like, optional
+        Where the encoded matrix of a table file is kept (default ``.tallchain-cache`` beside
+        the file).
 
     Returns
     -------
@@ -62,13 +86,32 @@ def load_data(x, y, *, offset=None, columns=None, add_intercept=True, standardiz
     Warns
     -----
     DataWarning
-        Constant or duplicate columns.
+        Constant or duplicate columns; rows dropped for missing values; a cache entry written.
     """
-    x = x if isinstance(x, DataSource) else DataSource.parse(x)
-    if x.is_table:
-        X, y_arr, off_arr, names = read_csv(x.path, response=_column_name(y, "y"),
-                                            columns=columns,
-                                            offset=_column_name(offset, "offset"))
+    table_data = None
+    if table is not None:
+        if x is not None:
+            fail("x", "is given together with table", "give the data once: x and y, or table")
+        if formula is None and columns is None:
+            fail("table", "needs the columns to use", "give a formula, or y and columns naming "
+                 "the covariates (a table's every column is not taken by default: an "
+                 "identifier or a date would go in as a covariate)")
+        table_data = load_table(table, formula=formula, response=_column_name(y, "y"),
+                                columns=columns, offset=_column_name(offset, "offset"),
+                                missing=missing, cache_dir=cache_dir)
+    elif formula is not None:
+        fail("formula", "needs a table", "give the data as table = ... (a Parquet or CSV file)")
+    else:
+        x = x if isinstance(x, DataSource) else DataSource.parse(x)
+        if x.is_table:
+            table_data = load_table(x.path, response=_column_name(y, "y"), columns=columns,
+                                    offset=_column_name(offset, "offset"), missing=missing,
+                                    cache_dir=cache_dir, field="X")
+    if table_data is not None:
+        X, y_arr, off_arr = table_data.X, table_data.y, table_data.offset
+        names = table_data.feature_names
+        if formula is not None:
+            add_intercept = table_data.encoding.intercept
     else:
         X = load_array(x, field="X")
         y_arr = load_array(y, field="y")
@@ -92,13 +135,16 @@ def load_data(x, y, *, offset=None, columns=None, add_intercept=True, standardiz
     scaling = None
     if standardize:
         X, scaling = standardize_columns(X, intercept=add_intercept, stats=stats)
-    return Dataset(X=X, y=y_arr, offset=off_arr, feature_names=names, standardization=scaling)
+    return Dataset(X=X, y=y_arr, offset=off_arr, feature_names=names, standardization=scaling,
+                   add_intercept=add_intercept,
+                   encoding=None if table_data is None else table_data.encoding,
+                   table_report=None if table_data is None else table_data.report)
 
 
 def _column_name(source, field):
     if source is None or isinstance(source, str):
         return source
     if source.key is None:
-        fail(field, f"is the file {source.path.name} while X is a CSV",
-             f'give the {field} as a column of the CSV ({field} = "<column name>")')
+        fail(field, f"is the file {source.path.name} while the data are a table",
+             f'give the {field} as a column of the table ({field} = "<column name>")')
     return source.key

@@ -9,9 +9,9 @@ import numpy as np
 from .._validation import did_you_mean, fail
 from ..exceptions import InputError
 
-#: File types accepted for a design matrix; ``.csv`` is not accepted for y or offset files.
+#: File types accepted for a design matrix as an array (tables: `TABLE_SUFFIXES`).
 ARRAY_SUFFIXES = (".npy", ".npz")
-TABLE_SUFFIX = ".csv"
+TABLE_SUFFIXES = (".parquet", ".pq", ".csv")
 _DEFAULT_NPZ_KEY = {"X": "x", "y": "y", "offset": "offset"}
 _NPZ_KEY = re.compile(r"^(?P<path>.*\.npz):(?P<key>[^/\\:]+)$", re.IGNORECASE)
 _PICKLE_FIX = ("pickles are never read; save a numeric array, e.g. "
@@ -25,10 +25,9 @@ class DataSource:
     Attributes
     ----------
     path : pathlib.Path
-        A ``.npy``, ``.npz`` or ``.csv`` file.
+        A ``.npy``, ``.npz``, ``.csv`` or ``.parquet`` file.
     key : str, optional
-        The array name inside a ``.npz`` file (default: ``x``, ``y`` or ``offset``), or the
-        column name when ``path`` is a ``.csv`` file.
+        The array name inside a ``.npz`` file (default: ``x``, ``y`` or ``offset``).
     """
 
     path: Path
@@ -46,7 +45,7 @@ class DataSource:
 
     @property
     def is_table(self):
-        return self.path.suffix.lower() == TABLE_SUFFIX
+        return self.path.suffix.lower() in TABLE_SUFFIXES
 
     def __str__(self):
         return f"{self.path}:{self.key}" if self.key is not None else str(self.path)

@@ -4,6 +4,7 @@ import numpy as np
 
 from .._arrays import row_blocks
 from .._validation import check_finite_matrix, check_flag, fail
+from ..data import is_table_object, load_data, table_matrix
 from . import _kernels, _passes
 from ._fingerprint import fingerprint
 from ._inputs import (as_design, check_coef_names, coef_vector, design_storage, float_vector,
@@ -33,6 +34,9 @@ class _GLM:
         if not isinstance(prior, GaussianPrior):
             fail("prior", f"must be a GaussianPrior, got {type(prior).__name__}",
                  "pass tallchain.GaussianPrior(...)")
+        if is_table_object(X):   # a DataFrame keeps its column names
+            X, table_names = table_matrix(X)
+            coef_names = table_names if coef_names is None else coef_names
         X = as_design(X)
         n_rows, n_cols = X.shape
         if n_cols == 0 and not add_intercept:
@@ -235,6 +239,47 @@ class _GLM:
         check_finite_matrix("y", new.y)
         new._check_response(new.y)
         return new
+
+    @classmethod
+    def from_formula(cls, formula, table, *, offset=None, missing="drop", cache_dir=None,
+                     **options):
+        """The model of a Wilkinson formula (Wilkinson & Rogers 1973) on a table.
+
+        The table is read in batches and encoded by ``formulaic`` (categorical variables by
+        treatment coding against their first level, sorted unless a pandas categorical gives
+        the order; ``C(x, contr.treatment("b"))`` sets another); the formula decides the
+        intercept (``- 1`` removes it) and the coefficient names. A file's encoded matrix is
+        kept memory-mapped in the cache folder (see `tallchain.data.load_table`).
+
+        Parameters
+        ----------
+        formula : str
+            ``"response ~ terms"``, e.g. ``"late ~ hour + log(distance) + C(carrier)"``.
+        table : path-like or table
+            A ``.parquet``/``.csv`` file, or a pandas/polars DataFrame or pyarrow Table.
+        offset : str, optional
+            The offset column (Poisson).
+        missing : {"drop", "error"}, default="drop"
+            Drop incomplete rows (counted per column, with a `DataWarning`) or refuse them.
+        cache_dir : path-like, optional
+            Default: ``.tallchain-cache`` beside a table file.
+        **options
+            The family's keyword arguments (``prior``, ``noise_sd``, ...).
+
+        Returns
+        -------
+        model
+            With ``encoding`` (`tallchain.data.Encoding`: how new rows are encoded, see
+            `tallchain.data.encode_new_rows`) and ``table_report`` (rows read, used, missing).
+        """
+        dataset = load_data(table=table, formula=formula, offset=offset, missing=missing,
+                            cache_dir=cache_dir)
+        if dataset.offset is not None:
+            options["offset"] = dataset.offset
+        model = cls(dataset.X, dataset.y, add_intercept=dataset.add_intercept,
+                    coef_names=dataset.feature_names, **options)
+        model.encoding, model.table_report = dataset.encoding, dataset.table_report
+        return model
 
     def check_mode(self, mode, information):
         """Raise `ModeNotFoundError` when the mode found is not a proper posterior mode for
