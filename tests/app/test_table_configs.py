@@ -16,6 +16,7 @@ import pytest
 import statsmodels.api as sm
 
 from tallchain import data as io
+from ulps import assert_ulps_close
 from tallchain.app import _cli as cli
 from tallchain.app import _config as config
 from tallchain.exceptions import InputError
@@ -128,3 +129,46 @@ def test_an_unusable_value_is_one_line_and_exit_2(folder, capsys):
     assert lines[0].startswith("tallchain: error: np.log(distance): is -inf in row 42 of "
                                "f.parquet; a transform such as log() needs values in its domain")
     assert not list((folder / ".tallchain-cache").glob("*"))   # no torn entry
+
+
+def test_predict_encodes_new_rows_with_the_runs_formula(folder, capsys):
+    """New rows for a formula run come as raw columns (distance, origin as text); predict
+    encodes them with the saved formula and levels. Reference: the mean over the run's draws
+    of the logistic function of intercept + encode_new_rows(X) @ beta, in NumPy. Power: the
+    same rows with LGA and JFK swapped predict other means."""
+    import arviz as az
+    from scipy.special import expit
+
+    (folder / "run.toml").write_text(TABLE + "[sampler]\nchains = 2\ndraws = 300\n"
+                                     "warmup = 200\nseed = 4\n")
+    assert cli.main(["run", str(folder / "run.toml"), "--out", str(folder / "out"),
+                     "--quiet"]) == 0
+    new = pd.DataFrame({"origin": ["LGA", "JFK", "EWR", "LGA"],
+                        "distance": [200.0, 1000.0, 2400.0, 90.0], "late": [0, 1, 0, 1]})
+    new.to_parquet(folder / "new.parquet")
+    capsys.readouterr()
+    code = cli.main(["predict", str(folder / "out"), str(folder / "new.parquet"),
+                     "--out", str(folder / "pred.csv")])
+    out, err = capsys.readouterr()
+    assert code == 0, err
+    assert "wrote 4 predictions" in out
+    got = pd.read_csv(folder / "pred.csv")["mean"].to_numpy()
+    beta = az.from_netcdf(folder / "out" / "posterior.nc")["posterior"]["beta"].values
+    beta = beta.reshape(-1, beta.shape[2])
+    X = io.encode_new_rows(folder / "out", new)
+    want = expit(beta[:, 0][None, :] + X @ beta[:, 1:].T).mean(axis=1)
+    # A mean of 600 terms in [0, 1] summed in another order (at most 600 ulps), each from an
+    # eta of 4 terms in another order (a few ulps of |eta| < 5, which expit passes on scaled
+    # by at most |eta|): 700 ulps; the power check's differences are 1e13 ulps and more.
+    assert_ulps_close(got, want, ulps=700)
+    swapped = new.assign(origin=new["origin"].replace({"LGA": "JFK", "JFK": "LGA"}))
+    X_swapped = io.encode_new_rows(folder / "out", swapped)
+    wrong = expit(beta[:, 0][None, :] + X_swapped @ beta[:, 1:].T).mean(axis=1)
+    assert not np.allclose(got, wrong, rtol=1e-3, atol=0)
+    # a level the fit never saw is one line naming the column, exit 2
+    new.assign(origin=["SFO", "JFK", "EWR", "LGA"]).to_parquet(folder / "bad.parquet")
+    code = cli.main(["predict", str(folder / "out"), str(folder / "bad.parquet"),
+                     "--out", str(folder / "bad.csv")])
+    err = capsys.readouterr().err
+    assert code == 2 and len(err.strip().splitlines()) == 1 and "Traceback" not in err, err
+    assert "origin" in err and "SFO" in err, err

@@ -47,7 +47,11 @@ def _predict(args):
     out = Path(args.out) if args.out is not None else run_dir / OUTPUT_NAME
     rows = rows_per_block(draws.shape[0], args.chunk_rows)
     seed = args.seed if args.seed is not None else (run.get("settings", {}).get("seed") or 0)
-    blocks = read_blocks(new_table, record["feature_names"], offset_column, rows)
+    encoding = (run.get("data") or {}).get("encoding")
+    if encoding is not None and encoding.get("kind") == "formula":
+        blocks = _formula_blocks(encoding, new_table, offset_column, rows)
+    else:
+        blocks = read_blocks(new_table, record["feature_names"], offset_column, rows)
     columns = ["row", *prediction_columns(interval)]
     n = write_table(out, columns, _numbered(predict_blocks(draws, blocks, record,
                                                            interval=interval, seed=seed)))
@@ -88,6 +92,18 @@ def _offset_column(option, run, new_table):
         return run_offset
     fail("--offset", f"the run had an offset ({run_offset}) and {new_table.name} has no column "
          "of that name", "name the new rows' offset column with --offset COLUMN")
+
+
+def _formula_blocks(encoding, new_table, offset_column, rows):
+    """``(X, offset)`` blocks of new rows encoded by the run's saved formula (the same
+    categorical levels, reference levels and transforms as the fit)."""
+    from ..data import iter_new_rows
+
+    if offset_column is not None:
+        fail("--offset", "a run fitted from a formula takes no offset column in predict yet",
+             "predict from a run without an offset")
+    for _, X in iter_new_rows(encoding, new_table, batch_rows=rows):
+        yield X, None
 
 
 def _numbered(blocks):
