@@ -293,7 +293,7 @@ def test_find_mode_accepts_numpy_scalars_and_a_start(logistic):
     ref = tc.find_mode(logistic)
     lap = tc.find_mode(logistic, tol=np.float32(1e-9), max_iter=np.int64(500),
                        start=ref.mode + 0.1)
-    # Two L-BFGS runs from different starts each place the mode within its tolerance
+    # Two Newton runs from different starts each place the mode within its tolerance
     # (numpy_glm.mode_sd_tolerance, in posterior sds): together within twice that.
     sd = np.sqrt(np.diag(ref.cov))
     np.testing.assert_allclose((lap.mode - ref.mode) / sd, 0.0, rtol=0,
