@@ -4,6 +4,8 @@ import dataclasses
 import time
 from pathlib import Path
 
+import numpy as np
+
 from ..data import load_data
 from ..exceptions import SamplingInterrupted
 from ..mcmc import sample
@@ -25,7 +27,8 @@ def build_model(config):
         dataset = load_data(d.x, d.y, offset=d.offset, columns=d.columns,
                             add_intercept=d.add_intercept, standardize=d.standardize)
         family = FAMILIES[m.family]
-        options = {"noise_sd": m.noise_sd, "offset": dataset.offset}
+        options = {"noise_sd": m.noise_sd, "noise_sd_prior": m.noise_sd_prior,
+                   "offset": dataset.offset}
         model = family(dataset.X, dataset.y, prior=m.prior(), add_intercept=d.add_intercept,
                        coef_names=dataset.feature_names,
                        **{k: v for k, v in options.items()
@@ -57,13 +60,13 @@ def run_config(config, *, progress=False, resume=False, scheduler=None, workers=
                             scheduler=option_or(scheduler, config.compute.get("scheduler", "threads")),
                             workers=option_or(workers, config.compute.get("workers")))
     except SamplingInterrupted as stop:
-        partial = _to_original_scale(stop.result, dataset, load_seconds)
+        partial = _to_original_scale(stop.result, dataset, load_seconds, model.n_beta)
         save_result(partial, config.output_dir)
         raise KeyboardInterrupt(
             f"{partial.completed_draws} draws per chain kept in "
             f"{Path(config.output_dir) / 'posterior.nc'}; continue with: tallchain run "
             f"{config.path or 'CONFIG'} --resume (with the same options)") from None
-    result = _to_original_scale(result, dataset, load_seconds)
+    result = _to_original_scale(result, dataset, load_seconds, model.n_beta)
     scaling = dataset.standardization
     extra = {"config": None if config.path is None else str(config.path.absolute()),
              "family": config.model.family,
@@ -86,14 +89,18 @@ def run_config(config, *, progress=False, resume=False, scheduler=None, workers=
 CHECKPOINT_NAME = "checkpoint.npz"
 
 
-def _to_original_scale(result, dataset, load_seconds):
-    """Add the data loading to the set-up time and map standardised draws back."""
+def _to_original_scale(result, dataset, load_seconds, n_beta):
+    """Add the data loading to the set-up time and map standardised draws back (the first
+    ``n_beta`` columns, the coefficients; a noise sd after them is on y's scale, unchanged)."""
     changes = {"setup_seconds": result.setup_seconds + load_seconds}
     scaling = dataset.standardization
     if scaling is not None:
-        changes["draws"] = scaling.to_original(result.draws)
-        if result.laplace_mode is not None:
-            changes["laplace_mode"] = scaling.to_original(result.laplace_mode)
+        for key in ("draws", "laplace_mode"):
+            value = getattr(result, key)
+            if value is not None:
+                value = np.array(value, dtype=float)
+                value[..., :n_beta] = scaling.to_original(value[..., :n_beta])
+                changes[key] = value
     return dataclasses.replace(result, **changes)
 
 

@@ -3,11 +3,11 @@
 from .._validation import fail
 from ._families import FAMILIES, LinearRegression, LogisticRegression, PoissonRegression
 from ._glm import _GLM
-from ._inputs import check_noise_sd
+from ._inputs import check_noise_sd, check_noise_sd_prior
 from ._prior import GaussianPrior
 
 __all__ = ["GaussianPrior", "LinearRegression", "LogisticRegression", "PoissonRegression",
-           "FAMILIES", "check_model", "check_noise_sd"]
+           "FAMILIES", "check_model", "check_noise_sd", "check_noise_sd_prior"]
 
 
 def check_model(model):

@@ -8,14 +8,20 @@ from .._validation import fail
 from ..exceptions import ModeNotFoundError
 from . import _kernels
 from ._glm import _GLM
-from ._inputs import check_noise_sd, rows_text
+from ._inputs import check_noise_sd, check_noise_sd_prior, rows_text
+
+#: The default prior's sd of log sigma (see `LinearRegression`).
+DEFAULT_NOISE_LOG_SD = 2.0
 
 
 class LinearRegression(_GLM):
-    """Linear regression with Gaussian noise of known standard deviation.
+    """Linear regression with Gaussian noise: y_i ~ Normal(x_i . beta, sigma^2).
 
-    y_i ~ Normal(x_i . beta, noise_sd^2). With a Gaussian prior the posterior is Gaussian and
-    known exactly (`tallchain.conjugate_posterior`).
+    The noise sd sigma is sampled with the coefficients unless it is given (``noise_sd``). It is
+    sampled as log sigma, the last parameter after the coefficients (named "log_noise_sd" in
+    `coef_names`; results report it as "noise_sd", on its natural scale), with the prior
+    ``noise_sd_prior``. With a known noise sd and a Gaussian prior the posterior is Gaussian
+    and known exactly (`tallchain.conjugate_posterior`).
 
     Parameters
     ----------
@@ -25,8 +31,14 @@ class LinearRegression(_GLM):
         to float64, C order. A one-dimensional X is one column.
     y : array-like of shape (n_rows,)
         Response.
-    noise_sd : float, default=1.0
-        Known noise standard deviation: a finite number > 0 (a numpy scalar too).
+    noise_sd : float or None, default=None
+        Known noise standard deviation: a finite number > 0 (a numpy scalar too). None
+        (default): the noise sd is unknown and sampled.
+    noise_sd_prior : (median, log_sd) or None, default=None
+        Prior of a sampled noise sd: log-normal, log sigma ~ Normal(log median, log_sd^2).
+        None: median = the sd of y (the noise sd of a model with an intercept is at most
+        about that) and log_sd = 2, weakly informative: 95% of the prior mass lies between
+        median / 50 and median x 50. Only with ``noise_sd`` None.
     prior : GaussianPrior or None, default=None
         Prior on the coefficients, intercept first; None means ``GaussianPrior()`` (mean 0,
         sd 10 for every coefficient).
@@ -42,7 +54,9 @@ class LinearRegression(_GLM):
     Raises
     ------
     InputError
-        If an argument is invalid (``noise_sd`` first, not a finite number > 0): X not a
+        If an argument is invalid (``noise_sd`` first, not a finite number > 0, or
+        ``noise_sd_prior`` not a (median > 0, log_sd > 0) pair, or given with ``noise_sd``;
+        a sampled noise sd without ``noise_sd_prior`` on a constant y): X not a
         two-dimensional numeric array (or ragged), without coefficients, or with fewer than 2
         rows; y not numeric or of another length than X has rows; a non-bool ``add_intercept``
         or ``check``; ``coef_names`` not distinct strings, one per column; ``prior`` not a
@@ -52,17 +66,53 @@ class LinearRegression(_GLM):
 
     family = _kernels.LINEAR
     family_name = "linear"
-    family_options = ("noise_sd",)
-    closed_form_posterior = True
+    family_options = ("noise_sd", "noise_sd_prior")
 
-    def __init__(self, X, y, *, noise_sd=1.0, prior=None, add_intercept=True, coef_names=None,
-                 check=True):
-        noise_sd = check_noise_sd(noise_sd)
+    def __init__(self, X, y, *, noise_sd=None, noise_sd_prior=None, prior=None,
+                 add_intercept=True, coef_names=None, check=True):
+        if noise_sd is not None:
+            noise_sd = check_noise_sd(noise_sd)
+            if noise_sd_prior is not None:
+                fail("noise_sd_prior", "is given but the noise sd is known (noise_sd="
+                     f"{noise_sd:g})", "leave noise_sd out to sample it, or drop noise_sd_prior")
+        else:
+            noise_sd_prior = check_noise_sd_prior(noise_sd_prior)
+        self.noise_sd_prior = noise_sd_prior
+        self.family_param_names = () if noise_sd is not None else ("log_noise_sd",)
+        #: The posterior is Gaussian and known exactly only with a known noise sd.
+        self.closed_form_posterior = noise_sd is not None
         super().__init__(X, y, prior=prior, add_intercept=add_intercept, noise_sd=noise_sd,
                          coef_names=coef_names, check=check)
 
-    def _draw_response(self, eta, rng):
-        return eta + self.noise_sd * rng.standard_normal(eta.shape[0])
+    def _family_prior(self):
+        if self.noise_sd is not None:
+            return np.zeros(0), np.zeros(0)
+        if self.noise_sd_prior is not None:
+            median, log_sd = self.noise_sd_prior
+        else:
+            median, log_sd = float(np.std(self.y)), DEFAULT_NOISE_LOG_SD
+            if not median > 0:
+                fail("y", "is constant, so the default prior of the noise sd (median = the sd "
+                     "of y) is undefined", "give noise_sd_prior=(median, log_sd) or noise_sd")
+            self.noise_sd_prior = (median, log_sd)
+        return np.array([np.log(median)]), np.array([log_sd])
+
+    def _draw_response(self, eta, rng, theta):
+        s = self.noise_sd if self.noise_sd is not None else np.exp(theta[self.n_beta])
+        return eta + s * rng.standard_normal(eta.shape[0])
+
+    def natural_scale(self, draws):
+        out = np.array(draws, dtype=float)
+        if self.noise_sd is None:
+            out[..., self.n_beta] = np.exp(out[..., self.n_beta])
+        return out
+
+    @property
+    def output_names(self):
+        names = list(self.coef_names)
+        if self.noise_sd is None:
+            names[self.n_beta] = "noise_sd"
+        return names
 
 
 class LogisticRegression(_GLM):
@@ -106,7 +156,7 @@ class LogisticRegression(_GLM):
         super().__init__(X, y, prior=prior, add_intercept=add_intercept, coef_names=coef_names,
                          check=check)
 
-    def _draw_response(self, eta, rng):
+    def _draw_response(self, eta, rng, theta):
         return (rng.random(eta.shape[0]) < special.expit(eta)).astype(float)
 
     def check_mode(self, mode, information):
@@ -190,7 +240,7 @@ class PoissonRegression(_GLM):
         super().__init__(X, y, prior=prior, add_intercept=add_intercept, offset=offset,
                          coef_names=coef_names, check=check)
 
-    def _draw_response(self, eta, rng):
+    def _draw_response(self, eta, rng, theta):
         # exp(30) ~ 1e13 counts: far beyond any data, and within the sampler's float range.
         return rng.poisson(np.exp(np.minimum(eta, 30.0))).astype(float)
 

@@ -21,6 +21,9 @@ class _GLM:
 
     family = None
     family_name = None
+    #: Names of the family parameters sampled after the coefficients, on the sampler's scale
+    #: (``("log_noise_sd",)`` for a linear model with unknown noise sd); set per instance.
+    family_param_names = ()
 
     def __init__(self, X, y, *, prior=None, add_intercept=True, offset=None, noise_sd=1.0,
                  coef_names=None, check=True):
@@ -53,8 +56,8 @@ class _GLM:
                 fail("offset", f"has {rows_text(offset.shape[0])} but X has {n_rows}",
                      "give one offset per row")
         names = check_coef_names(coef_names, n_cols, add_intercept)
-        n_coef = n_cols + int(add_intercept)
-        prior_mean, prior_prec, prior_cov = prior.resolve(n_coef)
+        n_beta = n_cols + int(add_intercept)
+        prior_mean, prior_prec, prior_cov = prior.resolve(n_beta)
         # Conversions (a copy only when needed), then the passes over the data.
         X = design_storage(X)
         y = float_vector("y", y)
@@ -68,12 +71,22 @@ class _GLM:
         self.y = y
         self.offset = offset
         self.add_intercept = add_intercept
-        self.noise_sd = float(noise_sd)
+        self.noise_sd = None if noise_sd is None else float(noise_sd)
         self.n_rows = n_rows
-        self.n_coef = n_coef
-        self.coef_names = names
+        self.n_beta = n_beta
+        # The parameter vector theta = (coefficients, family parameters), priors independent.
+        fam_mean, fam_sd = self._family_prior()
+        self.n_coef = n_beta + len(fam_mean)
+        self.coef_names = names + list(self.family_param_names)
         self.prior = prior
-        self.prior_mean, self.prior_prec, self.prior_cov = prior_mean, prior_prec, prior_cov
+        self.prior_mean = np.concatenate([prior_mean, fam_mean])
+        self.prior_prec = _block_diagonal(prior_prec, 1.0 / np.square(fam_sd))
+        self.prior_cov = _block_diagonal(prior_cov, np.square(fam_sd))
+
+    def _family_prior(self):
+        """Gaussian prior (means, sds) of the family parameters on the sampler's scale; none by
+        default. Called once y is stored."""
+        return np.zeros(0), np.zeros(0)
 
     def _check_response(self, y):
         pass
@@ -104,8 +117,9 @@ class _GLM:
     def glm_data(self):
         """The data as every GLM kernel takes it: ``GLMData(family, X, y, offset, noise_sd,
         intercept)``, built from the arrays the model keeps (no copy)."""
-        return _kernels.GLMData(self.family, self.X, self.y, self.offset, self.noise_sd,
-                                int(self.add_intercept))
+        return _kernels.GLMData(self.family, self.X, self.y, self.offset,
+                                1.0 if self.noise_sd is None else self.noise_sd,
+                                int(self.add_intercept), len(self.family_param_names))
 
     @property
     def prior_arrays(self):
@@ -154,7 +168,7 @@ class _GLM:
     @property
     def feature_names(self):
         """The names of the columns of X (the coefficient names without the intercept)."""
-        return self.coef_names[int(self.add_intercept):]
+        return self.coef_names[int(self.add_intercept):self.n_beta]
 
     def linear_predictor(self, coef, *, with_offset=True):
         """eta_i = x_i . beta (+ intercept) (+ offset_i) for every row, in row blocks, so a
@@ -174,7 +188,7 @@ class _GLM:
         eta = np.empty(self.n_rows)
         for start, xb in row_blocks(self.X):
             stop = start + xb.shape[0]
-            eta[start:stop] = xb @ beta[k:] + (beta[0] if k else 0.0)
+            eta[start:stop] = xb @ beta[k:self.n_beta] + (beta[0] if k else 0.0)
             if with_offset:
                 eta[start:stop] += self.offset[start:stop]
         return eta
@@ -191,7 +205,8 @@ class _GLM:
         -------
         ndarray of shape (n_rows,)
         """
-        return self._draw_response(self.linear_predictor(coef), np.random.default_rng(rng))
+        return self._draw_response(self.linear_predictor(coef), np.random.default_rng(rng),
+                                   coef_vector(coef, self.n_coef))
 
     def with_response(self, y, *, prior=None, family=None, **options):
         """The same design (X, intercept, column names) with another response.
@@ -218,6 +233,8 @@ class _GLM:
         kw = {name: getattr(self, name) for name in self.family_options
               if name in cls.family_options}
         kw.update(options)
+        if kw.get("noise_sd") is not None:   # a known noise sd has no prior
+            kw.pop("noise_sd_prior", None)
         new = cls(self.X, y, prior=self.prior if prior is None else prior,
                   add_intercept=self.add_intercept, coef_names=self.feature_names, check=False,
                   **kw)
@@ -231,5 +248,26 @@ class _GLM:
         full-data passes the check spent. The default accepts every mode, with no pass."""
         return 0
 
-    def _draw_response(self, eta, rng):
+    def _draw_response(self, eta, rng, theta):
         raise NotImplementedError
+
+    def natural_scale(self, draws):
+        """Draws of theta (..., n_coef) with the family parameters on their natural scale
+        (``exp`` of a log noise sd); a copy. See `output_names`."""
+        return np.array(draws, dtype=float)
+
+    @property
+    def output_names(self):
+        """The names of `natural_scale`'s columns."""
+        return list(self.coef_names)
+
+
+def _block_diagonal(a, diag):
+    """[[a, 0], [0, diag(diag)]] (a itself when diag is empty)."""
+    if len(diag) == 0:
+        return a
+    n, k = a.shape[0], len(diag)
+    out = np.zeros((n + k, n + k))
+    out[:n, :n] = a
+    out[n:, n:] = np.diag(diag)
+    return out

@@ -36,7 +36,8 @@ pjit = numba.njit(parallel=True, **_OPTIONS)
 # The parallel set-up passes split the rows into blocks of this size, whatever the thread count.
 BLOCK_ROWS = 4096
 
-GLMData = namedtuple("GLMData", ["family", "X", "y", "offset", "noise_sd", "intercept"])
+GLMData = namedtuple("GLMData", ["family", "X", "y", "offset", "noise_sd", "intercept",
+                                 "n_family"], defaults=(0,))
 GLMData.__doc__ = """The data of a GLM as the kernels take it (numba reads a namedtuple as a typed struct).
 
 Attributes
@@ -47,9 +48,13 @@ X : ndarray of shape (N, p), float32 or float64, C order
     The design matrix as the model keeps it (possibly a memory map; never copied).
 y, offset : ndarray of shape (N,), float64
 noise_sd : float
-    The linear family's known noise sd (unused by the others).
+    The linear family's known noise sd (unused by the others, and when it is sampled).
 intercept : int
     1 when coefficient 0 is an intercept (X has no column of ones), else 0.
+n_family : int, default 0
+    The number of family parameters sampled after the coefficients: 1 for the linear family
+    with unknown noise sd, whose log is ``theta[n_beta]`` (n_beta = p + intercept), else 0.
+    The parameter vector is theta = (coefficients, family parameters).
 """
 
 PriorArrays = namedtuple("PriorArrays", ["mean", "precision"])
@@ -153,11 +158,30 @@ def loglik_diff_eta(family, eta_new, eta_old, y, noise_sd):
 
 @jit
 def row_dot(X, i, w):
-    """sum_j X[i, j] w[j] (w is the slope part of beta, a contiguous view)."""
+    """sum_j X[i, j] w[j] over the p columns of X (w starts at the slopes of the parameter
+    vector, a contiguous view; family parameters may follow them)."""
     acc = 0.0
-    for j in range(w.shape[0]):
+    for j in range(X.shape[1]):
         acc += X[i, j] * w[j]
     return acc
+
+
+@jit
+def scale_of(data, beta):
+    """The noise sd the kernels use: exp(theta[n_beta]) when it is sampled on the log scale
+    (``data.n_family``), else the known ``data.noise_sd``."""
+    if data.n_family:
+        return math.exp(beta[data.X.shape[1] + data.intercept])
+    return data.noise_sd
+
+
+@jit
+def dloglik_phi(eta, y, s):
+    """Derivatives of the linear family's l = -(y - eta)^2 / (2 s^2) - phi - log(2 pi)/2 in
+    phi = log s: (dl/dphi, d2l/(deta dphi), d2l/dphi2) = (r^2 - 1, -2 r / s, -2 r^2), r =
+    (y - eta) / s."""
+    r = (y - eta) / s
+    return r * r - 1.0, -2.0 * r / s, -2.0 * r * r
 
 
 @jit
@@ -190,7 +214,7 @@ def log_norm_const(family, y_i, noise_sd):
 @jit
 def batch_loglik(data, beta, idx, out):
     """out[k] = l_{idx[k]}(beta), constants included."""
-    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, data.noise_sd
+    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, scale_of(data, beta)
     intercept = data.intercept
     for k in range(idx.shape[0]):
         i = idx[k]
@@ -207,8 +231,8 @@ def batch_loglik(data, beta, idx, out):
 def full_loglik(data, beta, with_const, lo, hi):
     """sum_{lo <= i < hi} l_i(beta); with ``with_const`` False the per-datum constants
     (-log s sqrt(2 pi), -log y!) are left out: MCMC needs only differences, and the constants
-    cost a log or lgamma per row."""
-    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, data.noise_sd
+    cost a log or lgamma per row). A sampled noise sd's -log s per row is kept either way."""
+    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, scale_of(data, beta)
     w = beta[data.intercept:]
     b0 = beta[0] if data.intercept else 0.0
     acc = 0.0
@@ -216,6 +240,8 @@ def full_loglik(data, beta, with_const, lo, hi):
         eta = row_dot(X, i, w) + b0 + offset[i]
         c = log_norm_const(family, y[i], noise_sd) if with_const else 0.0
         acc += loglik_eta(family, eta, y[i], noise_sd, c)
+    if data.n_family and not with_const:
+        acc -= (hi - lo) * math.log(noise_sd)
     return acc
 
 
@@ -223,13 +249,14 @@ def full_loglik(data, beta, with_const, lo, hi):
 def full_loglik_grad(data, beta, grad, with_const, lo, hi):
     """sum_{lo <= i < hi} l_i(beta), with the sum of grad l_i(beta) written into ``grad``; one
     pass over the rows (``with_const`` as in `full_loglik`)."""
-    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, data.noise_sd
-    intercept = data.intercept
+    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, scale_of(data, beta)
+    intercept, n_family = data.intercept, data.n_family
     p = X.shape[1]
     w = beta[intercept:]
     b0 = beta[0] if intercept else 0.0
     g = np.zeros(p)
     g0 = 0.0
+    g_phi = 0.0
     acc = 0.0
     for i in range(lo, hi):
         eta = row_dot(X, i, w) + b0 + offset[i]
@@ -239,31 +266,45 @@ def full_loglik_grad(data, beta, grad, with_const, lo, hi):
         g0 += r
         for j in range(p):
             g[j] += r * X[i, j]
+        if n_family:
+            g_phi += dloglik_phi(eta, y[i], noise_sd)[0]
     if intercept:
         grad[0] = g0
-    grad[intercept:] = g
+    grad[intercept:intercept + p] = g
+    if n_family:
+        grad[intercept + p] = g_phi
+        if not with_const:
+            acc -= (hi - lo) * math.log(noise_sd)
     return acc
 
 
 @jit
 def full_hessian(data, beta, hess, lo, hi):
-    """hess = sum_{lo <= i < hi} f''(eta_i) x_i x_i^T (the log-likelihood Hessian; overwritten)."""
-    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, data.noise_sd
-    intercept = data.intercept
+    """hess = sum_{lo <= i < hi} f''(eta_i) x_i x_i^T (the log-likelihood Hessian; overwritten);
+    with a sampled noise sd, also its row and column in phi = log s (`dloglik_phi`)."""
+    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, scale_of(data, beta)
+    intercept, n_family = data.intercept, data.n_family
     p = X.shape[1]
-    d = p + intercept
+    nb = p + intercept
+    d = nb + n_family
     hess[:, :] = 0.0
-    xi = np.empty(d)
+    xi = np.empty(nb)
     for i in range(lo, hi):
-        w = d2loglik_eta(family, linear_predictor(X, offset, intercept, i, beta), y[i], noise_sd)
+        eta = linear_predictor(X, offset, intercept, i, beta)
+        w = d2loglik_eta(family, eta, y[i], noise_sd)
         if intercept:
             xi[0] = 1.0
         for j in range(p):
             xi[j + intercept] = X[i, j]
-        for a in range(d):
+        for a in range(nb):
             wa = w * xi[a]
             for b in range(a + 1):
                 hess[a, b] += wa * xi[b]
+        if n_family:
+            _, l_ep, l_pp = dloglik_phi(eta, y[i], noise_sd)
+            for b in range(nb):
+                hess[nb, b] += l_ep * xi[b]
+            hess[nb, nb] += l_pp
     for a in range(d):
         for b in range(a):
             hess[b, a] = hess[a, b]
@@ -272,8 +313,9 @@ def full_hessian(data, beta, hess, lo, hi):
 @jit
 def full_eta_derivatives(data, beta, eta, f1, f2, lo, hi):
     """eta[i], f1[i], f2[i] = eta_i, f'(eta_i), f''(eta_i) at beta for lo <= i < hi (the row
-    cache of the control variates)."""
-    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, data.noise_sd
+    cache of the control variates; phi's derivatives follow from y, eta and s, see
+    `dloglik_phi`)."""
+    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, scale_of(data, beta)
     intercept = data.intercept
     for i in range(lo, hi):
         e = linear_predictor(X, offset, intercept, i, beta)

@@ -56,8 +56,10 @@ def conjugate_posterior(model):
     GaussianPosterior
     """
     if not getattr(model, "closed_form_posterior", False):
-        fail("model", f"is {type(model).__name__}",
-             "conjugate_posterior needs a LinearRegression (known noise sd)")
+        what = ("a LinearRegression whose noise sd is sampled"
+                if getattr(model, "noise_sd", 0) is None else type(model).__name__)
+        fail("model", f"is {what}",
+             "conjugate_posterior needs a LinearRegression with a known noise_sd")
     d = model.n_coef
     gram = np.zeros((d, d))
     xty = np.zeros(d)

@@ -151,21 +151,36 @@ def find_mode(model, *, start=None, tol=1e-8, max_iter=100):
 def _newton_step(model, precision, grad):
     """The Newton step P^-1 g and the decrement sqrt(g' P^-1 g), solved with P scaled to a unit
     diagonal (Jacobi), so that the Cholesky factorisation sees column correlations, not column
-    scales."""
+    scales.
+
+    The coefficients' block of P is positive definite for every family (the GLM information
+    plus the prior); the family parameters (a log noise sd) can make P indefinite far from the
+    mode, where the scaled matrix is shifted by mu I, mu = 1e-3, 1e-2, ... until it is
+    positive definite (a Hessian modification: Nocedal & Wright 2006, section 3.4), which
+    keeps the step an ascent direction.
+    """
+    nb = model.n_beta
     diag = np.diag(precision)
-    if not np.all(diag > 0):
+    if not np.all(diag[:nb] > 0):
         raise ModeNotFoundError(
             f"mode finding: the posterior has no curvature along coefficient "
-            f"'{model.coef_names[int(np.argmin(diag))]}' (a zero column with a flat prior?); "
-            "drop the column or use a proper prior")
-    s = 1.0 / np.sqrt(diag)
+            f"'{model.coef_names[int(np.argmin(diag[:nb]))]}' (a zero column with a flat "
+            "prior?); drop the column or use a proper prior")
+    s = 1.0 / np.sqrt(np.where(diag > 0, diag, np.maximum(np.abs(diag), 1.0)))
+    scaled = precision * s[:, None] * s[None, :]
     try:
-        chol = np.linalg.cholesky(precision * s[:, None] * s[None, :])
+        np.linalg.cholesky(scaled[:nb, :nb])
     except np.linalg.LinAlgError as exc:
         raise ModeNotFoundError(
             "mode finding: the columns of X are collinear (the Hessian of the log posterior, "
             "scaled to a unit diagonal, is singular); drop the redundant columns or use a "
             "tighter prior") from exc
+    for mu in [0.0] + [10.0**k for k in range(-3, 9)]:
+        try:
+            chol = np.linalg.cholesky(scaled + mu * np.eye(scaled.shape[0]))
+            break
+        except np.linalg.LinAlgError:
+            continue
     z = np.linalg.solve(chol.T, np.linalg.solve(chol, s * grad))
     step = s * z
     return step, float(np.sqrt(max(grad @ step, 0.0)))
