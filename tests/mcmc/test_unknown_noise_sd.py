@@ -172,3 +172,16 @@ def test_mode_matches_the_quadrature_maximum(model, exact_marginals):
     sd = np.sqrt(np.diag(lap.cov))
     # BFGS on a value known to ~N eps: the modes agree to ~1e-5 sd (numpy_glm.mode_sd_tolerance)
     np.testing.assert_allclose((lap.mode - ref) / sd, 0.0, rtol=0, atol=1e-4)
+
+
+def test_calibration_prior_keeps_each_block(model):
+    # calibrate(prior="laplace") builds the model under N(mode, cov) as its prior blocks hold
+    # it: the coefficients' block whole, log s by its own mean and variance. log(exp(m)) and
+    # sqrt(v)^2 round once each: within 2 ulps.
+    lap = tc.find_mode(model)
+    cal = model.with_theta_prior(lap.mode, lap.cov)
+    np.testing.assert_array_equal(cal.prior_cov[:3, :3], lap.cov[:3, :3])
+    assert not np.any(cal.prior_cov[3, :3]) and not np.any(cal.prior_cov[:3, 3])
+    np.testing.assert_allclose(cal.prior_mean, lap.mode, rtol=4 * np.finfo(float).eps)
+    np.testing.assert_allclose(cal.prior_cov[3, 3], lap.cov[3, 3], rtol=4 * np.finfo(float).eps)
+    assert cal.noise_sd is None and cal.n_coef == 4

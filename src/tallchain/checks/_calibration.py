@@ -16,7 +16,7 @@ from scipy import stats
 from .._validation import check_flag, check_seed, fail, is_integer, is_number, positive_int
 from ..executors import check_scheduler, check_workers, run_tasks, worker_count
 from ..mcmc import sample, settings_from, spawn_seeds
-from ..models import GaussianPrior, check_model
+from ..models import check_model
 from ..posterior import find_mode
 
 
@@ -103,11 +103,12 @@ def ecdf_bands(n_replications, n_points, level=0.05, n_sim=2000, seed=0):
     return z, lo, hi
 
 
-def _replicate(model, prior, n_draws, seed, settings, parallel):
+def _replicate(model, n_draws, seed, settings, parallel):
+    # theta drawn from the model's own prior (family parameters on the sampler's scale); the
+    # ranks compare it on the scale the draws are reported on (a monotone map: same ranks)
     rng = np.random.default_rng(seed)
-    mean, _, cov = prior.resolve(model.n_coef)
-    beta = rng.multivariate_normal(mean, cov, method="cholesky")
-    sim = model.with_response(model.simulate(beta, rng), prior=prior)
+    beta = rng.multivariate_normal(model.prior_mean, model.prior_cov, method="cholesky")
+    sim = model.with_response(model.simulate(beta, rng))
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         r = sample(sim, replace(settings, seed=int(rng.integers(2**63))), parallel=parallel)
@@ -115,11 +116,11 @@ def _replicate(model, prior, n_draws, seed, settings, parallel):
     # thin to L draws, equally spaced over the pooled chains (thinning reduces the
     # autocorrelation that would otherwise make the ranks over-dispersed; Talts et al. 2018)
     pick = np.linspace(0, flat.shape[0] - 1, n_draws).round().astype(int)
-    return np.sum(flat[pick] < beta, axis=0)
+    return np.sum(flat[pick] < model.natural_scale(beta), axis=0)
 
 
 def _replicate_task(shared, seed):
-    return _replicate(*shared[:3], seed, *shared[3:])
+    return _replicate(*shared[:2], seed, *shared[2:])
 
 
 # The defaults of a replication's sampler, where calibrate() is given no SamplerSettings.
@@ -208,9 +209,9 @@ def calibrate(model, settings=None, *, replications=100, thinned_draws=99, prior
 
     if prior == "laplace":
         lap = find_mode(model)
-        cal_prior = GaussianPrior(mean=lap.mode, cov=lap.cov)
+        cal_model = model.with_theta_prior(lap.mode, lap.cov)
     else:
-        cal_prior = model.prior
+        cal_model = model
     seeds = spawn_seeds(seed, replications)
     n_workers = worker_count(workers, replications)
     parallel = scheduler == "serial" or (scheduler == "processes" and n_workers == 1)
@@ -218,11 +219,11 @@ def calibrate(model, settings=None, *, replications=100, thinned_draws=99, prior
     def _done(i, rk):
         ranks[i] = rk
 
-    run_tasks(_replicate_task, (model, cal_prior, draws, settings, parallel), seeds,
+    run_tasks(_replicate_task, (cal_model, draws, settings, parallel), seeds,
               scheduler=scheduler,
               workers=n_workers, on_result=_done, progress="calibrate" if progress else None)
     p = rank_uniformity_pvalues(ranks, draws, n_bins)
     passed = bool(np.all(p > level / model.n_coef))
     return CalibrationResult(ranks=ranks, n_draws=draws, p_values=p, n_bins=n_bins, level=level,
-                             passed=passed, coef_names=list(model.coef_names), prior=prior,
+                             passed=passed, coef_names=model.output_names, prior=prior,
                              settings=settings)

@@ -97,6 +97,11 @@ class LinearRegression(_GLM):
             self.noise_sd_prior = (median, log_sd)
         return np.array([np.log(median)]), np.array([log_sd])
 
+    def _family_prior_options(self, means, variances):
+        if self.noise_sd is not None:
+            return {}
+        return {"noise_sd_prior": (float(np.exp(means[0])), float(np.sqrt(variances[0])))}
+
     def _draw_response(self, eta, rng, theta):
         s = self.noise_sd if self.noise_sd is not None else np.exp(theta[self.n_beta])
         return eta + s * rng.standard_normal(eta.shape[0])

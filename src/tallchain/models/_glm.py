@@ -242,6 +242,22 @@ class _GLM:
         new._check_response(new.y)
         return new
 
+    def with_theta_prior(self, mean, cov):
+        """The same model under a Gaussian prior N(mean, cov) on theta, kept as the model's
+        prior blocks can hold it: the coefficients' block as a `GaussianPrior`, each family
+        parameter with its own mean and variance (correlations between the blocks dropped).
+        For calibration against a Laplace approximation."""
+        mean, cov = np.asarray(mean, dtype=float), np.asarray(cov, dtype=float)
+        nb = self.n_beta
+        prior = GaussianPrior(mean=mean[:nb], cov=cov[:nb, :nb])
+        return self.with_response(self.y, prior=prior,
+                                  **self._family_prior_options(mean[nb:], np.diag(cov)[nb:]))
+
+    def _family_prior_options(self, means, variances):
+        """Constructor options that set the family parameters' Gaussian prior on the sampler's
+        scale; none by default."""
+        return {}
+
     def check_mode(self, mode, information):
         """Raise `ModeNotFoundError` when the mode found is not a proper posterior mode for
         this family (``information`` is the negative log-likelihood Hessian there); return the
