@@ -111,9 +111,9 @@ def test_calibrate_accepts_numpy_scalars_and_all_distinct_thinned_draws(linear, 
     picked = []
     real = calibration._replicate
 
-    def spy(model, prior, n_draws, seed, settings, parallel):
+    def spy(model, n_draws, seed, settings, parallel):
         picked.append(n_draws)
-        return real(model, prior, n_draws, seed, settings, parallel)
+        return real(model, n_draws, seed, settings, parallel)
 
     monkeypatch.setattr(calibration, "_replicate", spy)
     res = calibrate(linear, replications=np.int64(3), thinned_draws=np.int64(40),
@@ -306,5 +306,6 @@ def test_find_mode_accepts_numpy_scalars_and_a_start(logistic):
 @pytest.mark.parametrize("bad,name", [(np.zeros((3, 2)), "ndarray"), (None, "NoneType")])
 def test_something_else_than_a_model_is_refused_first(no_expensive_work, run, bad, name):
     with pytest.raises(tc.InputError, match=rf"model: must be a LinearRegression, "
-                       rf"LogisticRegression or PoissonRegression, got {name}"):
+                       rf"LogisticRegression, PoissonRegression or NegativeBinomialRegression, "
+                       rf"got {name}"):
         run(bad)

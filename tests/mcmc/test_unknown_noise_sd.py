@@ -20,6 +20,7 @@ floors. Power: the same test on the model with the noise sd fixed at half its po
 
 import numpy as np
 import pytest
+from ks_runs import run_and_check
 from scipy import integrate, linalg, stats
 
 import tallchain as tc
@@ -130,11 +131,8 @@ def test_model_parameters_and_names(model):
 @pytest.mark.parametrize("method", ["penalty-mala", "mala"])
 def test_draws_match_the_quadrature_posterior(model, exact_marginals, method):
     marginals, _ = exact_marginals
-    result = tc.sample(model, method=method, chains=4, draws=3000, warmup=500, seed=7)
-    assert result.coef_names == ["intercept", "x0", "x1", "noise_sd"]
-    check = ks_check(result.draws, marginals, coef_names=result.coef_names, tolerance=KS_TOL)
-    print(f"\n{method}: KS/floor " + ", ".join(f"{n}={r:.2f}" for n, r in
-                                           zip(check.coef_names, check.ratio)))
+    check = run_and_check(model, marginals, method, seed=7,
+                          names=["intercept", "x0", "x1", "noise_sd"], tolerance=KS_TOL)
     assert check.passed, check.as_dict()
 
 

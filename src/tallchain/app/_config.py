@@ -22,7 +22,7 @@ from .._validation import check_folder, did_you_mean, fail, one_of
 from ..data import ARRAY_SUFFIXES, DataSource, load_array
 from ..exceptions import InputError
 from ..mcmc import SamplerSettings
-from ..models import FAMILIES, GaussianPrior, check_noise_sd, check_noise_sd_prior
+from ..models import FAMILIES, GaussianPrior, check_median_prior, check_noise_sd
 
 
 def _is_number(v):
@@ -50,6 +50,7 @@ SCHEMA = {
     "data": {"x": _STR, "y": _STR, "add_intercept": _BOOL, "standardize": _BOOL,
              "columns": _STR_LIST, "offset": _STR},
     "model": {"family": _STR, "noise_sd": _NUMBER, "noise_sd_prior": _NUMBERS,
+              "dispersion_prior": _NUMBERS,
               "prior_mean": _NUMBERS, "prior_sd": _NUMBERS, "prior_cov": _STR},
     # The fields of tallchain.SamplerSettings, which checks their values and holds the
     # defaults.
@@ -66,7 +67,7 @@ _ARGUMENT_KEYS = {
     **{k: f"sampler.{k}" for k in SCHEMA["sampler"]},
     "prior mean": "model.prior_mean", "prior sd": "model.prior_sd",
     "prior cov": "model.prior_cov", "noise_sd": "model.noise_sd",
-    "noise_sd_prior": "model.noise_sd_prior",
+    "noise_sd_prior": "model.noise_sd_prior", "dispersion_prior": "model.dispersion_prior",
     "X": "data.x", "y": "data.y", "offset": "data.offset", "columns": "data.columns",
     "coef_names": "data.columns", "standardize": "data.standardize",
 }
@@ -109,12 +110,15 @@ class ModelSettings:
 
     Attributes
     ----------
-    family : {"linear", "logistic", "poisson"}
+    family : {"linear", "logistic", "poisson", "negative-binomial"}
     noise_sd : float or None
         Linear models only: the known noise sd (None: sampled).
     noise_sd_prior : tuple of float or None
         Linear models with a sampled noise sd: (median, log_sd) of its log-normal prior (None:
         the model's default, the sd of y and 2).
+    dispersion_prior : tuple of float or None
+        Negative binomial: (median, log_sd) of the dispersion's log-normal prior (None: 1 and
+        2.5).
     prior_mean, prior_sd : float or tuple of float, or None
         None: the prior's default.
     prior_cov : ndarray of shape (n_coef, n_coef) or None
@@ -124,6 +128,7 @@ class ModelSettings:
     family: str
     noise_sd: float | None = None
     noise_sd_prior: tuple | None = None
+    dispersion_prior: tuple | None = None
     prior_mean: float | tuple | None = None
     prior_sd: float | tuple | None = None
     prior_cov: np.ndarray | None = field(default=None, compare=False, repr=False)
@@ -340,7 +345,8 @@ def _show(value):
 
 def _model_settings(table, data_table, base_dir):
     family = one_of("model.family", table["family"], tuple(FAMILIES), "family")
-    for key, given in (("noise_sd", table), ("noise_sd_prior", table), ("offset", data_table)):
+    for key, given in (("noise_sd", table), ("noise_sd_prior", table),
+                       ("dispersion_prior", table), ("offset", data_table)):
         users = [name for name, cls in FAMILIES.items() if key in cls.family_options]
         if key in given and family not in users:
             fail(key, f'is only used by family {" or ".join(map(repr, users))}, not "{family}"'
@@ -352,7 +358,8 @@ def _model_settings(table, data_table, base_dir):
     noise_sd = table.get("noise_sd")
     if noise_sd is not None:
         check_noise_sd(noise_sd)
-    noise_prior = check_noise_sd_prior(table.get("noise_sd_prior"))
+    noise_prior = check_median_prior("noise_sd_prior", table.get("noise_sd_prior"))
+    dispersion_prior = check_median_prior("dispersion_prior", table.get("dispersion_prior"))
     if noise_prior is not None and noise_sd is not None:
         fail("model.noise_sd_prior", "is given with noise_sd (a known noise sd has no prior)",
              "remove noise_sd to sample the noise sd, or remove noise_sd_prior")
@@ -371,7 +378,8 @@ def _model_settings(table, data_table, base_dir):
     if cov is not None:
         GaussianPrior(cov=cov).resolve(cov.shape[0] if cov.ndim else 1)
     return ModelSettings(family=family, noise_sd=None if noise_sd is None else float(noise_sd),
-                         noise_sd_prior=noise_prior, prior_mean=mean, prior_sd=sd, prior_cov=cov)
+                         noise_sd_prior=noise_prior, dispersion_prior=dispersion_prior,
+                         prior_mean=mean, prior_sd=sd, prior_cov=cov)
 
 
 def _tuple_or_float(v):

@@ -19,7 +19,7 @@ def build_model(config):
 
     Returns
     -------
-    model : LinearRegression, LogisticRegression or PoissonRegression
+    model : LinearRegression, LogisticRegression, PoissonRegression or NegativeBinomialRegression
     dataset : tallchain.data.Dataset
     """
     d, m = config.data, config.model
@@ -28,7 +28,7 @@ def build_model(config):
                             add_intercept=d.add_intercept, standardize=d.standardize)
         family = FAMILIES[m.family]
         options = {"noise_sd": m.noise_sd, "noise_sd_prior": m.noise_sd_prior,
-                   "offset": dataset.offset}
+                   "dispersion_prior": m.dispersion_prior, "offset": dataset.offset}
         model = family(dataset.X, dataset.y, prior=m.prior(), add_intercept=d.add_intercept,
                        coef_names=dataset.feature_names,
                        **{k: v for k, v in options.items()

@@ -134,7 +134,7 @@ def calibrate(model, settings=None, *, replications=100, thinned_draws=99, prior
 
     Parameters
     ----------
-    model : LinearRegression, LogisticRegression or PoissonRegression
+    model : LinearRegression, LogisticRegression, PoissonRegression or NegativeBinomialRegression
         Its X (and offset, noise sd) are used; its y only to build the Laplace prior.
     settings : SamplerSettings, optional
         The sampler settings of every replication (their seed is replaced by each

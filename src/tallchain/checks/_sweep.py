@@ -250,7 +250,7 @@ def sweep(model, settings=None, *, methods=("penalty-mala", "sgld"), step_sizes=
 
     Parameters
     ----------
-    model : LinearRegression, LogisticRegression or PoissonRegression
+    model : LinearRegression, LogisticRegression, PoissonRegression or NegativeBinomialRegression
     settings : SamplerSettings, optional
         The settings held fixed across the grid (chains, draws, warmup, seed, control
         variates, ...); its method, step size and batch size are replaced by the grid's.

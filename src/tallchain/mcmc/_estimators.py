@@ -14,7 +14,8 @@ The pure-NumPy references of these kernels, under the same names, are in ``_refe
 
 import math
 
-from ..models._kernels import LINEAR, dloglik_eta, dloglik_phi, jit, loglik_diff_eta, row_dot
+from ..models._family_params import dloglik_phi, family_value, log_norm_phi
+from ..models._kernels import dloglik_eta, jit, loglik_diff_eta, loglik_eta, row_dot
 
 
 @jit
@@ -70,8 +71,8 @@ def cv_gradient_rows(data, rows, delta, idx, out, work):
     2 also subtracts f''*_i (eta_i - eta*_i) x_i, the gradient of the second-order proxy.
     """
     if data.n_family:
-        _cv_gradient_rows_scale(data.X, data.intercept, rows.aux, rows.order, rows.beta_star,
-                                delta, idx, out, work)
+        _cv_gradient_rows_phi(data.family, data.X, data.intercept, rows.aux, rows.order,
+                              rows.beta_star, delta, idx, out, work)
         return
     family, X, noise_sd, intercept = data.family, data.X, data.noise_sd, data.intercept
     aux, proxy_order = rows.aux, rows.order
@@ -162,8 +163,8 @@ def batch_residual_diffs(data, rows, delta_new, delta_old, idx, out, work):
     """out[k] = D_i - [q_i(b') - q_i(b)] for i = idx[k], with D_i = l_i(b') - l_i(b) and
     delta_new = b' - beta*, delta_old = b - beta* (passes and ``work`` as above)."""
     if data.n_family:
-        _residual_diffs_scale(data.X, data.intercept, rows.aux, rows.order, rows.beta_star,
-                              delta_new, delta_old, idx, out, work)
+        _residual_diffs_phi(data.family, data.X, data.intercept, rows.aux, rows.order,
+                            rows.beta_star, delta_new, delta_old, idx, out, work)
         return
     family, X, noise_sd, intercept = data.family, data.X, data.noise_sd, data.intercept
     aux, proxy_order = rows.aux, rows.order
@@ -188,14 +189,16 @@ def batch_residual_diffs(data, rows, delta_new, delta_old, idx, out, work):
         out[k] = loglik_diff_eta(family, e1[k], e0[k], yv[k], noise_sd) - out[k]
 
 
-# The linear family with a sampled noise sd: theta = (beta, phi), phi = log s the last entry.
-# The proxy is second order in (eta, phi) around (eta*_i, phi*); phi's derivatives at the
-# reference point follow from y_i, eta*_i and s* (`dloglik_phi`), so the row record stays
-# (y, eta*, f'*, f''*). ``work`` needs 4 rows here.
+# Families with a sampled parameter: theta = (beta, phi), phi the last entry (log s for the
+# linear family, log alpha for NB2). The proxy is second order in (eta, phi) around
+# (eta*_i, phi*); phi's derivatives at the reference point follow from y_i, eta*_i and the
+# family value v* (`dloglik_phi`), so the row record stays (y, eta*, f'*, f''*). ``work``
+# needs 4 rows here.
 
 
 @jit
-def _cv_gradient_rows_scale(X, intercept, aux, proxy_order, beta_star, delta, idx, out, work):
+def _cv_gradient_rows_phi(family, X, intercept, aux, proxy_order, beta_star, delta, idx, out,
+                          work):
     """`cv_gradient_rows` with phi: out[:nb] as there with the proxy's eta-gradient
     f'* + f''* u + l_ephi* dphi, out[nb] = sum of dl/dphi - (l_phi* + l_ephi* u + l_pp* dphi)."""
     n = idx.shape[0]
@@ -204,8 +207,8 @@ def _cv_gradient_rows_scale(X, intercept, aux, proxy_order, beta_star, delta, id
     w = delta[intercept:]
     d0 = delta[0] if intercept else 0.0
     dphi = delta[nb]
-    s_star = math.exp(beta_star[nb])
-    s = math.exp(beta_star[nb] + dphi)
+    v_star = family_value(family, beta_star[nb])
+    v = family_value(family, beta_star[nb] + dphi)
     eta, yv, r, r_phi = work[0], work[1], work[2], work[3]
     for k in range(n):
         i = idx[k]
@@ -216,7 +219,7 @@ def _cv_gradient_rows_scale(X, intercept, aux, proxy_order, beta_star, delta, id
         c = 0.0
         c_phi = 0.0
         if proxy_order >= 1:
-            l_p, l_ep, l_pp = dloglik_phi(eta_star, yv[k], s_star)
+            l_p, l_ep, l_pp = dloglik_phi(family, eta_star, yv[k], v_star)
             c = aux[i, AUX_F1]
             c_phi = l_p
             if proxy_order >= 2:
@@ -225,8 +228,8 @@ def _cv_gradient_rows_scale(X, intercept, aux, proxy_order, beta_star, delta, id
         r[k] = c
         r_phi[k] = c_phi
     for k in range(n):
-        r[k] = dloglik_eta(LINEAR, eta[k], yv[k], s) - r[k]
-        r_phi[k] = dloglik_phi(eta[k], yv[k], s)[0] - r_phi[k]
+        r[k] = dloglik_eta(family, eta[k], yv[k], v) - r[k]
+        r_phi[k] = dloglik_phi(family, eta[k], yv[k], v)[0] - r_phi[k]
     out[:] = 0.0
     g0 = 0.0
     g_phi = 0.0
@@ -243,8 +246,8 @@ def _cv_gradient_rows_scale(X, intercept, aux, proxy_order, beta_star, delta, id
 
 
 @jit
-def _residual_diffs_scale(X, intercept, aux, proxy_order, beta_star, delta_new, delta_old, idx,
-                          out, work):
+def _residual_diffs_phi(family, X, intercept, aux, proxy_order, beta_star, delta_new, delta_old,
+                        idx, out, work):
     """`batch_residual_diffs` with phi: D_i = l_i(eta', phi') - l_i(eta, phi), and the proxy
     difference with the phi terms l_phi* dphi, l_ephi* u dphi and l_pp* dphi^2 / 2."""
     n = idx.shape[0]
@@ -256,24 +259,25 @@ def _residual_diffs_scale(X, intercept, aux, proxy_order, beta_star, delta_new, 
     d0 = delta_old[0] if intercept else 0.0
     p1 = delta_new[nb]
     p0 = delta_old[nb]
-    s_star = math.exp(beta_star[nb])
-    s1 = math.exp(beta_star[nb] + p1)
-    s0 = math.exp(beta_star[nb] + p0)
+    v_star = family_value(family, beta_star[nb])
+    v1 = family_value(family, beta_star[nb] + p1)
+    v0 = family_value(family, beta_star[nb] + p0)
     e1, e0, yv = work[0], work[1], work[2]
     for k in range(n):
         i, u1, u0, eta_star = _read_pair(X, aux, idx[k], k, p, d1, w1, d0, w0, e1, e0, yv)
         c = 0.0
         if proxy_order >= 1:
-            l_p, l_ep, l_pp = dloglik_phi(eta_star, yv[k], s_star)
+            l_p, l_ep, l_pp = dloglik_phi(family, eta_star, yv[k], v_star)
             c = aux[i, AUX_F1] * (u1 - u0) + l_p * (p1 - p0)
             if proxy_order >= 2:
                 c += (0.5 * aux[i, AUX_F2] * (u1 * u1 - u0 * u0) + l_ep * (u1 * p1 - u0 * p0)
                       + 0.5 * l_pp * (p1 * p1 - p0 * p0))
         out[k] = c
     for k in range(n):
-        r1 = (yv[k] - e1[k]) / s1
-        r0 = (yv[k] - e0[k]) / s0
-        out[k] = -0.5 * (r1 * r1 - r0 * r0) - (p1 - p0) - out[k]
+        y = yv[k]
+        d = (loglik_eta(family, e1[k], y, v1, log_norm_phi(family, y, v1))
+             - loglik_eta(family, e0[k], y, v0, log_norm_phi(family, y, v0)))
+        out[k] = d - out[k]
 
 
 @jit

@@ -25,7 +25,7 @@ def sample(model, settings=None, **options):
 
     Parameters
     ----------
-    model : LinearRegression, LogisticRegression or PoissonRegression
+    model : LinearRegression, LogisticRegression, PoissonRegression or NegativeBinomialRegression
     settings : SamplerSettings, optional
         What defines the chains; the keyword options below that name a setting replace its
         value (``sample(model, settings, seed=2)``). Default: ``SamplerSettings()``.

@@ -8,10 +8,12 @@ from .._validation import fail
 from ..exceptions import ModeNotFoundError
 from . import _kernels
 from ._glm import _GLM
-from ._inputs import check_noise_sd, check_noise_sd_prior, rows_text
+from ._inputs import check_median_prior, check_noise_sd, rows_text
 
-#: The default prior's sd of log sigma (see `LinearRegression`).
+#: The default priors' sds of log sigma (see `LinearRegression`) and of log alpha (see
+#: `NegativeBinomialRegression`).
 DEFAULT_NOISE_LOG_SD = 2.0
+DEFAULT_DISPERSION_LOG_SD = 2.5
 
 
 class LinearRegression(_GLM):
@@ -67,6 +69,7 @@ class LinearRegression(_GLM):
     family = _kernels.LINEAR
     family_name = "linear"
     family_options = ("noise_sd", "noise_sd_prior")
+    family_prior_option = "noise_sd_prior"
 
     def __init__(self, X, y, *, noise_sd=None, noise_sd_prior=None, prior=None,
                  add_intercept=True, coef_names=None, check=True):
@@ -76,48 +79,25 @@ class LinearRegression(_GLM):
                 fail("noise_sd_prior", "is given but the noise sd is known (noise_sd="
                      f"{noise_sd:g})", "leave noise_sd out to sample it, or drop noise_sd_prior")
         else:
-            noise_sd_prior = check_noise_sd_prior(noise_sd_prior)
+            noise_sd_prior = check_median_prior("noise_sd_prior", noise_sd_prior)
         self.noise_sd_prior = noise_sd_prior
         self.family_param_names = () if noise_sd is not None else ("log_noise_sd",)
+        self.family_natural_names = () if noise_sd is not None else ("noise_sd",)
         #: The posterior is Gaussian and known exactly only with a known noise sd.
         self.closed_form_posterior = noise_sd is not None
         super().__init__(X, y, prior=prior, add_intercept=add_intercept, noise_sd=noise_sd,
                          coef_names=coef_names, check=check)
 
-    def _family_prior(self):
-        if self.noise_sd is not None:
-            return np.zeros(0), np.zeros(0)
-        if self.noise_sd_prior is not None:
-            median, log_sd = self.noise_sd_prior
-        else:
-            median, log_sd = float(np.std(self.y)), DEFAULT_NOISE_LOG_SD
-            if not median > 0:
-                fail("y", "is constant, so the default prior of the noise sd (median = the sd "
-                     "of y) is undefined", "give noise_sd_prior=(median, log_sd) or noise_sd")
-            self.noise_sd_prior = (median, log_sd)
-        return np.array([np.log(median)]), np.array([log_sd])
-
-    def _family_prior_options(self, means, variances):
-        if self.noise_sd is not None:
-            return {}
-        return {"noise_sd_prior": (float(np.exp(means[0])), float(np.sqrt(variances[0])))}
+    def _default_family_prior(self):
+        median = float(np.std(self.y))
+        if not median > 0:
+            fail("y", "is constant, so the default prior of the noise sd (median = the sd of y) "
+                 "is undefined", "give noise_sd_prior=(median, log_sd) or noise_sd")
+        return median, DEFAULT_NOISE_LOG_SD
 
     def _draw_response(self, eta, rng, theta):
         s = self.noise_sd if self.noise_sd is not None else np.exp(theta[self.n_beta])
         return eta + s * rng.standard_normal(eta.shape[0])
-
-    def natural_scale(self, draws):
-        out = np.array(draws, dtype=float)
-        if self.noise_sd is None:
-            out[..., self.n_beta] = np.exp(out[..., self.n_beta])
-        return out
-
-    @property
-    def output_names(self):
-        names = list(self.coef_names)
-        if self.noise_sd is None:
-            names[self.n_beta] = "noise_sd"
-        return names
 
 
 class LogisticRegression(_GLM):
@@ -250,11 +230,76 @@ class PoissonRegression(_GLM):
         return rng.poisson(np.exp(np.minimum(eta, 30.0))).astype(float)
 
     def _check_response(self, y):
-        bad = np.flatnonzero((y < 0) | (y != np.floor(y)))
-        if bad.size:
-            fail("y", f"has count {y[bad[0]]:g} in row {bad[0]} ({rows_text(bad.size)} not a count)",
-                 "Poisson regression needs non-negative integer counts")
+        _check_counts(y, "Poisson regression")
+
+
+def _check_counts(y, what):
+    bad = np.flatnonzero((y < 0) | (y != np.floor(y)))
+    if bad.size:
+        fail("y", f"has count {y[bad[0]]:g} in row {bad[0]} ({rows_text(bad.size)} not a count)",
+             f"{what} needs non-negative integer counts")
+
+
+class NegativeBinomialRegression(_GLM):
+    """Negative-binomial (NB2) regression with log link and its dispersion sampled.
+
+    y_i ~ NB with mean mu_i = exp(x_i . beta + offset_i) and variance mu_i + alpha mu_i^2
+    (Cameron & Trivedi 2013, Regression Analysis of Count Data, 2nd ed., section 3.3): counts
+    more variable than Poisson. The dispersion alpha is sampled as log alpha, the last
+    parameter after the coefficients ("log_dispersion" in `coef_names`; results report
+    "dispersion", alpha itself), with the prior ``dispersion_prior``.
+
+    Parameters
+    ----------
+    X : array-like of shape (n_rows, n_features)
+        Design matrix, kept as given when float32/float64 C-ordered (see `PoissonRegression`).
+    y : array-like of shape (n_rows,)
+        Counts: non-negative integers.
+    offset : array-like of shape (n_rows,), optional
+        Log exposure added to the linear predictor (default 0).
+    dispersion_prior : (median, log_sd) or None, default=None
+        Log-normal prior of alpha: log alpha ~ Normal(log median, log_sd^2). None: median 1,
+        log_sd 2.5, weakly informative (95% of the prior mass between alpha = 0.007, nearly
+        Poisson, and 134).
+    prior : GaussianPrior or None, default=None
+        Prior on the coefficients, intercept first; None means ``GaussianPrior()``.
+    add_intercept : bool, default=True
+    coef_names : sequence of str, optional
+    check : bool, default=True
+        Scan X, y, offset for NaN or inf, and y for values that are not counts.
+
+    Raises
+    ------
+    InputError
+        As `PoissonRegression`, and when ``dispersion_prior`` is not a (median > 0,
+        log_sd > 0) pair.
+    """
+
+    family = _kernels.NEG_BINOMIAL
+    family_name = "negative-binomial"
+    family_options = ("offset", "dispersion_prior")
+    family_prior_option = "dispersion_prior"
+    family_param_names = ("log_dispersion",)
+    family_natural_names = ("dispersion",)
+
+    def __init__(self, X, y, *, offset=None, dispersion_prior=None, prior=None,
+                 add_intercept=True, coef_names=None, check=True):
+        self.dispersion_prior = check_median_prior("dispersion_prior", dispersion_prior)
+        super().__init__(X, y, prior=prior, add_intercept=add_intercept, offset=offset,
+                         coef_names=coef_names, check=check)
+
+    def _default_family_prior(self):
+        return 1.0, DEFAULT_DISPERSION_LOG_SD
+
+    def _draw_response(self, eta, rng, theta):
+        # a gamma-mixed Poisson with mean mu and shape r = 1/alpha is NB2 (Cameron & Trivedi)
+        r = np.exp(-theta[self.n_beta])
+        mu = np.exp(np.minimum(eta, 30.0))
+        return rng.poisson(mu * rng.gamma(r, 1.0 / r, size=eta.shape[0])).astype(float)
+
+    def _check_response(self, y):
+        _check_counts(y, "negative-binomial regression")
 
 
 FAMILIES = {"linear": LinearRegression, "logistic": LogisticRegression,
-            "poisson": PoissonRegression}
+            "poisson": PoissonRegression, "negative-binomial": NegativeBinomialRegression}

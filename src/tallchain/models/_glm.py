@@ -24,6 +24,10 @@ class _GLM:
     #: Names of the family parameters sampled after the coefficients, on the sampler's scale
     #: (``("log_noise_sd",)`` for a linear model with unknown noise sd); set per instance.
     family_param_names = ()
+    #: Their names on the natural scale, as results report them (exp of the sampled log).
+    family_natural_names = ()
+    #: The constructor option holding the family parameter's prior (median, log_sd).
+    family_prior_option = None
 
     def __init__(self, X, y, *, prior=None, add_intercept=True, offset=None, noise_sd=1.0,
                  coef_names=None, check=True):
@@ -84,9 +88,17 @@ class _GLM:
         self.prior_cov = _block_diagonal(prior_cov, np.square(fam_sd))
 
     def _family_prior(self):
-        """Gaussian prior (means, sds) of the family parameters on the sampler's scale; none by
-        default. Called once y is stored."""
-        return np.zeros(0), np.zeros(0)
+        """Gaussian prior (means, sds) of the family parameters on the sampler's (log) scale,
+        from the (median, log_sd) in ``family_prior_option`` or the family's default (stored
+        back, so that `with_response` keeps it). Called once y is stored."""
+        if not self.family_param_names:
+            return np.zeros(0), np.zeros(0)
+        value = getattr(self, self.family_prior_option)
+        if value is None:
+            value = self._default_family_prior()
+            setattr(self, self.family_prior_option, value)
+        median, log_sd = value
+        return np.array([np.log(median)]), np.array([log_sd])
 
     def _check_response(self, y):
         pass
@@ -227,7 +239,7 @@ class _GLM:
 
         Returns
         -------
-        LinearRegression, LogisticRegression or PoissonRegression
+        LinearRegression, LogisticRegression, PoissonRegression or NegativeBinomialRegression
         """
         cls = type(self) if family is None else family
         kw = {name: getattr(self, name) for name in self.family_options
@@ -255,8 +267,10 @@ class _GLM:
 
     def _family_prior_options(self, means, variances):
         """Constructor options that set the family parameters' Gaussian prior on the sampler's
-        scale; none by default."""
-        return {}
+        scale."""
+        if not self.family_param_names:
+            return {}
+        return {self.family_prior_option: (float(np.exp(means[0])), float(np.sqrt(variances[0])))}
 
     def check_mode(self, mode, information):
         """Raise `ModeNotFoundError` when the mode found is not a proper posterior mode for
@@ -269,13 +283,15 @@ class _GLM:
 
     def natural_scale(self, draws):
         """Draws of theta (..., n_coef) with the family parameters on their natural scale
-        (``exp`` of a log noise sd); a copy. See `output_names`."""
-        return np.array(draws, dtype=float)
+        (``exp`` of the sampled log); a copy. See `output_names`."""
+        out = np.array(draws, dtype=float)
+        out[..., self.n_beta:] = np.exp(out[..., self.n_beta:])
+        return out
 
     @property
     def output_names(self):
         """The names of `natural_scale`'s columns."""
-        return list(self.coef_names)
+        return list(self.coef_names[:self.n_beta]) + list(self.family_natural_names)
 
 
 def _block_diagonal(a, diag):

@@ -96,17 +96,18 @@ def check_noise_sd(value):
     return value
 
 
-def check_noise_sd_prior(value):
-    """None, or a (median > 0, log_sd > 0) pair of finite numbers as floats."""
+def check_median_prior(field, value):
+    """None, or a (median > 0, log_sd > 0) pair of finite numbers as floats: the log-normal
+    prior of a family parameter (``noise_sd_prior``, ``dispersion_prior``)."""
     if value is None:
         return None
-    fix = "give (median, log_sd), e.g. noise_sd_prior=(2.0, 1.0): log sigma ~ N(log 2, 1)"
+    fix = f"give (median, log_sd), e.g. {field}=(2.0, 1.0): log of it ~ N(log 2, 1)"
     try:
         pair = [float(v) for v in value]
     except (TypeError, ValueError):
-        fail("noise_sd_prior", f"must be two numbers, got {show_value(value)}", fix)
+        fail(field, f"must be two numbers, got {show_value(value)}", fix)
     if len(pair) != 2 or not all(np.isfinite(pair)) or min(pair) <= 0:
-        fail("noise_sd_prior", f"must be two finite numbers > 0, got {show_value(value)}", fix)
+        fail(field, f"must be two finite numbers > 0, got {show_value(value)}", fix)
     return tuple(pair)
 
 

@@ -19,19 +19,16 @@ from collections import namedtuple
 import numba
 import numpy as np
 
-LINEAR = 0
-LOGISTIC = 1
-POISSON = 2
+from ._family_params import (LINEAR, LOGISTIC, NEG_BINOMIAL, OPTIONS, POISSON, dloglik_phi,
+                             family_value, log_norm_phi, nb_d2loglik, nb_dloglik, nb_loglik)
 
 # exp() overflows past this; Poisson gradients saturate here instead of producing inf * 0 = NaN.
 _EXP_MAX = 700.0
 _HALF_LOG_2PI = 0.5 * math.log(2.0 * math.pi)
 
-# Reassociation and contraction let LLVM vectorise the row dot products and sums; NaN and inf
-# keep their IEEE meaning (no "nnan"/"ninf"), which the overflow handling relies on.
-_OPTIONS = dict(cache=True, nogil=True, fastmath={"reassoc", "contract"}, error_model="numpy")
-jit = numba.njit(**_OPTIONS)
-pjit = numba.njit(parallel=True, **_OPTIONS)
+# The options (fastmath without "nnan"/"ninf"/"arcp") are set once, in _family_params.
+jit = numba.njit(**OPTIONS)
+pjit = numba.njit(parallel=True, **OPTIONS)
 
 # The parallel set-up passes split the rows into blocks of this size, whatever the thread count.
 BLOCK_ROWS = 4096
@@ -95,6 +92,8 @@ def loglik_eta(family, eta, y, noise_sd, log_norm):
         return -0.5 * r * r + log_norm
     if family == LOGISTIC:
         return y * eta - softplus(eta)
+    if family == NEG_BINOMIAL:
+        return nb_loglik(eta, y, noise_sd, log_norm)
     # Poisson, log link: y eta - e^eta - log y!  (-inf below float range for eta > ~709)
     return y * eta - math.exp(eta) + log_norm
 
@@ -106,6 +105,8 @@ def dloglik_eta(family, eta, y, noise_sd):
         return (y - eta) / (noise_sd * noise_sd)
     if family == LOGISTIC:
         return y - sigmoid(eta)
+    if family == NEG_BINOMIAL:
+        return nb_dloglik(eta, y, noise_sd)
     return y - math.exp(min(eta, _EXP_MAX))
 
 
@@ -117,6 +118,8 @@ def d2loglik_eta(family, eta, y, noise_sd):
     if family == LOGISTIC:
         s = sigmoid(eta)
         return -s * (1.0 - s)
+    if family == NEG_BINOMIAL:
+        return nb_d2loglik(eta, y, noise_sd)
     return -math.exp(min(eta, _EXP_MAX))
 
 
@@ -168,20 +171,12 @@ def row_dot(X, i, w):
 
 @jit
 def scale_of(data, beta):
-    """The noise sd the kernels use: exp(theta[n_beta]) when it is sampled on the log scale
-    (``data.n_family``), else the known ``data.noise_sd``."""
+    """The family value the rows use (the ``noise_sd`` argument of the per-row functions): from
+    the sampled theta[n_beta] when ``data.n_family`` (`family_value`: a noise sd, or NB2's
+    r = 1/alpha), else the known ``data.noise_sd``."""
     if data.n_family:
-        return math.exp(beta[data.X.shape[1] + data.intercept])
+        return family_value(data.family, beta[data.X.shape[1] + data.intercept])
     return data.noise_sd
-
-
-@jit
-def dloglik_phi(eta, y, s):
-    """Derivatives of the linear family's l = -(y - eta)^2 / (2 s^2) - phi - log(2 pi)/2 in
-    phi = log s: (dl/dphi, d2l/(deta dphi), d2l/dphi2) = (r^2 - 1, -2 r / s, -2 r^2), r =
-    (y - eta) / s."""
-    r = (y - eta) / s
-    return r * r - 1.0, -2.0 * r / s, -2.0 * r * r
 
 
 @jit
@@ -203,6 +198,8 @@ def log_norm_const(family, y_i, noise_sd):
         return -math.log(noise_sd) - _HALF_LOG_2PI
     if family == POISSON:
         return -math.lgamma(y_i + 1.0)
+    if family == NEG_BINOMIAL:
+        return log_norm_phi(family, y_i, noise_sd) - math.lgamma(y_i + 1.0)
     return 0.0
 
 
@@ -231,18 +228,28 @@ def batch_loglik(data, beta, idx, out):
 def full_loglik(data, beta, with_const, lo, hi):
     """sum_{lo <= i < hi} l_i(beta); with ``with_const`` False the per-datum constants
     (-log s sqrt(2 pi), -log y!) are left out: MCMC needs only differences, and the constants
-    cost a log or lgamma per row). A sampled noise sd's -log s per row is kept either way."""
+    cost a log or lgamma per row). The part that depends on a sampled family parameter
+    (`log_norm_phi`) is kept either way."""
     family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, scale_of(data, beta)
+    n_family = data.n_family
     w = beta[data.intercept:]
     b0 = beta[0] if data.intercept else 0.0
     acc = 0.0
     for i in range(lo, hi):
         eta = row_dot(X, i, w) + b0 + offset[i]
-        c = log_norm_const(family, y[i], noise_sd) if with_const else 0.0
+        c = _row_const(family, y[i], noise_sd, with_const, n_family)
         acc += loglik_eta(family, eta, y[i], noise_sd, c)
-    if data.n_family and not with_const:
-        acc -= (hi - lo) * math.log(noise_sd)
     return acc
+
+
+@jit
+def _row_const(family, y_i, v, with_const, n_family):
+    """The row's constant as a pass keeps it: all of it, or only its phi-dependent part."""
+    if with_const:
+        return log_norm_const(family, y_i, v)
+    if n_family:
+        return log_norm_phi(family, y_i, v)
+    return 0.0
 
 
 @jit
@@ -260,21 +267,19 @@ def full_loglik_grad(data, beta, grad, with_const, lo, hi):
     acc = 0.0
     for i in range(lo, hi):
         eta = row_dot(X, i, w) + b0 + offset[i]
-        c = log_norm_const(family, y[i], noise_sd) if with_const else 0.0
+        c = _row_const(family, y[i], noise_sd, with_const, n_family)
         li, r = loglik_and_dloglik_eta(family, eta, y[i], noise_sd, c)
         acc += li
         g0 += r
         for j in range(p):
             g[j] += r * X[i, j]
         if n_family:
-            g_phi += dloglik_phi(eta, y[i], noise_sd)[0]
+            g_phi += dloglik_phi(family, eta, y[i], noise_sd)[0]
     if intercept:
         grad[0] = g0
     grad[intercept:intercept + p] = g
     if n_family:
         grad[intercept + p] = g_phi
-        if not with_const:
-            acc -= (hi - lo) * math.log(noise_sd)
     return acc
 
 
@@ -301,7 +306,7 @@ def full_hessian(data, beta, hess, lo, hi):
             for b in range(a + 1):
                 hess[a, b] += wa * xi[b]
         if n_family:
-            _, l_ep, l_pp = dloglik_phi(eta, y[i], noise_sd)
+            _, l_ep, l_pp = dloglik_phi(family, eta, y[i], noise_sd)
             for b in range(nb):
                 hess[nb, b] += l_ep * xi[b]
             hess[nb, nb] += l_pp

@@ -89,7 +89,7 @@ def find_mode(model, *, start=None, tol=1e-8, max_iter=100):
 
     Parameters
     ----------
-    model : LinearRegression, LogisticRegression or PoissonRegression
+    model : LinearRegression, LogisticRegression, PoissonRegression or NegativeBinomialRegression
     start : array-like of shape (n_coef,), optional
         Finite starting point (default: the prior mean).
     tol : float, default=1e-8

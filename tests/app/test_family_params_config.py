@@ -1,9 +1,11 @@
-"""The config's linear family: noise sd absent means sampled, with the prior the config sets.
+"""Family parameters in the config: the linear family's noise sd (absent means sampled, with the
+prior the config sets) and the negative binomial's dispersion.
 
 Against what: the run's posterior of the noise sd against the residual sd of statsmodels' OLS
 fit on the same data (its MLE of the noise sd; with N = 3000 the posterior sd of the noise sd
 is about s / sqrt(2N) ~ 0.013 s, and the posterior mean lies within a few of those of the MLE);
 the coefficients on the original scale against OLS's estimates in OLS's standard errors.
+The negative binomial's dispersion against statsmodels' NB2 MLE, in posterior sds.
 """
 
 import csv
@@ -63,6 +65,25 @@ def test_linear_without_noise_sd_samples_it(tmp_path, rng, capsys, data_extra):
         assert abs(float(rows[name]["mean"]) - est) < 4 * se
 
 
+def test_negative_binomial_family_samples_the_dispersion(tmp_path, rng):
+    X = rng.standard_normal((N, 2))
+    mu = np.exp(0.5 + X @ [0.4, -0.3])
+    y = rng.poisson(mu * rng.gamma(1 / 0.6, 0.6, N)).astype(float)
+    path = _setup(tmp_path, X, y, model_extra="dispersion_prior = [1.0, 2.5]",
+                  family="negative-binomial")
+    assert cli.main(["run", str(path), "--out", str(tmp_path / "out"), "--quiet"]) == 0
+    with open(tmp_path / "out" / "summary.csv") as fh:
+        rows = {r["coef"]: r for r in csv.DictReader(fh)}
+    assert list(rows) == ["intercept", "x0", "x1", "dispersion"]
+    # reference: statsmodels NegativeBinomial (NB2) MLE of alpha; posterior mean within 4
+    # posterior sds (the prior's pull is a small fraction of one at N = 3000)
+    fit = sm.NegativeBinomial(y, sm.add_constant(X), loglike_method="nb2").fit(
+        method="newton", disp=0, maxiter=100)
+    mean, sd = float(rows["dispersion"]["mean"]), float(rows["dispersion"]["sd"])
+    assert abs(mean - fit.params[3]) < 4 * sd
+    assert abs(mean - 0.0) > 10 * sd   # power: a Poisson fit (alpha = 0) is far off
+
+
 @pytest.mark.parametrize("family, model_extra, pattern", [
     ("linear", "noise_sd = 1.0\nnoise_sd_prior = [1.0, 1.0]",
      r"model\.noise_sd_prior: is given with noise_sd"),
@@ -71,6 +92,8 @@ def test_linear_without_noise_sd_samples_it(tmp_path, rng, capsys, data_extra):
     ("linear", "noise_sd_prior = [1.0, -1.0]",
      r"model\.noise_sd_prior: must be two finite numbers > 0"),
     ("linear", "noise_sd_prior = 3.0", r"model\.noise_sd_prior: must be two numbers"),
+    ("poisson", "dispersion_prior = [1.0, 1.0]",
+     r"dispersion_prior: is only used by family \"negative-binomial\", not \"poisson\""),
 ])
 def test_bad_noise_sd_prior_exits_2(tmp_path, rng, capsys, family, model_extra, pattern):
     X, y = _data(rng)
