@@ -18,7 +18,7 @@ from .checks import calibrate, check_on_twin, ks_check, sweep
 from .exceptions import (ConvergenceWarning, DataWarning, InputError, ModeNotFoundError,
                          NoisyLogRatioWarning, SamplingInterrupted, WorkerDiedError)
 from .mcmc import RunOptions, SampleResult, SamplerSettings, sample
-from .models import (GaussianPrior, LinearRegression, LogisticRegression,
+from .models import (BinomialRegression, GaussianPrior, LinearRegression, LogisticRegression,
                      NegativeBinomialRegression, PoissonRegression)
 from .posterior import GaussianPosterior, LaplaceApproximation, conjugate_posterior, find_mode
 
@@ -34,6 +34,7 @@ __all__ = [
     "LogisticRegression",
     "PoissonRegression",
     "NegativeBinomialRegression",
+    "BinomialRegression",
     # sampling
     "sample",
     "SamplerSettings",

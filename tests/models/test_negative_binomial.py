@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 import statsmodels.api as sm
 from numpy.testing import assert_allclose
-from ks_runs import run_and_check
+from ks_runs import importance_reference, run_and_check
 from scipy import special, stats
 
 import tallchain as tc
@@ -134,17 +134,8 @@ def _log_posterior(X, y, thetas, prior_sd, disp_prior):
 @pytest.fixture(scope="module")
 def is_reference(small_case):
     X, y, model, prior_sd, disp_prior = small_case
-    lap = tc.find_mode(model)
-    rng = np.random.default_rng(5)
-    proposal = stats.multivariate_t(lap.mode, 1.5 * lap.cov, df=5, seed=rng)
-    thetas = proposal.rvs(40_000)
-    logw = _log_posterior(X, y, thetas, prior_sd, disp_prior) - proposal.logpdf(thetas)
-    w = np.exp(logw - logw.max())
-    ess = w.sum() ** 2 / np.sum(w**2)
-    assert ess > 20_000   # a good proposal: the weights do not degenerate
-    natural = thetas.copy()
-    natural[:, 2] = np.exp(natural[:, 2])
-    return natural, w
+    return importance_reference(
+        model, lambda thetas: _log_posterior(X, y, thetas, prior_sd, disp_prior))
 
 
 @pytest.mark.slow

@@ -345,6 +345,9 @@ def _show(value):
 
 def _model_settings(table, data_table, base_dir):
     family = one_of("model.family", table["family"], tuple(FAMILIES), "family")
+    for key in FAMILIES[family].required_options:   # not yet a key of the config
+        fail("model.family", f'"{family}" needs {key} per row, which a config cannot give yet',
+             f"fit it from Python (tallchain.{FAMILIES[family].__name__}(X, y, {key}=...))")
     for key, given in (("noise_sd", table), ("noise_sd_prior", table),
                        ("dispersion_prior", table), ("offset", data_table)):
         users = [name for name, cls in FAMILIES.items() if key in cls.family_options]

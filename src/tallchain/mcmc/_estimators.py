@@ -14,7 +14,7 @@ The pure-NumPy references of these kernels, under the same names, are in ``_refe
 
 import math
 
-from ..models._family_params import dloglik_phi, family_value, log_norm_phi
+from ..models._family_params import BINOMIAL, dloglik_phi, family_value, log_norm_phi
 from ..models._kernels import dloglik_eta, jit, loglik_diff_eta, loglik_eta, row_dot
 
 
@@ -75,7 +75,8 @@ def cv_gradient_rows(data, rows, delta, idx, out, work):
                               rows.beta_star, delta, idx, out, work)
         return
     family, X, noise_sd, intercept = data.family, data.X, data.noise_sd, data.intercept
-    aux, proxy_order = rows.aux, rows.order
+    aux, proxy_order, trials = rows.aux, rows.order, data.trials
+    binomial = family == BINOMIAL
     n = idx.shape[0]
     p = X.shape[1]
     w = delta[intercept:]
@@ -88,6 +89,8 @@ def cv_gradient_rows(data, rows, delta, idx, out, work):
         u = d0 + row_dot(X, i, w)
         eta[k] = aux[i, AUX_ETA] + u
         yv[k] = aux[i, AUX_Y]
+        if binomial:
+            work[3, k] = trials[i]   # the row's trials (work has 4 rows for binomial data)
         c = 0.0
         if proxy_order >= 1:
             c = aux[i, AUX_F1]
@@ -95,7 +98,8 @@ def cv_gradient_rows(data, rows, delta, idx, out, work):
             c += aux[i, AUX_F2] * u
         r[k] = c
     for k in range(n):
-        r[k] = dloglik_eta(family, eta[k], yv[k], noise_sd) - r[k]
+        v = work[3, k] if binomial else noise_sd
+        r[k] = dloglik_eta(family, eta[k], yv[k], v) - r[k]
     g = out[intercept:]
     out[:] = 0.0
     g0 = 0.0
@@ -167,7 +171,8 @@ def batch_residual_diffs(data, rows, delta_new, delta_old, idx, out, work):
                             rows.beta_star, delta_new, delta_old, idx, out, work)
         return
     family, X, noise_sd, intercept = data.family, data.X, data.noise_sd, data.intercept
-    aux, proxy_order = rows.aux, rows.order
+    aux, proxy_order, trials = rows.aux, rows.order, data.trials
+    binomial = family == BINOMIAL
     n = idx.shape[0]
     p = X.shape[1]
     w1 = delta_new[intercept:]
@@ -179,6 +184,8 @@ def batch_residual_diffs(data, rows, delta_new, delta_old, idx, out, work):
     yv = work[2]
     for k in range(n):
         i, u1, u0, eta_star = _read_pair(X, aux, idx[k], k, p, d1, w1, d0, w0, e1, e0, yv)
+        if binomial:
+            work[3, k] = trials[i]
         c = 0.0
         if proxy_order >= 1:
             c = aux[i, AUX_F1] * (u1 - u0)
@@ -186,7 +193,8 @@ def batch_residual_diffs(data, rows, delta_new, delta_old, idx, out, work):
             c += 0.5 * aux[i, AUX_F2] * (u1 * u1 - u0 * u0)
         out[k] = c
     for k in range(n):
-        out[k] = loglik_diff_eta(family, e1[k], e0[k], yv[k], noise_sd) - out[k]
+        v = work[3, k] if binomial else noise_sd
+        out[k] = loglik_diff_eta(family, e1[k], e0[k], yv[k], v) - out[k]
 
 
 # Families with a sampled parameter: theta = (beta, phi), phi the last entry (log s for the

@@ -1,14 +1,14 @@
 """Regression models: GLM families, Gaussian priors, their numba kernels and NumPy references."""
 
 from .._validation import fail
-from ._families import (FAMILIES, LinearRegression, LogisticRegression,
+from ._families import (FAMILIES, BinomialRegression, LinearRegression, LogisticRegression,
                         NegativeBinomialRegression, PoissonRegression)
 from ._glm import _GLM
 from ._inputs import check_median_prior, check_noise_sd
 from ._prior import GaussianPrior
 
 __all__ = ["GaussianPrior", "LinearRegression", "LogisticRegression", "PoissonRegression",
-           "NegativeBinomialRegression", "FAMILIES", "check_model", "check_noise_sd",
+           "NegativeBinomialRegression", "BinomialRegression", "FAMILIES", "check_model", "check_noise_sd",
            "check_median_prior"]
 
 

@@ -1,14 +1,15 @@
-"""Regression families: linear (known noise sd), logistic and Poisson GLMs."""
+"""Regression families: linear (noise sd known or sampled), logistic, binomial with trials,
+Poisson and negative-binomial (NB2) GLMs."""
 
 import numpy as np
 from scipy import special
 
 from .._arrays import symmetrized
-from .._validation import fail
+from .._validation import check_finite_matrix, fail
 from ..exceptions import ModeNotFoundError
 from . import _kernels
 from ._glm import _GLM
-from ._inputs import check_median_prior, check_noise_sd, rows_text
+from ._inputs import check_median_prior, check_noise_sd, float_vector, read_array, rows_text
 
 #: The default priors' sds of log sigma (see `LinearRegression`) and of log alpha (see
 #: `NegativeBinomialRegression`).
@@ -301,5 +302,72 @@ class NegativeBinomialRegression(_GLM):
         _check_counts(y, "negative-binomial regression")
 
 
+class BinomialRegression(_GLM):
+    """Binomial regression with logit link: successes y_i out of m_i trials,
+    y_i ~ Binomial(m_i, 1 / (1 + exp(-x_i . beta))).
+
+    The same posterior as logistic regression on the data expanded to m_i rows of 0/1 labels
+    (y_i ones), in one row per group.
+
+    Parameters
+    ----------
+    X : array-like of shape (n_rows, n_features)
+        Design matrix, kept as given when float32/float64 C-ordered (see `LogisticRegression`).
+    y : array-like of shape (n_rows,)
+        Successes: integers from 0 to the row's trials.
+    trials : array-like of shape (n_rows,)
+        Trials per row: integers >= 1 (required).
+    prior : GaussianPrior or None, default=None
+    add_intercept : bool, default=True
+    coef_names : sequence of str, optional
+    check : bool, default=True
+        Scan X, y, trials for NaN or inf, trials for integers >= 1 and y for integers from 0
+        to the row's trials.
+
+    Raises
+    ------
+    InputError
+        As `LogisticRegression`; also ``trials`` missing, of another length than X has rows,
+        or not integers >= 1, and successes outside [0, trials].
+    """
+
+    family = _kernels.BINOMIAL
+    family_name = "binomial"
+    family_options = ("trials",)
+    required_options = ("trials",)
+
+    def __init__(self, X, y, *, trials=None, prior=None, add_intercept=True, coef_names=None,
+                 check=True):
+        if trials is None:
+            fail("trials", "is missing", "give the number of trials of every row, "
+                 "e.g. BinomialRegression(X, successes, trials=n)")
+        self.trials = float_vector("trials", read_array("trials", trials).reshape(-1))
+        if check:
+            check_finite_matrix("trials", self.trials)
+            bad = np.flatnonzero((self.trials < 1) | (self.trials != np.floor(self.trials)))
+            if bad.size:
+                fail("trials", f"has {self.trials[bad[0]]:g} in row {bad[0]}",
+                     "give whole numbers of trials >= 1")
+        super().__init__(X, y, prior=prior, add_intercept=add_intercept, coef_names=coef_names,
+                         check=check)
+        if self.trials.shape[0] != self.n_rows:
+            fail("trials", f"has {rows_text(self.trials.shape[0])} but X has {self.n_rows}",
+                 "give one number of trials per row")
+
+    def _draw_response(self, eta, rng, theta):
+        return rng.binomial(self.trials.astype(np.int64), special.expit(eta)).astype(float)
+
+    def _check_response(self, y):
+        m = self.trials
+        if m.shape[0] != y.shape[0]:
+            return   # reported by __init__ with the row counts
+        bad = np.flatnonzero((y < 0) | (y > m) | (y != np.floor(y)))
+        if bad.size:
+            fail("y", f"has {y[bad[0]]:g} successes in row {bad[0]} of {m[bad[0]]:g} trials "
+                 f"({rows_text(bad.size)} outside 0..trials)",
+                 "binomial regression needs whole numbers of successes from 0 to the trials")
+
+
 FAMILIES = {"linear": LinearRegression, "logistic": LogisticRegression,
-            "poisson": PoissonRegression, "negative-binomial": NegativeBinomialRegression}
+            "poisson": PoissonRegression, "negative-binomial": NegativeBinomialRegression,
+            "binomial": BinomialRegression}

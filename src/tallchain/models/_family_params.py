@@ -5,6 +5,8 @@ use its value v = family_value(family, phi):
 
 * linear, unknown noise sd: phi = log s, v = s;
   l = -(y - eta)^2 / (2 s^2) - log s - log(2 pi) / 2.
+* binomial with trials (no sampled parameter): the row's value is its number of trials m_i,
+  l = y eta - m log(1 + e^eta) + log C(m, y).
 * negative binomial NB2 (Cameron & Trivedi 2013, Regression Analysis of Count Data, 2nd ed.,
   section 3.3): mean mu = e^eta, variance mu + alpha mu^2; phi = log alpha, v = r = 1/alpha;
   l = lgamma(y + r) - lgamma(r) - lgamma(y + 1) + r log(r / (r + mu)) + y log(mu / (r + mu)).
@@ -21,6 +23,7 @@ LINEAR = 0
 LOGISTIC = 1
 POISSON = 2
 NEG_BINOMIAL = 3
+BINOMIAL = 4
 
 # Reassociation and contraction let LLVM vectorise the row dot products and sums; NaN and inf
 # keep their IEEE meaning (no "nnan"/"ninf"), which the overflow handling relies on.

@@ -28,6 +28,10 @@ class _GLM:
     family_natural_names = ()
     #: The constructor option holding the family parameter's prior (median, log_sd).
     family_prior_option = None
+    #: Trials per row (binomial regression), else None.
+    trials = None
+    #: Constructor options without a default (a binomial model's ``trials``).
+    required_options = ()
 
     def __init__(self, X, y, *, prior=None, add_intercept=True, offset=None, noise_sd=1.0,
                  coef_names=None, check=True):
@@ -131,7 +135,8 @@ class _GLM:
         intercept)``, built from the arrays the model keeps (no copy)."""
         return _kernels.GLMData(self.family, self.X, self.y, self.offset,
                                 1.0 if self.noise_sd is None else self.noise_sd,
-                                int(self.add_intercept), len(self.family_param_names))
+                                int(self.add_intercept), len(self.family_param_names),
+                                _kernels.NO_TRIALS if self.trials is None else self.trials)
 
     @property
     def prior_arrays(self):

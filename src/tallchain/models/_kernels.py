@@ -19,8 +19,9 @@ from collections import namedtuple
 import numba
 import numpy as np
 
-from ._family_params import (LINEAR, LOGISTIC, NEG_BINOMIAL, OPTIONS, POISSON, dloglik_phi,
-                             family_value, log_norm_phi, nb_d2loglik, nb_dloglik, nb_loglik)
+from ._family_params import (BINOMIAL, LINEAR, LOGISTIC, NEG_BINOMIAL, OPTIONS, POISSON,
+                             dloglik_phi, family_value, log_norm_phi, nb_d2loglik, nb_dloglik,
+                             nb_loglik)
 
 # exp() overflows past this; Poisson gradients saturate here instead of producing inf * 0 = NaN.
 _EXP_MAX = 700.0
@@ -33,8 +34,12 @@ pjit = numba.njit(parallel=True, **OPTIONS)
 # The parallel set-up passes split the rows into blocks of this size, whatever the thread count.
 BLOCK_ROWS = 4096
 
+# A binomial model's trials per row; a one-entry placeholder for the other families.
+NO_TRIALS = np.ones(1)
+NO_TRIALS.flags.writeable = False
+
 GLMData = namedtuple("GLMData", ["family", "X", "y", "offset", "noise_sd", "intercept",
-                                 "n_family"], defaults=(0,))
+                                 "n_family", "trials"], defaults=(0, NO_TRIALS))
 GLMData.__doc__ = """The data of a GLM as the kernels take it (numba reads a namedtuple as a typed struct).
 
 Attributes
@@ -52,6 +57,9 @@ n_family : int, default 0
     The number of family parameters sampled after the coefficients: 1 for the linear family
     with unknown noise sd, whose log is ``theta[n_beta]`` (n_beta = p + intercept), else 0.
     The parameter vector is theta = (coefficients, family parameters).
+trials : ndarray of shape (N,) or (1,), float64
+    ``BINOMIAL``: each row's number of trials m_i, the value its row functions take in place
+    of the noise sd (`row_value`); a placeholder otherwise.
 """
 
 PriorArrays = namedtuple("PriorArrays", ["mean", "precision"])
@@ -92,6 +100,8 @@ def loglik_eta(family, eta, y, noise_sd, log_norm):
         return -0.5 * r * r + log_norm
     if family == LOGISTIC:
         return y * eta - softplus(eta)
+    if family == BINOMIAL:
+        return y * eta - noise_sd * softplus(eta) + log_norm
     if family == NEG_BINOMIAL:
         return nb_loglik(eta, y, noise_sd, log_norm)
     # Poisson, log link: y eta - e^eta - log y!  (-inf below float range for eta > ~709)
@@ -105,6 +115,8 @@ def dloglik_eta(family, eta, y, noise_sd):
         return (y - eta) / (noise_sd * noise_sd)
     if family == LOGISTIC:
         return y - sigmoid(eta)
+    if family == BINOMIAL:
+        return y - noise_sd * sigmoid(eta)
     if family == NEG_BINOMIAL:
         return nb_dloglik(eta, y, noise_sd)
     return y - math.exp(min(eta, _EXP_MAX))
@@ -118,6 +130,9 @@ def d2loglik_eta(family, eta, y, noise_sd):
     if family == LOGISTIC:
         s = sigmoid(eta)
         return -s * (1.0 - s)
+    if family == BINOMIAL:
+        s = sigmoid(eta)
+        return -noise_sd * s * (1.0 - s)
     if family == NEG_BINOMIAL:
         return nb_d2loglik(eta, y, noise_sd)
     return -math.exp(min(eta, _EXP_MAX))
@@ -141,12 +156,14 @@ def loglik_diff_eta(family, eta_new, eta_old, y, noise_sd):
     if family == LINEAR:
         # -(1/2s^2)[(y-e')^2 - (y-e)^2] = -(1/2s^2)(e'-e)(e'+e-2y)
         return -0.5 * de * (eta_new + eta_old - 2.0 * y) / (noise_sd * noise_sd)
-    if family == LOGISTIC:
+    if family == LOGISTIC or family == BINOMIAL:
         # softplus(a) - softplus(b) = max(a,0) - max(b,0) + log[(1 + e^-|a|) / (1 + e^-|b|)],
         # one log instead of two: log1p((e^-|a| - e^-|b|) / (1 + e^-|b|)).
         ea = math.exp(-abs(eta_new))
         eb = math.exp(-abs(eta_old))
         soft = (max(eta_new, 0.0) - max(eta_old, 0.0)) + math.log1p((ea - eb) / (1.0 + eb))
+        if family == BINOMIAL:
+            soft *= noise_sd   # the row's trials
         return y * de - soft
     # y de - (e^{eta'} - e^{eta}), with |e^{eta'} - e^{eta}| = e^{hi} (1 - e^{-|de|}) and hi the
     # larger predictor: no 0 * inf when the smaller e^eta underflows, and past exp's range the
@@ -200,7 +217,18 @@ def log_norm_const(family, y_i, noise_sd):
         return -math.lgamma(y_i + 1.0)
     if family == NEG_BINOMIAL:
         return log_norm_phi(family, y_i, noise_sd) - math.lgamma(y_i + 1.0)
+    if family == BINOMIAL:   # log C(m, y), m the row's trials
+        return (math.lgamma(noise_sd + 1.0) - math.lgamma(y_i + 1.0)
+                - math.lgamma(noise_sd - y_i + 1.0))
     return 0.0
+
+
+@jit
+def row_value(family, trials, i, v):
+    """The value row i's functions take: its trials (binomial), else the model's ``v``."""
+    if family == BINOMIAL:
+        return trials[i]
+    return v
 
 
 # ---------------------------------------------------------------------------------------------
@@ -212,11 +240,13 @@ def log_norm_const(family, y_i, noise_sd):
 def batch_loglik(data, beta, idx, out):
     """out[k] = l_{idx[k]}(beta), constants included."""
     family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, scale_of(data, beta)
+    trials = data.trials
     intercept = data.intercept
     for k in range(idx.shape[0]):
         i = idx[k]
         eta = linear_predictor(X, offset, intercept, i, beta)
-        out[k] = loglik_eta(family, eta, y[i], noise_sd, log_norm_const(family, y[i], noise_sd))
+        v = row_value(family, trials, i, noise_sd)
+        out[k] = loglik_eta(family, eta, y[i], v, log_norm_const(family, y[i], v))
 
 
 # ---------------------------------------------------------------------------------------------
@@ -231,14 +261,16 @@ def full_loglik(data, beta, with_const, lo, hi):
     cost a log or lgamma per row). The part that depends on a sampled family parameter
     (`log_norm_phi`) is kept either way."""
     family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, scale_of(data, beta)
+    trials = data.trials
     n_family = data.n_family
     w = beta[data.intercept:]
     b0 = beta[0] if data.intercept else 0.0
     acc = 0.0
     for i in range(lo, hi):
         eta = row_dot(X, i, w) + b0 + offset[i]
-        c = _row_const(family, y[i], noise_sd, with_const, n_family)
-        acc += loglik_eta(family, eta, y[i], noise_sd, c)
+        v = row_value(family, trials, i, noise_sd)
+        c = _row_const(family, y[i], v, with_const, n_family)
+        acc += loglik_eta(family, eta, y[i], v, c)
     return acc
 
 
@@ -257,6 +289,7 @@ def full_loglik_grad(data, beta, grad, with_const, lo, hi):
     """sum_{lo <= i < hi} l_i(beta), with the sum of grad l_i(beta) written into ``grad``; one
     pass over the rows (``with_const`` as in `full_loglik`)."""
     family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, scale_of(data, beta)
+    trials = data.trials
     intercept, n_family = data.intercept, data.n_family
     p = X.shape[1]
     w = beta[intercept:]
@@ -267,8 +300,9 @@ def full_loglik_grad(data, beta, grad, with_const, lo, hi):
     acc = 0.0
     for i in range(lo, hi):
         eta = row_dot(X, i, w) + b0 + offset[i]
-        c = _row_const(family, y[i], noise_sd, with_const, n_family)
-        li, r = loglik_and_dloglik_eta(family, eta, y[i], noise_sd, c)
+        v = row_value(family, trials, i, noise_sd)
+        c = _row_const(family, y[i], v, with_const, n_family)
+        li, r = loglik_and_dloglik_eta(family, eta, y[i], v, c)
         acc += li
         g0 += r
         for j in range(p):
@@ -288,6 +322,7 @@ def full_hessian(data, beta, hess, lo, hi):
     """hess = sum_{lo <= i < hi} f''(eta_i) x_i x_i^T (the log-likelihood Hessian; overwritten);
     with a sampled noise sd, also its row and column in phi = log s (`dloglik_phi`)."""
     family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, scale_of(data, beta)
+    trials = data.trials
     intercept, n_family = data.intercept, data.n_family
     p = X.shape[1]
     nb = p + intercept
@@ -296,7 +331,7 @@ def full_hessian(data, beta, hess, lo, hi):
     xi = np.empty(nb)
     for i in range(lo, hi):
         eta = linear_predictor(X, offset, intercept, i, beta)
-        w = d2loglik_eta(family, eta, y[i], noise_sd)
+        w = d2loglik_eta(family, eta, y[i], row_value(family, trials, i, noise_sd))
         if intercept:
             xi[0] = 1.0
         for j in range(p):
@@ -321,12 +356,14 @@ def full_eta_derivatives(data, beta, eta, f1, f2, lo, hi):
     cache of the control variates; phi's derivatives follow from y, eta and s, see
     `dloglik_phi`)."""
     family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, scale_of(data, beta)
+    trials = data.trials
     intercept = data.intercept
     for i in range(lo, hi):
         e = linear_predictor(X, offset, intercept, i, beta)
         eta[i] = e
-        f1[i] = dloglik_eta(family, e, y[i], noise_sd)
-        f2[i] = d2loglik_eta(family, e, y[i], noise_sd)
+        v = row_value(family, trials, i, noise_sd)
+        f1[i] = dloglik_eta(family, e, y[i], v)
+        f2[i] = d2loglik_eta(family, e, y[i], v)
 
 
 # ---------------------------------------------------------------------------------------------
