@@ -71,12 +71,13 @@ def cv_gradient_rows(data, rows, delta, idx, out, work):
     2 also subtracts f''*_i (eta_i - eta*_i) x_i, the gradient of the second-order proxy.
     """
     if data.n_family:
-        _cv_gradient_rows_phi(data.family, data.X, data.intercept, rows.aux, rows.order,
-                              rows.beta_star, delta, idx, out, work)
+        _cv_gradient_rows_phi(data.family, data.X, data.intercept, data.weights, rows,
+                              delta, idx, out, work)
         return
     family, X, noise_sd, intercept = data.family, data.X, data.noise_sd, data.intercept
-    aux, proxy_order, trials = rows.aux, rows.order, data.trials
+    aux, proxy_order, trials, weights = rows.aux, rows.order, data.trials, data.weights
     binomial = family == BINOMIAL
+    weighted = weights.shape[0] == X.shape[0]
     n = idx.shape[0]
     p = X.shape[1]
     w = delta[intercept:]
@@ -91,6 +92,8 @@ def cv_gradient_rows(data, rows, delta, idx, out, work):
         yv[k] = aux[i, AUX_Y]
         if binomial:
             work[3, k] = trials[i]   # the row's trials (work has 4 rows for binomial data)
+        if weighted:
+            work[4, k] = weights[i]   # its frequency weight (5 rows for weighted data)
         c = 0.0
         if proxy_order >= 1:
             c = aux[i, AUX_F1]
@@ -99,7 +102,8 @@ def cv_gradient_rows(data, rows, delta, idx, out, work):
         r[k] = c
     for k in range(n):
         v = work[3, k] if binomial else noise_sd
-        r[k] = dloglik_eta(family, eta[k], yv[k], v) - r[k]
+        wk = work[4, k] if weighted else 1.0
+        r[k] = wk * dloglik_eta(family, eta[k], yv[k], v) - r[k]
     g = out[intercept:]
     out[:] = 0.0
     g0 = 0.0
@@ -167,12 +171,13 @@ def batch_residual_diffs(data, rows, delta_new, delta_old, idx, out, work):
     """out[k] = D_i - [q_i(b') - q_i(b)] for i = idx[k], with D_i = l_i(b') - l_i(b) and
     delta_new = b' - beta*, delta_old = b - beta* (passes and ``work`` as above)."""
     if data.n_family:
-        _residual_diffs_phi(data.family, data.X, data.intercept, rows.aux, rows.order,
-                            rows.beta_star, delta_new, delta_old, idx, out, work)
+        _residual_diffs_phi(data.family, data.X, data.intercept, data.weights, rows,
+                            delta_new, delta_old, idx, out, work)
         return
     family, X, noise_sd, intercept = data.family, data.X, data.noise_sd, data.intercept
-    aux, proxy_order, trials = rows.aux, rows.order, data.trials
+    aux, proxy_order, trials, weights = rows.aux, rows.order, data.trials, data.weights
     binomial = family == BINOMIAL
+    weighted = weights.shape[0] == X.shape[0]
     n = idx.shape[0]
     p = X.shape[1]
     w1 = delta_new[intercept:]
@@ -186,6 +191,8 @@ def batch_residual_diffs(data, rows, delta_new, delta_old, idx, out, work):
         i, u1, u0, eta_star = _read_pair(X, aux, idx[k], k, p, d1, w1, d0, w0, e1, e0, yv)
         if binomial:
             work[3, k] = trials[i]
+        if weighted:
+            work[4, k] = weights[i]
         c = 0.0
         if proxy_order >= 1:
             c = aux[i, AUX_F1] * (u1 - u0)
@@ -194,7 +201,8 @@ def batch_residual_diffs(data, rows, delta_new, delta_old, idx, out, work):
         out[k] = c
     for k in range(n):
         v = work[3, k] if binomial else noise_sd
-        out[k] = loglik_diff_eta(family, e1[k], e0[k], yv[k], v) - out[k]
+        wk = work[4, k] if weighted else 1.0
+        out[k] = wk * loglik_diff_eta(family, e1[k], e0[k], yv[k], v) - out[k]
 
 
 # Families with a sampled parameter: theta = (beta, phi), phi the last entry (log s for the
@@ -205,10 +213,12 @@ def batch_residual_diffs(data, rows, delta_new, delta_old, idx, out, work):
 
 
 @jit
-def _cv_gradient_rows_phi(family, X, intercept, aux, proxy_order, beta_star, delta, idx, out,
-                          work):
+def _cv_gradient_rows_phi(family, X, intercept, weights, rows, delta, idx, out, work):
     """`cv_gradient_rows` with phi: out[:nb] as there with the proxy's eta-gradient
-    f'* + f''* u + l_ephi* dphi, out[nb] = sum of dl/dphi - (l_phi* + l_ephi* u + l_pp* dphi)."""
+    f'* + f''* u + l_ephi* dphi, out[nb] = sum of dl/dphi - (l_phi* + l_ephi* u + l_pp* dphi),
+    every row's terms times its frequency weight (kept in work[4])."""
+    aux, proxy_order, beta_star = rows.aux, rows.order, rows.beta_star
+    weighted = weights.shape[0] == X.shape[0]
     n = idx.shape[0]
     p = X.shape[1]
     nb = p + intercept
@@ -224,20 +234,23 @@ def _cv_gradient_rows_phi(family, X, intercept, aux, proxy_order, beta_star, del
         eta_star = aux[i, AUX_ETA]
         eta[k] = eta_star + u
         yv[k] = aux[i, AUX_Y]
+        wk = weights[i] if weighted else 1.0
+        work[4, k] = wk
         c = 0.0
         c_phi = 0.0
         if proxy_order >= 1:
             l_p, l_ep, l_pp = dloglik_phi(family, eta_star, yv[k], v_star)
-            c = aux[i, AUX_F1]
-            c_phi = l_p
+            c = aux[i, AUX_F1]   # weighted in the row cache already
+            c_phi = wk * l_p
             if proxy_order >= 2:
-                c += aux[i, AUX_F2] * u + l_ep * dphi
-                c_phi += l_ep * u + l_pp * dphi
+                c += aux[i, AUX_F2] * u + wk * l_ep * dphi
+                c_phi += wk * (l_ep * u + l_pp * dphi)
         r[k] = c
         r_phi[k] = c_phi
     for k in range(n):
-        r[k] = dloglik_eta(family, eta[k], yv[k], v) - r[k]
-        r_phi[k] = dloglik_phi(family, eta[k], yv[k], v)[0] - r_phi[k]
+        wk = work[4, k]
+        r[k] = wk * dloglik_eta(family, eta[k], yv[k], v) - r[k]
+        r_phi[k] = wk * dloglik_phi(family, eta[k], yv[k], v)[0] - r_phi[k]
     out[:] = 0.0
     g0 = 0.0
     g_phi = 0.0
@@ -254,10 +267,13 @@ def _cv_gradient_rows_phi(family, X, intercept, aux, proxy_order, beta_star, del
 
 
 @jit
-def _residual_diffs_phi(family, X, intercept, aux, proxy_order, beta_star, delta_new, delta_old,
-                        idx, out, work):
+def _residual_diffs_phi(family, X, intercept, weights, rows, delta_new, delta_old, idx, out,
+                        work):
     """`batch_residual_diffs` with phi: D_i = l_i(eta', phi') - l_i(eta, phi), and the proxy
-    difference with the phi terms l_phi* dphi, l_ephi* u dphi and l_pp* dphi^2 / 2."""
+    difference with the phi terms l_phi* dphi, l_ephi* u dphi and l_pp* dphi^2 / 2, every
+    row's terms times its frequency weight (kept in work[4])."""
+    aux, proxy_order, beta_star = rows.aux, rows.order, rows.beta_star
+    weighted = weights.shape[0] == X.shape[0]
     n = idx.shape[0]
     p = X.shape[1]
     nb = p + intercept
@@ -273,19 +289,21 @@ def _residual_diffs_phi(family, X, intercept, aux, proxy_order, beta_star, delta
     e1, e0, yv = work[0], work[1], work[2]
     for k in range(n):
         i, u1, u0, eta_star = _read_pair(X, aux, idx[k], k, p, d1, w1, d0, w0, e1, e0, yv)
+        wk = weights[i] if weighted else 1.0
+        work[4, k] = wk
         c = 0.0
         if proxy_order >= 1:
             l_p, l_ep, l_pp = dloglik_phi(family, eta_star, yv[k], v_star)
-            c = aux[i, AUX_F1] * (u1 - u0) + l_p * (p1 - p0)
+            c = aux[i, AUX_F1] * (u1 - u0) + wk * l_p * (p1 - p0)   # F1, F2: weighted
             if proxy_order >= 2:
-                c += (0.5 * aux[i, AUX_F2] * (u1 * u1 - u0 * u0) + l_ep * (u1 * p1 - u0 * p0)
-                      + 0.5 * l_pp * (p1 * p1 - p0 * p0))
+                c += (0.5 * aux[i, AUX_F2] * (u1 * u1 - u0 * u0)
+                      + wk * (l_ep * (u1 * p1 - u0 * p0) + 0.5 * l_pp * (p1 * p1 - p0 * p0)))
         out[k] = c
     for k in range(n):
         y = yv[k]
         d = (loglik_eta(family, e1[k], y, v1, log_norm_phi(family, y, v1))
              - loglik_eta(family, e0[k], y, v0, log_norm_phi(family, y, v0)))
-        out[k] = d - out[k]
+        out[k] = work[4, k] * d - out[k]
 
 
 @jit

@@ -50,6 +50,9 @@ class LinearRegression(_GLM):
     coef_names : sequence of str, optional
         Distinct names of the columns of X, one per column (default x0, x1, ...); with an
         intercept, none may be "intercept".
+    weights : array-like of shape (n_rows,), optional
+        Frequency weights (every family takes them): row i counts as weights[i] rows, the
+        same posterior as the data with each row repeated that many times. Finite and >= 0.
     check : bool, default=True
         Scan X, y for NaN or inf. False skips these passes over the data (for data already
         checked); the argument checks always run.
@@ -73,7 +76,7 @@ class LinearRegression(_GLM):
     family_prior_option = "noise_sd_prior"
 
     def __init__(self, X, y, *, noise_sd=None, noise_sd_prior=None, prior=None,
-                 add_intercept=True, coef_names=None, check=True):
+                 add_intercept=True, coef_names=None, weights=None, check=True):
         if noise_sd is not None:
             noise_sd = check_noise_sd(noise_sd)
             if noise_sd_prior is not None:
@@ -87,10 +90,12 @@ class LinearRegression(_GLM):
         #: The posterior is Gaussian and known exactly only with a known noise sd.
         self.closed_form_posterior = noise_sd is not None
         super().__init__(X, y, prior=prior, add_intercept=add_intercept, noise_sd=noise_sd,
-                         coef_names=coef_names, check=check)
+                         coef_names=coef_names, weights=weights, check=check)
 
     def _default_family_prior(self):
-        median = float(np.std(self.y))
+        w = None if self.weights is None else self.weights
+        mean = np.average(self.y, weights=w)
+        median = float(np.sqrt(np.average((self.y - mean) ** 2, weights=w)))
         if not median > 0:
             fail("y", "is constant, so the default prior of the noise sd (median = the sd of y) "
                  "is undefined", "give noise_sd_prior=(median, log_sd) or noise_sd")
@@ -138,9 +143,10 @@ class LogisticRegression(_GLM):
     family = _kernels.LOGISTIC
     family_name = "logistic"
 
-    def __init__(self, X, y, *, prior=None, add_intercept=True, coef_names=None, check=True):
+    def __init__(self, X, y, *, prior=None, add_intercept=True, coef_names=None, weights=None,
+                 check=True):
         super().__init__(X, y, prior=prior, add_intercept=add_intercept, coef_names=coef_names,
-                         check=check)
+                         weights=weights, check=check)
 
     def _draw_response(self, eta, rng, theta):
         return (rng.random(eta.shape[0]) < special.expit(eta)).astype(float)
@@ -222,9 +228,9 @@ class PoissonRegression(_GLM):
     family_options = ("offset",)
 
     def __init__(self, X, y, *, offset=None, prior=None, add_intercept=True, coef_names=None,
-                 check=True):
+                 weights=None, check=True):
         super().__init__(X, y, prior=prior, add_intercept=add_intercept, offset=offset,
-                         coef_names=coef_names, check=check)
+                         coef_names=coef_names, weights=weights, check=check)
 
     def _draw_response(self, eta, rng, theta):
         # exp(30) ~ 1e13 counts: far beyond any data, and within the sampler's float range.
@@ -284,10 +290,10 @@ class NegativeBinomialRegression(_GLM):
     family_natural_names = ("dispersion",)
 
     def __init__(self, X, y, *, offset=None, dispersion_prior=None, prior=None,
-                 add_intercept=True, coef_names=None, check=True):
+                 add_intercept=True, coef_names=None, weights=None, check=True):
         self.dispersion_prior = check_median_prior("dispersion_prior", dispersion_prior)
         super().__init__(X, y, prior=prior, add_intercept=add_intercept, offset=offset,
-                         coef_names=coef_names, check=check)
+                         coef_names=coef_names, weights=weights, check=check)
 
     def _default_family_prior(self):
         return 1.0, DEFAULT_DISPERSION_LOG_SD
@@ -337,7 +343,7 @@ class BinomialRegression(_GLM):
     required_options = ("trials",)
 
     def __init__(self, X, y, *, trials=None, prior=None, add_intercept=True, coef_names=None,
-                 check=True):
+                 weights=None, check=True):
         if trials is None:
             fail("trials", "is missing", "give the number of trials of every row, "
                  "e.g. BinomialRegression(X, successes, trials=n)")
@@ -349,7 +355,7 @@ class BinomialRegression(_GLM):
                 fail("trials", f"has {self.trials[bad[0]]:g} in row {bad[0]}",
                      "give whole numbers of trials >= 1")
         super().__init__(X, y, prior=prior, add_intercept=add_intercept, coef_names=coef_names,
-                         check=check)
+                         weights=weights, check=check)
         if self.trials.shape[0] != self.n_rows:
             fail("trials", f"has {rows_text(self.trials.shape[0])} but X has {self.n_rows}",
                  "give one number of trials per row")

@@ -34,7 +34,7 @@ class _GLM:
     required_options = ()
 
     def __init__(self, X, y, *, prior=None, add_intercept=True, offset=None, noise_sd=1.0,
-                 coef_names=None, check=True):
+                 coef_names=None, weights=None, check=True):
         # Cheap checks first: nothing below scans or copies the data until they have passed.
         add_intercept = check_flag("add_intercept", add_intercept)
         check = check_flag("check", check)
@@ -63,6 +63,11 @@ class _GLM:
             if offset.shape[0] != n_rows:
                 fail("offset", f"has {rows_text(offset.shape[0])} but X has {n_rows}",
                      "give one offset per row")
+        if weights is not None:
+            weights = read_array("weights", weights).reshape(-1)
+            if weights.shape[0] != n_rows:
+                fail("weights", f"has {rows_text(weights.shape[0])} but X has {n_rows}",
+                     "give one frequency weight per row")
         names = check_coef_names(coef_names, n_cols, add_intercept)
         n_beta = n_cols + int(add_intercept)
         prior_mean, prior_prec, prior_cov = prior.resolve(n_beta)
@@ -70,6 +75,14 @@ class _GLM:
         X = design_storage(X)
         y = float_vector("y", y)
         offset = np.zeros(n_rows) if offset is None else float_vector("offset", offset)
+        if weights is not None:
+            weights = float_vector("weights", weights)
+            check_finite_matrix("weights", weights)
+            bad = np.flatnonzero(weights < 0)
+            if bad.size:
+                fail("weights", f"has {weights[bad[0]]:g} in row {bad[0]}",
+                     "give frequency weights >= 0 (how many times each row counts)")
+        self.weights = weights
         if check:
             check_finite_matrix("X", X)
             check_finite_matrix("y", y)
@@ -136,7 +149,8 @@ class _GLM:
         return _kernels.GLMData(self.family, self.X, self.y, self.offset,
                                 1.0 if self.noise_sd is None else self.noise_sd,
                                 int(self.add_intercept), len(self.family_param_names),
-                                _kernels.NO_TRIALS if self.trials is None else self.trials)
+                                _kernels.NO_TRIALS if self.trials is None else self.trials,
+                                _kernels.NO_WEIGHTS if self.weights is None else self.weights)
 
     @property
     def prior_arrays(self):
@@ -253,8 +267,8 @@ class _GLM:
         if kw.get("noise_sd") is not None:   # a known noise sd has no prior
             kw.pop("noise_sd_prior", None)
         new = cls(self.X, y, prior=self.prior if prior is None else prior,
-                  add_intercept=self.add_intercept, coef_names=self.feature_names, check=False,
-                  **kw)
+                  add_intercept=self.add_intercept, coef_names=self.feature_names,
+                  weights=self.weights, check=False, **kw)
         check_finite_matrix("y", new.y)
         new._check_response(new.y)
         return new

@@ -34,12 +34,15 @@ pjit = numba.njit(parallel=True, **OPTIONS)
 # The parallel set-up passes split the rows into blocks of this size, whatever the thread count.
 BLOCK_ROWS = 4096
 
-# A binomial model's trials per row; a one-entry placeholder for the other families.
+# A binomial model's trials per row, and frequency weights per row; one-entry placeholders
+# when absent (a model has at least 2 rows, so the length tells them apart).
 NO_TRIALS = np.ones(1)
 NO_TRIALS.flags.writeable = False
+NO_WEIGHTS = NO_TRIALS
 
 GLMData = namedtuple("GLMData", ["family", "X", "y", "offset", "noise_sd", "intercept",
-                                 "n_family", "trials"], defaults=(0, NO_TRIALS))
+                                 "n_family", "trials", "weights"],
+                     defaults=(0, NO_TRIALS, NO_WEIGHTS))
 GLMData.__doc__ = """The data of a GLM as the kernels take it (numba reads a namedtuple as a typed struct).
 
 Attributes
@@ -60,6 +63,9 @@ n_family : int, default 0
 trials : ndarray of shape (N,) or (1,), float64
     ``BINOMIAL``: each row's number of trials m_i, the value its row functions take in place
     of the noise sd (`row_value`); a placeholder otherwise.
+weights : ndarray of shape (N,) or (1,), float64
+    Frequency weights: row i's log-likelihood counts weights[i] times (`row_weight`); a
+    one-entry placeholder when the model has none.
 """
 
 PriorArrays = namedtuple("PriorArrays", ["mean", "precision"])
@@ -224,6 +230,14 @@ def log_norm_const(family, y_i, noise_sd):
 
 
 @jit
+def row_weight(weights, n_rows, i):
+    """Row i's frequency weight: weights[i], or 1 when the model has none (placeholder)."""
+    if weights.shape[0] == n_rows:
+        return weights[i]
+    return 1.0
+
+
+@jit
 def row_value(family, trials, i, v):
     """The value row i's functions take: its trials (binomial), else the model's ``v``."""
     if family == BINOMIAL:
@@ -240,13 +254,14 @@ def row_value(family, trials, i, v):
 def batch_loglik(data, beta, idx, out):
     """out[k] = l_{idx[k]}(beta), constants included."""
     family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, scale_of(data, beta)
-    trials = data.trials
+    trials, weights, n_rows = data.trials, data.weights, data.X.shape[0]
     intercept = data.intercept
     for k in range(idx.shape[0]):
         i = idx[k]
         eta = linear_predictor(X, offset, intercept, i, beta)
         v = row_value(family, trials, i, noise_sd)
-        out[k] = loglik_eta(family, eta, y[i], v, log_norm_const(family, y[i], v))
+        out[k] = row_weight(weights, n_rows, i) * loglik_eta(family, eta, y[i], v,
+                                                             log_norm_const(family, y[i], v))
 
 
 # ---------------------------------------------------------------------------------------------
@@ -261,7 +276,7 @@ def full_loglik(data, beta, with_const, lo, hi):
     cost a log or lgamma per row). The part that depends on a sampled family parameter
     (`log_norm_phi`) is kept either way."""
     family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, scale_of(data, beta)
-    trials = data.trials
+    trials, weights, n_rows = data.trials, data.weights, data.X.shape[0]
     n_family = data.n_family
     w = beta[data.intercept:]
     b0 = beta[0] if data.intercept else 0.0
@@ -270,7 +285,7 @@ def full_loglik(data, beta, with_const, lo, hi):
         eta = row_dot(X, i, w) + b0 + offset[i]
         v = row_value(family, trials, i, noise_sd)
         c = _row_const(family, y[i], v, with_const, n_family)
-        acc += loglik_eta(family, eta, y[i], v, c)
+        acc += row_weight(weights, n_rows, i) * loglik_eta(family, eta, y[i], v, c)
     return acc
 
 
@@ -289,7 +304,7 @@ def full_loglik_grad(data, beta, grad, with_const, lo, hi):
     """sum_{lo <= i < hi} l_i(beta), with the sum of grad l_i(beta) written into ``grad``; one
     pass over the rows (``with_const`` as in `full_loglik`)."""
     family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, scale_of(data, beta)
-    trials = data.trials
+    trials, weights, n_rows = data.trials, data.weights, data.X.shape[0]
     intercept, n_family = data.intercept, data.n_family
     p = X.shape[1]
     w = beta[intercept:]
@@ -303,12 +318,15 @@ def full_loglik_grad(data, beta, grad, with_const, lo, hi):
         v = row_value(family, trials, i, noise_sd)
         c = _row_const(family, y[i], v, with_const, n_family)
         li, r = loglik_and_dloglik_eta(family, eta, y[i], v, c)
+        wi = row_weight(weights, n_rows, i)
+        li *= wi
+        r *= wi
         acc += li
         g0 += r
         for j in range(p):
             g[j] += r * X[i, j]
         if n_family:
-            g_phi += dloglik_phi(family, eta, y[i], noise_sd)[0]
+            g_phi += wi * dloglik_phi(family, eta, y[i], noise_sd)[0]
     if intercept:
         grad[0] = g0
     grad[intercept:intercept + p] = g
@@ -322,7 +340,7 @@ def full_hessian(data, beta, hess, lo, hi):
     """hess = sum_{lo <= i < hi} f''(eta_i) x_i x_i^T (the log-likelihood Hessian; overwritten);
     with a sampled noise sd, also its row and column in phi = log s (`dloglik_phi`)."""
     family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, scale_of(data, beta)
-    trials = data.trials
+    trials, weights, n_rows = data.trials, data.weights, data.X.shape[0]
     intercept, n_family = data.intercept, data.n_family
     p = X.shape[1]
     nb = p + intercept
@@ -331,7 +349,8 @@ def full_hessian(data, beta, hess, lo, hi):
     xi = np.empty(nb)
     for i in range(lo, hi):
         eta = linear_predictor(X, offset, intercept, i, beta)
-        w = d2loglik_eta(family, eta, y[i], row_value(family, trials, i, noise_sd))
+        wi = row_weight(weights, n_rows, i)
+        w = wi * d2loglik_eta(family, eta, y[i], row_value(family, trials, i, noise_sd))
         if intercept:
             xi[0] = 1.0
         for j in range(p):
@@ -343,8 +362,8 @@ def full_hessian(data, beta, hess, lo, hi):
         if n_family:
             _, l_ep, l_pp = dloglik_phi(family, eta, y[i], noise_sd)
             for b in range(nb):
-                hess[nb, b] += l_ep * xi[b]
-            hess[nb, nb] += l_pp
+                hess[nb, b] += wi * l_ep * xi[b]
+            hess[nb, nb] += wi * l_pp
     for a in range(d):
         for b in range(a):
             hess[b, a] = hess[a, b]
@@ -354,16 +373,17 @@ def full_hessian(data, beta, hess, lo, hi):
 def full_eta_derivatives(data, beta, eta, f1, f2, lo, hi):
     """eta[i], f1[i], f2[i] = eta_i, f'(eta_i), f''(eta_i) at beta for lo <= i < hi (the row
     cache of the control variates; phi's derivatives follow from y, eta and s, see
-    `dloglik_phi`)."""
+    `dloglik_phi`). f1 and f2 include the row's frequency weight."""
     family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, scale_of(data, beta)
-    trials = data.trials
+    trials, weights, n_rows = data.trials, data.weights, data.X.shape[0]
     intercept = data.intercept
     for i in range(lo, hi):
         e = linear_predictor(X, offset, intercept, i, beta)
         eta[i] = e
         v = row_value(family, trials, i, noise_sd)
-        f1[i] = dloglik_eta(family, e, y[i], v)
-        f2[i] = d2loglik_eta(family, e, y[i], v)
+        wi = row_weight(weights, n_rows, i)
+        f1[i] = wi * dloglik_eta(family, e, y[i], v)
+        f2[i] = wi * d2loglik_eta(family, e, y[i], v)
 
 
 # ---------------------------------------------------------------------------------------------

@@ -67,8 +67,9 @@ def conjugate_posterior(model):
         yb = model.y[start:start + xb.shape[0]] - model.offset[start:start + xb.shape[0]]
         if model.add_intercept:
             xb = np.column_stack([np.ones(xb.shape[0]), xb])
-        gram += xb.T @ xb
-        xty += xb.T @ yb
+        wx = xb if model.weights is None else xb * model.weights[start:start + xb.shape[0], None]
+        gram += wx.T @ xb      # frequency weights: X' W X and X' W y
+        xty += wx.T @ yb
     s2 = model.noise_sd**2
     precision = model.prior_prec + gram / s2
     cov = spd_inverse(precision)
