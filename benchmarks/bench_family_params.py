@@ -50,7 +50,7 @@ def main():
             kw = dict(method=method, chains=2, draws=draws, warmup=500, seed=1, parallel=False)
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
-                tc.sample(model, **{**kw, "draws": 10, "warmup": 20})   # compile, untimed
+                tc.sample(model, **{**kw, "draws": 10, "warmup": 50})   # compile, untimed
                 result = tc.sample(model, **kw)
                 ess = float(np.min(ess_bulk(result.draws)))
             ess_s[method] = ess / result.sampling_seconds
