@@ -130,3 +130,16 @@ def test_power_dropping_the_weights_fails(weighted_linear):
     check = run_and_check(tc.LinearRegression(X, y, noise_sd=1.3), exact, "penalty-mala",
                           seed=17, names=["intercept", "x0", "x1"])
     assert not check.passed and check.ratio.max() > 1.5
+
+
+def test_sweep_reference_cache_key_covers_the_weights(rng):
+    # A sweep reuses its reference run for a model with the same fingerprint: models that
+    # differ only in their weights must not share it (power: the same weights do).
+    from tallchain.checks._sweep import model_fingerprint
+    X, w, _, ys = _data(rng)
+    a = tc.LogisticRegression(X, ys["logistic"], weights=w)
+    assert model_fingerprint(a) != model_fingerprint(tc.LogisticRegression(X, ys["logistic"]))
+    assert model_fingerprint(a) != model_fingerprint(
+        tc.LogisticRegression(X, ys["logistic"], weights=w + 1))
+    assert model_fingerprint(a) == model_fingerprint(
+        tc.LogisticRegression(X, ys["logistic"], weights=w.copy()))

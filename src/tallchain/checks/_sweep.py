@@ -95,6 +95,9 @@ def model_fingerprint(model):
         h.update(np.ascontiguousarray(block).tobytes())
     for arr in (model.y, model.offset, model.prior_mean, model.prior_prec):
         h.update(np.ascontiguousarray(arr).tobytes())
+    for name in ("weights", "trials"):   # per-row data of some models: part of the likelihood
+        arr = getattr(model, name)
+        h.update(name.encode() + (b"-" if arr is None else np.ascontiguousarray(arr).tobytes()))
     return h.hexdigest()[:16]
 
 
