@@ -8,7 +8,9 @@ compared in posterior-sd units to within `numpy_glm.mode_sd_tolerance` (how clos
 minimiser can place the mode), precisions after scaling to unit diagonal (the raw precision
 spans 1e-1..1e15, so an absolute tolerance would hide the small entries).
 Power: scipy's L-BFGS-B on the same log posterior and gradient (what find_mode used before)
-misses the same reference by orders of magnitude more than the tolerance.
+misses the same reference by orders of magnitude more than the tolerance (on these data; on
+other draws of the same design L-BFGS can converge, so this is a check of the test, not a
+claim that L-BFGS always fails).
 """
 
 import numpy as np
@@ -23,7 +25,8 @@ import tallchain as tc
 FLAT = tc.GaussianPrior(sd=1e6)
 N = 2000
 NAMES = ["income", "share", "z"]
-# Fewest and most full-data passes a fit below may take (measured: 11-17, see DEVELOPERS.md).
+# Most full-data passes a fit below may take (measured with the suite's seed: logistic 11,
+# Poisson 18, its first steps halved by the line search where exp overflows).
 MAX_PASSES = 25
 
 
@@ -97,9 +100,9 @@ def test_raw_scale_linear_matches_statsmodels_ols(rng):
     lap = tc.find_mode(model)
     assert_matches(lap.mode, lap.precision, fit.params, fit.cov_params() / fit.scale * 0.49,
                    model)
-    # The log posterior is quadratic: one Newton step lands on the mode (3 passes: gradient at
-    # the start and at the step, Hessian at each).
-    assert lap.n_evaluations <= 5
+    # The log posterior is quadratic: one Newton step lands on the mode (4 passes: gradient and
+    # Hessian at the start and at the step).
+    assert lap.n_evaluations == 4
 
 
 def test_iterations_do_not_depend_on_column_scale(rng):
