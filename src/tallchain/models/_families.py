@@ -125,6 +125,8 @@ class LogisticRegression(_GLM):
     coef_names : sequence of str, optional
         Distinct names of the columns of X, one per column (default x0, x1, ...); with an
         intercept, none may be "intercept".
+    weights : array-like of shape (n_rows,), optional
+        Frequency weights: row i counts as weights[i] rows (finite, >= 0).
     check : bool, default=True
         Scan X, y for NaN or inf, and y for labels other than 0 and 1. False skips these passes
         over the data (for data already checked); the argument checks always run.
@@ -208,6 +210,8 @@ class PoissonRegression(_GLM):
     coef_names : sequence of str, optional
         Distinct names of the columns of X, one per column (default x0, x1, ...); with an
         intercept, none may be "intercept".
+    weights : array-like of shape (n_rows,), optional
+        Frequency weights: row i counts as weights[i] rows (finite, >= 0).
     check : bool, default=True
         Scan X, y, offset for NaN or inf, and y for values that are not counts. False skips
         these passes over the data (for data already checked); the argument checks always run.
@@ -272,6 +276,8 @@ class NegativeBinomialRegression(_GLM):
         Prior on the coefficients, intercept first; None means ``GaussianPrior()``.
     add_intercept : bool, default=True
     coef_names : sequence of str, optional
+    weights : array-like of shape (n_rows,), optional
+        Frequency weights: row i counts as weights[i] rows (finite, >= 0).
     check : bool, default=True
         Scan X, y, offset for NaN or inf, and y for values that are not counts.
 
@@ -326,6 +332,8 @@ class BinomialRegression(_GLM):
     prior : GaussianPrior or None, default=None
     add_intercept : bool, default=True
     coef_names : sequence of str, optional
+    weights : array-like of shape (n_rows,), optional
+        Frequency weights: row i counts as weights[i] rows (finite, >= 0).
     check : bool, default=True
         Scan X, y, trials for NaN or inf, trials for integers >= 1 and y for integers from 0
         to the row's trials.
