@@ -4,7 +4,7 @@ Logistic regression, d = 10 coefficients (9 features + intercept), invented data
 the script measures, side by side in one run:
 
 * one full-data pass (log-likelihood + gradient), the unit for set-up costs;
-* set-up: mode finding (L-BFGS) + Laplace preconditioner + control-variate cache, as a
+* set-up: mode finding (Newton) + Laplace preconditioner + control-variate cache, as a
   multiple of one full pass;
 * penalty-mala + control variates (batch_size="auto"): seconds per transition, data
   evaluations per transition, ESS per second;

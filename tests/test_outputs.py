@@ -11,7 +11,8 @@ import tallchain as tc
 def model():
     rng = np.random.default_rng(4)
     X = rng.standard_normal((300, 2))
-    return tc.LinearRegression(X, 0.2 + X @ [1.0, -1.0] + rng.standard_normal(300))
+    return tc.LinearRegression(X, 0.2 + X @ [1.0, -1.0] + rng.standard_normal(300),
+                               noise_sd=1.0)
 
 
 def test_posterior_nc_keeps_the_warmup_statistics(model, tmp_path):

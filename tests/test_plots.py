@@ -13,7 +13,7 @@ def _run(n_coef, names=None):
     rng = np.random.default_rng(n_coef)
     X = rng.standard_normal((400, n_coef - 1))
     y = 0.3 + X @ np.linspace(-1.0, 1.0, n_coef - 1) + rng.standard_normal(400)
-    model = tc.LinearRegression(X, y, coef_names=names)
+    model = tc.LinearRegression(X, y, noise_sd=1.0, coef_names=names)
     return tc.sample(model, method="mala", chains=4, draws=200, warmup=200, seed=1)
 
 

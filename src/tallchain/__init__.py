@@ -18,7 +18,8 @@ from .checks import calibrate, check_on_twin, ks_check, sweep
 from .exceptions import (ConvergenceWarning, DataNote, DataWarning, InputError, ModeNotFoundError,
                          NoisyLogRatioWarning, SamplingInterrupted, WorkerDiedError)
 from .mcmc import RunOptions, SampleResult, SamplerSettings, sample
-from .models import GaussianPrior, LinearRegression, LogisticRegression, PoissonRegression
+from .models import (BinomialRegression, GaussianPrior, LinearRegression, LogisticRegression,
+                     NegativeBinomialRegression, PoissonRegression)
 from .posterior import GaussianPosterior, LaplaceApproximation, conjugate_posterior, find_mode
 
 try:
@@ -32,6 +33,8 @@ __all__ = [
     "LinearRegression",
     "LogisticRegression",
     "PoissonRegression",
+    "NegativeBinomialRegression",
+    "BinomialRegression",
     # sampling
     "sample",
     "SamplerSettings",

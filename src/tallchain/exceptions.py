@@ -10,7 +10,8 @@ class InputError(ValueError):
 
 
 class ModeNotFoundError(RuntimeError):
-    """L-BFGS did not converge to the posterior mode."""
+    """No posterior mode was found; the message names the cause found (overflow, collinearity,
+    separation, too few iterations)."""
 
 
 class WorkerDiedError(RuntimeError):

@@ -258,7 +258,8 @@ def test_malformed_toml_reports_the_line(folder):
 def test_named_fields_renames_lower_layer_messages():
     with pytest.raises(InputError, match=r"^sampler\.step_size: must be > 0"):
         with config.named_fields({"step_size": "sampler.step_size"}):
-            tc.sample(tc.LinearRegression(np.zeros((3, 1)), np.zeros(3)), step_size=-1.0)
+            tc.sample(tc.LinearRegression(np.zeros((3, 1)), np.zeros(3), noise_sd=1.0),
+                      step_size=-1.0)
     with pytest.raises(InputError, match=r"^other: untouched; fix"):
         with config.named_fields({"step_size": "sampler.step_size"}):
             raise InputError("other: untouched; fix")

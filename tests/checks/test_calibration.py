@@ -22,7 +22,8 @@ SMALL = dict(replications=60, thinned_draws=29, seed=1, workers=2, chains=2, war
 def problems():
     rng = np.random.default_rng(3)
     X = rng.standard_normal((400, 2))
-    return {"linear": tc.LinearRegression(X, X @ [1.0, -1.0] + rng.standard_normal(400)),
+    return {"linear": tc.LinearRegression(X, X @ [1.0, -1.0] + rng.standard_normal(400),
+                                              noise_sd=1.0),
             "logistic": tc.LogisticRegression(X, (rng.random(400) < 0.4).astype(float))}
 
 

@@ -24,7 +24,7 @@ def small_run():
     rng = np.random.default_rng(3)
     X = rng.standard_normal((2000, 2))
     y = 1.0 + X @ [0.5, -0.25] + rng.standard_normal(2000)
-    model = tc.LinearRegression(X, y, coef_names=["dose", "age"])
+    model = tc.LinearRegression(X, y, noise_sd=1.0, coef_names=["dose", "age"])
     return model, tc.sample(model, method="mala", chains=4, draws=1000, warmup=300, seed=4)
 
 

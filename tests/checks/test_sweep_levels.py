@@ -81,7 +81,8 @@ def test_ecdf_ess_gives_the_kolmogorov_tail_where_bulk_ess_does_not():
 def linear():
     rng = np.random.default_rng(17)
     X = rng.standard_normal((200, 2))
-    return tc.LinearRegression(X, 0.3 + X @ [1.0, -1.0] + rng.standard_normal(200))
+    return tc.LinearRegression(X, 0.3 + X @ [1.0, -1.0] + rng.standard_normal(200),
+                               noise_sd=1.0)
 
 
 @pytest.mark.slow

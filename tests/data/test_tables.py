@@ -105,7 +105,7 @@ def test_a_dataframe_keeps_its_column_names_in_a_model(rng):
     frame = pd.DataFrame({"wind": rng.standard_normal(50), "waves": rng.standard_normal(50)})
     y = rng.standard_normal(50)
     for table in (frame, pl.from_pandas(frame)):
-        model = tc.LinearRegression(table, y)
+        model = tc.LinearRegression(table, y, noise_sd=1.0)
         assert model.coef_names == ["intercept", "wind", "waves"]
         assert_array_equal(model.X, frame.to_numpy())
     frame["port"] = "north"

@@ -39,7 +39,7 @@ def linear_run():
     rng = np.random.default_rng(9)
     X = rng.standard_normal((1000, 2))
     y = 0.5 + X @ [1.0, -1.0] + rng.standard_normal(1000)
-    return tc.sample(tc.LinearRegression(X, y), method="mala", chains=4, draws=2000,
+    return tc.sample(tc.LinearRegression(X, y, noise_sd=1.0), method="mala", chains=4, draws=2000,
                      warmup=500, seed=5, progress=False)
 
 
@@ -134,3 +134,26 @@ def test_summary_and_result_print_as_tables(logistic_run):
     shown = repr(logistic_run)
     assert shown.splitlines()[0].startswith("penalty-mala: 4 chains x 1000 draws after 400 warmup")
     assert shown.splitlines()[1:] == lines and "array(" not in shown
+
+
+def test_a_family_parameter_is_compared_with_its_laplace_marginal_on_the_log_scale(rng):
+    """The noise sd is sampled, and approximated by Laplace, as log sigma; it is reported on
+    its own scale. Its laplace_ks is scipy's KS of log(draws) against N(log mode, cov_jj) -
+    equal to that of the draws against the log-normal, a monotone map - and its shift is in
+    sds of log sigma. Power: comparing the sd's draws on their own scale with N(log mode,
+    cov_jj) is beyond 3 noise floors."""
+    from tallchain.mcmc._laplace_gap import laplace_gap
+
+    X = rng.standard_normal((500, 2))
+    y = 0.5 + X @ [1.0, -1.0] + 2.0 * rng.standard_normal(500)
+    result = tc.sample(tc.LinearRegression(X, y), method="mala", chains=2, draws=1000,
+                       warmup=300, seed=2)
+    assert result.n_family_params == 1 and result.coef_names[-1] == "noise_sd"
+    table = result.summary(warn=False).table
+    flat = result.draws.reshape(-1, 4)
+    log_mode, sd = np.log(result.laplace_mode[3]), np.sqrt(result.laplace_cov[3, 3])
+    want = stats.kstest(np.log(flat[:, 3]), stats.norm(log_mode, sd).cdf).statistic
+    assert table["laplace_ks"][3] == want      # the same scipy call on the same numbers
+    assert table["laplace_ks"][3] < 1.5 * table["ks_floor"][3], table["laplace_ks"][3]
+    wrong = laplace_gap(result.draws, result.laplace_mode, result.laplace_cov, n_log=0)
+    assert wrong["laplace_ks"][3] > 3 * table["ks_floor"][3]

@@ -111,9 +111,9 @@ def test_calibrate_accepts_numpy_scalars_and_all_distinct_thinned_draws(linear, 
     picked = []
     real = calibration._replicate
 
-    def spy(model, prior, n_draws, seed, settings, parallel):
+    def spy(model, n_draws, seed, settings, parallel):
         picked.append(n_draws)
-        return real(model, prior, n_draws, seed, settings, parallel)
+        return real(model, n_draws, seed, settings, parallel)
 
     monkeypatch.setattr(calibration, "_replicate", spy)
     res = calibrate(linear, replications=np.int64(3), thinned_draws=np.int64(40),
@@ -294,7 +294,7 @@ def test_find_mode_accepts_numpy_scalars_and_a_start(logistic):
     ref = tc.find_mode(logistic)
     lap = tc.find_mode(logistic, tol=np.float32(1e-9), max_iter=np.int64(500),
                        start=ref.mode + 0.1)
-    # Two L-BFGS runs from different starts each place the mode within its tolerance
+    # Two Newton runs from different starts each place the mode within its tolerance
     # (numpy_glm.mode_sd_tolerance, in posterior sds): together within twice that.
     sd = np.sqrt(np.diag(ref.cov))
     np.testing.assert_allclose((lap.mode - ref.mode) / sd, 0.0, rtol=0,
@@ -307,5 +307,6 @@ def test_find_mode_accepts_numpy_scalars_and_a_start(logistic):
 @pytest.mark.parametrize("bad,name", [(np.zeros((3, 2)), "ndarray"), (None, "NoneType")])
 def test_something_else_than_a_model_is_refused_first(no_expensive_work, run, bad, name):
     with pytest.raises(tc.InputError, match=rf"model: must be a LinearRegression, "
-                       rf"LogisticRegression or PoissonRegression, got {name}"):
+                       rf"LogisticRegression, PoissonRegression or NegativeBinomialRegression, "
+                       rf"got {name}"):
         run(bad)

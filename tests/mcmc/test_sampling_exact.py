@@ -221,7 +221,7 @@ def test_data_evaluations_exact_count(rng, method, chains, warmup, draws):
     # Odd sizes; 390 iterations span two kernel chunks (_driver.CHUNK = 256).
     X = rng.standard_normal((301, 2))
     y = X @ [0.5, -1.0] + rng.standard_normal(301)
-    model = tc.LinearRegression(X, y)
+    model = tc.LinearRegression(X, y, noise_sd=1.0)
     result = tc.sample(model, method=method, step_size=0.5, chains=chains, warmup=warmup,
                        draws=draws, seed=6)
     assert result.data_evaluations == 301 * (warmup + draws) * chains

@@ -177,7 +177,8 @@ def test_one_list_of_names_for_sample_the_config_and_the_settings():
 def test_something_else_than_a_model_is_refused():
     for not_a_model in (np.zeros((5, 2)), None, "X.npy"):
         with pytest.raises(tc.InputError, match=r"^model: must be a LinearRegression, "
-                                                r"LogisticRegression or PoissonRegression, got"):
+                                                r"LogisticRegression, PoissonRegression or "
+                                                r"NegativeBinomialRegression, got"):
             tc.sample(not_a_model)
 
 

@@ -18,7 +18,7 @@ def run():
     rng = np.random.default_rng(8)
     X = rng.standard_normal((500, 2))
     y = 0.5 + X @ [1.0, -1.0] + rng.standard_normal(500)
-    model = tc.LinearRegression(X, y, coef_names=["dose", "age"])
+    model = tc.LinearRegression(X, y, noise_sd=1.0, coef_names=["dose", "age"])
     return tc.sample(model, method="mala", chains=4, draws=300, warmup=200, seed=2)
 
 

@@ -142,7 +142,9 @@ def test_a_separated_logistic_mode_is_refused_and_a_proper_one_kept(rng):
     proper.check_mode(lap.mode, -proper.log_likelihood_hessian(lap.mode))   # no error
 
 
-def test_only_the_linear_model_has_a_closed_form_posterior():
-    assert tc.LinearRegression.closed_form_posterior
+def test_only_the_linear_model_with_known_noise_sd_has_a_closed_form_posterior(rng):
+    X, y = rng.normal(size=(20, 2)), rng.normal(size=20)
+    assert tc.LinearRegression(X, y, noise_sd=1.0).closed_form_posterior
+    assert not tc.LinearRegression(X, y).closed_form_posterior   # noise sd sampled
     assert not tc.LogisticRegression.closed_form_posterior
     assert not tc.PoissonRegression.closed_form_posterior

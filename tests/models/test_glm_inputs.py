@@ -5,6 +5,7 @@ before any pass over the data; the valid input types (float32, integer, bool, Fo
 and list-of-lists X, numpy scalars) keep working and give the same model.
 """
 
+import functools
 import numpy as np
 import pytest
 from numpy.testing import assert_array_equal
@@ -38,7 +39,7 @@ def _one_line(exc_info):
 @pytest.mark.parametrize(("noise_sd", "match"), [
     ("1", r"^noise_sd: must be a finite number > 0, got '1'; give the known noise sd as a "
           r"number > 0, e\.g\. noise_sd=1\.0$"),
-    (None, r"^noise_sd: must be a finite number > 0, got None; give the known noise sd"),
+    ("", r"^noise_sd: must be a finite number > 0, got ''; give the known noise sd"),
     (np.array([1.0, 2.0]), r"^noise_sd: must be a finite number > 0, got an array of shape "
                            r"\(2,\); give"),
     ([1.0], r"^noise_sd: must be a finite number > 0, got \[1\.0\]"),
@@ -47,7 +48,7 @@ def _one_line(exc_info):
     (np.inf, r"^noise_sd: must be a finite number > 0, got inf"),
     (-2.0, r"^noise_sd: must be > 0, got -2\.0; give the known noise sd"),
     (0, r"^noise_sd: must be > 0, got 0\.0"),
-], ids=["string", "none", "array", "list", "bool", "nan", "inf", "negative", "zero"])
+], ids=["string", "empty", "array", "list", "bool", "nan", "inf", "negative", "zero"])
 def test_noise_sd_must_be_a_finite_positive_number(data, noise_sd, match):
     X, y = data
     with pytest.raises(InputError, match=match) as info:
@@ -208,7 +209,8 @@ def test_flags_must_be_bool(data, family, flag, value, match):
 
 def test_numpy_bool_flags_work(data):
     X, y = data
-    model = tc.LinearRegression(X, y, add_intercept=np.bool_(False), check=np.bool_(True))
+    model = tc.LinearRegression(X, y, noise_sd=1.0, add_intercept=np.bool_(False),
+                                check=np.bool_(True))
     assert model.add_intercept is False and model.n_coef == 2
 
 
@@ -235,7 +237,9 @@ def test_argument_errors_come_before_data_errors(data):
 def test_valid_design_types_give_the_same_model(data, family):
     X, y = data
     Xi = np.round(3 * X).astype(np.int64)
-    cls = MODELS[family]
+    # known noise sd for the linear family: the NumPy size below is for the coefficients only
+    kw = {"noise_sd": 1.0} if family == "linear" else {}
+    cls = functools.partial(MODELS[family], **kw)
     ref = cls(Xi.astype(np.float64), y)
     beta = np.array([0.1, -0.2, 0.3])
     want = ref.log_likelihood(beta)

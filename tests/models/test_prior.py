@@ -62,7 +62,7 @@ def test_full_covariance(rng):
 def test_model_resolves_prior_with_intercept_first(rng):
     X = rng.normal(size=(10, 2))
     y = rng.normal(size=10)
-    model = tc.LinearRegression(X, y, prior=tc.GaussianPrior(sd=[5.0, 1.0, 2.0]))
+    model = tc.LinearRegression(X, y, noise_sd=1.0, prior=tc.GaussianPrior(sd=[5.0, 1.0, 2.0]))
     assert_ulps_close(np.diag(model.prior_cov), [25.0, 1.0, 4.0], ulps=ROUNDED_TWICE)
     with pytest.raises(InputError, match=r"prior sd: has 3 entries, expected 1 or 2"):
         tc.LinearRegression(X, y, add_intercept=False, prior=tc.GaussianPrior(sd=[5.0, 1.0, 2.0]))

@@ -38,7 +38,7 @@ def test_normal_draws_have_the_runs_noise_sd():
 @pytest.mark.parametrize("record, message", [
     ({"family": "gamma"}, r"^run\.json: names no known model family \('gamma'\); use a run "
                           r"folder written by tallchain run \(families: linear, logistic, "
-                          r"poisson\)$"),
+                          r"poisson, negative-binomial, binomial\)$"),
     ({"family": "logistic", "noise_sd": 1.0}, r"^run\.json: has options \['noise_sd'\] the "
                                               r"family 'logistic' does not take"),
     ({"family": "linear", "noise_sd": -1.0}, r"^noise_sd: "),

@@ -100,7 +100,8 @@ def test_marginal_and_sample(rng):
     # correlated columns, so that the posterior's correlations matter (-0.9 between slopes)
     X = rng.normal(size=(30, 2)) @ np.array([[1.0, 0.9], [0.0, 0.3]])
     y = X @ np.array([1.0, -2.0]) + rng.normal(size=30)
-    post = tc.conjugate_posterior(tc.LinearRegression(X, y, prior=tc.GaussianPrior(sd=3.0)))
+    post = tc.conjugate_posterior(tc.LinearRegression(X, y, noise_sd=1.0,
+                                                      prior=tc.GaussianPrior(sd=3.0)))
     # scipy.stats.norm(loc, scale) returns loc + scale * 0 and scale * 1: one rounding at most
     assert_ulps_close(post.marginal(1).mean(), post.mean[1], ulps=1)
     assert_ulps_close(post.marginal(1).std(), post.sd[1], ulps=1)

@@ -18,49 +18,15 @@ from types import MappingProxyType
 
 import numpy as np
 
-from .._validation import check_folder, did_you_mean, fail, one_of, positive_number
+from .._validation import check_folder, fail, one_of, positive_number
 from ..data import ARRAY_SUFFIXES, MISSING_CHOICES, TABLE_SUFFIXES, DataSource, load_array
 from ..exceptions import InputError
 from ..mcmc import SamplerSettings
 from ..mcmc._summary import check_interval
-from ..models import FAMILIES, GaussianPrior, check_noise_sd
+from ..models import FAMILIES, GaussianPrior, check_median_prior, check_noise_sd
+from ._config_schema import SCHEMA, check_required, check_shape, check_value
 
 
-def _is_number(v):
-    return isinstance(v, (int, float)) and not isinstance(v, bool)
-
-
-def _is_int(v):
-    return isinstance(v, int) and not isinstance(v, bool)
-
-
-def _is_number_list(v):
-    return isinstance(v, list) and bool(v) and all(_is_number(e) for e in v)
-
-
-# (description for messages, predicate) per kind of TOML value.
-_STR = ("a string", lambda v: isinstance(v, str))
-_BOOL = ("true or false", lambda v: isinstance(v, bool))
-_INT = ("an integer", _is_int)
-_NUMBER = ("a number", _is_number)
-_NUMBERS = ("a number or a list of numbers", lambda v: _is_number(v) or _is_number_list(v))
-_STR_LIST = ("a list of strings",
-             lambda v: isinstance(v, list) and all(isinstance(e, str) for e in v))
-
-SCHEMA = {
-    "data": {"x": _STR, "y": _STR, "table": _STR, "add_intercept": _BOOL, "standardize": _BOOL,
-             "columns": _STR_LIST, "offset": _STR, "missing": _STR, "cache_dir": _STR},
-    "model": {"family": _STR, "formula": _STR, "noise_sd": _NUMBER, "prior_mean": _NUMBERS,
-              "prior_sd": _NUMBERS, "prior_cov": _STR},
-    # The fields of tallchain.SamplerSettings, which checks their values and holds the
-    # defaults.
-    "sampler": {name: None for name in SamplerSettings.names()},
-    "output": {"dir": _STR, "interval": _NUMBER},
-    # Where the chains of a run, and the runs of sweeps and calibrations, execute
-    # (tallchain.executors); --scheduler/--workers override.
-    "compute": {"scheduler": _STR, "workers": _INT, "connect_seconds": _NUMBER},
-}
-REQUIRED = (("model", "family"),)
 #: The default of ``[output] interval``: the summary's central 90% intervals.
 DEFAULT_INTERVAL = 0.9
 
@@ -69,6 +35,7 @@ _ARGUMENT_KEYS = {
     **{k: f"sampler.{k}" for k in SCHEMA["sampler"]},
     "prior mean": "model.prior_mean", "prior sd": "model.prior_sd",
     "prior cov": "model.prior_cov", "noise_sd": "model.noise_sd",
+    "noise_sd_prior": "model.noise_sd_prior", "dispersion_prior": "model.dispersion_prior",
     "X": "data.x", "y": "data.y", "offset": "data.offset", "columns": "data.columns",
     "coef_names": "data.columns", "standardize": "data.standardize",
     "table": "data.table", "missing": "data.missing", "formula": "model.formula",
@@ -118,11 +85,17 @@ class ModelSettings:
 
     Attributes
     ----------
-    family : {"linear", "logistic", "poisson"}
+    family : {"linear", "logistic", "poisson", "negative-binomial"}
     formula : str or None
         ``"response ~ terms"`` for a ``[data] table``.
     noise_sd : float or None
-        Linear models only (None: the model's default).
+        Linear models only: the known noise sd (None: sampled).
+    noise_sd_prior : tuple of float or None
+        Linear models with a sampled noise sd: (median, log_sd) of its log-normal prior (None:
+        the model's default, the sd of y and 2).
+    dispersion_prior : tuple of float or None
+        Negative binomial: (median, log_sd) of the dispersion's log-normal prior (None: 1 and
+        2.5).
     prior_mean, prior_sd : float or tuple of float, or None
         None: the prior's default.
     prior_cov : ndarray of shape (n_coef, n_coef) or None
@@ -132,6 +105,8 @@ class ModelSettings:
     family: str
     formula: str | None = None
     noise_sd: float | None = None
+    noise_sd_prior: tuple | None = None
+    dispersion_prior: tuple | None = None
     prior_mean: float | tuple | None = None
     prior_sd: float | tuple | None = None
     prior_cov: np.ndarray | None = field(default=None, compare=False, repr=False)
@@ -264,16 +239,16 @@ def config_from_dict(raw, *, base_dir=".", stem="run", overrides=None, path=None
     """
     base_dir = Path(base_dir)
     raw = {sec: dict(val) if isinstance(val, dict) else val for sec, val in raw.items()}
-    _check_shape(raw)
+    check_shape(raw)
     overrides = dict(overrides or {})
     overridden = frozenset(overrides)
     for dotted, value in overrides.items():
         section, _, key = dotted.partition(".")
         if section not in SCHEMA or key not in SCHEMA[section]:
             raise KeyError(f"not a config key: {dotted!r}")
-        _check_value(section, key, value, _label(dotted, overridden))
+        check_value(section, key, value, _label(dotted, overridden))
         raw.setdefault(section, {})[key] = value
-    _check_required(raw)
+    check_required(raw)
     with named_fields(_field_names(overridden)):
         model = _model_settings(raw.get("model", {}), raw.get("data", {}), base_dir)
         data = _data_settings(raw.get("data", {}), model.formula, base_dir)
@@ -319,51 +294,14 @@ def _check_compute(compute):
                 raise InputError(str(exc).replace(f"{key}:", f"compute.{key}:", 1)) from None
 
 
-def _check_shape(raw):
-    """Known sections and keys, each value of the right TOML type."""
-    for section, table in raw.items():
-        if not isinstance(table, dict):
-            home = [sec for sec, keys in SCHEMA.items() if section in keys]
-            fail(section, "is a key outside any [section]",
-                 f"put it under [{home[0]}]" if home else
-                 f"put it under one of {', '.join(f'[{sec}]' for sec in SCHEMA)}")
-        if section not in SCHEMA:
-            _unknown(section, SCHEMA, "section", f"[{section}]")
-        for key, value in table.items():
-            if key not in SCHEMA[section]:
-                _unknown(key, SCHEMA[section], "key", f"{section}.{key}", section)
-            _check_value(section, key, value, f"{section}.{key}")
-
-
-def _check_value(section, key, value, label):
-    if SCHEMA[section][key] is None:   # checked by the object the section builds
-        return
-    what, ok = SCHEMA[section][key]
-    if not ok(value):
-        fail(label, f"must be {what}, got {_show(value)}", f"give {what}")
-
-
-def _check_required(raw):
-    for section, key in REQUIRED:
-        if key not in raw.get(section, {}):
-            fail(f"{section}.{key}", "is missing", f"add {key} = ... under [{section}]")
-
-
-def _unknown(name, known, kind, label, section=None):
-    where = f" of [{section}]" if section else ""
-    fix = did_you_mean(name, known).strip() or \
-        f"remove it; the {kind}s{where} are: {', '.join(known)}"
-    fail(label, f"unknown {kind}", fix)
-
-
-def _show(value):
-    text = repr(value) if not isinstance(value, dict) else "a table"
-    return text if len(text) <= 40 else text[:37] + "..."
-
 
 def _model_settings(table, data_table, base_dir):
     family = one_of("model.family", table["family"], tuple(FAMILIES), "family")
-    for key, given in (("noise_sd", table), ("offset", data_table)):
+    for key in FAMILIES[family].required_options:   # not yet a key of the config
+        fail("model.family", f'"{family}" needs {key} per row, which a config cannot give yet',
+             f"fit it from Python (tallchain.{FAMILIES[family].__name__}(X, y, {key}=...))")
+    for key, given in (("noise_sd", table), ("noise_sd_prior", table),
+                       ("dispersion_prior", table), ("offset", data_table)):
         users = [name for name, cls in FAMILIES.items() if key in cls.family_options]
         if key in given and family not in users:
             fail(key, f'is only used by family {" or ".join(map(repr, users))}, not "{family}"'
@@ -375,6 +313,11 @@ def _model_settings(table, data_table, base_dir):
     noise_sd = table.get("noise_sd")
     if noise_sd is not None:
         check_noise_sd(noise_sd)
+    noise_prior = check_median_prior("noise_sd_prior", table.get("noise_sd_prior"))
+    dispersion_prior = check_median_prior("dispersion_prior", table.get("dispersion_prior"))
+    if noise_prior is not None and noise_sd is not None:
+        fail("model.noise_sd_prior", "is given with noise_sd (a known noise sd has no prior)",
+             "remove noise_sd to sample the noise sd, or remove noise_sd_prior")
     mean, sd = (_tuple_or_float(table.get(k)) for k in ("prior_mean", "prior_sd"))
     cov = None
     if "prior_cov" in table:
@@ -393,7 +336,9 @@ def _model_settings(table, data_table, base_dir):
     if formula is not None and "~" not in formula:
         fail("model.formula", f"has no ~ in {formula!r}",
              'write it as "response ~ terms", e.g. "late ~ hour + C(carrier)"')
-    return ModelSettings(family=family, formula=formula, noise_sd=None if noise_sd is None else float(noise_sd),
+    return ModelSettings(family=family, formula=formula,
+                         noise_sd=None if noise_sd is None else float(noise_sd),
+                         noise_sd_prior=noise_prior, dispersion_prior=dispersion_prior,
                          prior_mean=mean, prior_sd=sd, prior_cov=cov)
 
 

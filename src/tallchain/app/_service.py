@@ -5,6 +5,8 @@ import shlex
 import time
 from pathlib import Path
 
+import numpy as np
+
 from .._addresses import CONNECT_SECONDS, looks_like_address, probe_address
 from ..data import load_data
 from ..executors import check_scheduler
@@ -22,7 +24,7 @@ def build_model(config):
 
     Returns
     -------
-    model : LinearRegression, LogisticRegression or PoissonRegression
+    model : LinearRegression, LogisticRegression, PoissonRegression or NegativeBinomialRegression
     dataset : tallchain.data.Dataset
     """
     d, m = config.data, config.model
@@ -32,7 +34,8 @@ def build_model(config):
                             table=None if d.table is None else d.table.path,
                             formula=m.formula, missing=d.missing, cache_dir=d.cache_dir)
         family = FAMILIES[m.family]
-        options = {"noise_sd": m.noise_sd, "offset": dataset.offset}
+        options = {"noise_sd": m.noise_sd, "noise_sd_prior": m.noise_sd_prior,
+                   "dispersion_prior": m.dispersion_prior, "offset": dataset.offset}
         model = family(dataset.X, dataset.y, prior=m.prior(), add_intercept=dataset.add_intercept,
                        coef_names=dataset.feature_names,
                        **{k: v for k, v in options.items()
@@ -99,13 +102,13 @@ def run_config(config, *, progress=False, resume=False, scheduler=None, workers=
                             connect_seconds=config.compute.get("connect_seconds",
                                                                CONNECT_SECONDS))
     except SamplingInterrupted as stop:
-        partial = _to_original_scale(stop.result, dataset, load_seconds)
+        partial = _to_original_scale(stop.result, dataset, load_seconds, model.n_beta)
         save_result(partial, config.output_dir, interval=config.interval)
         raise KeyboardInterrupt(
             f"{partial.completed_draws} of {config.sampler.draws} draws per chain kept in "
             f"{Path(config.output_dir) / 'posterior.nc'} (status interrupted); continue with: "
             f"{hint}") from None
-    result = _to_original_scale(result, dataset, load_seconds)
+    result = _to_original_scale(result, dataset, load_seconds, model.n_beta)
     extra = {"config": None if config.path is None else str(config.path.absolute()),
              "family": config.model.family, "interval": config.interval,
              "data": _data_record(config, dataset)}
@@ -156,18 +159,27 @@ def _data_record(config, dataset):
             "standardization": None if scaling is None else scaling.as_dict()}
 
 
-def _to_original_scale(result, dataset, load_seconds):
-    """Add the data loading to the set-up time and map standardised draws back."""
+def _to_original_scale(result, dataset, load_seconds, n_beta):
+    """Add the data loading to the set-up time and map standardised draws back (the first
+    ``n_beta`` columns, the coefficients; a noise sd after them is on y's scale, unchanged)."""
     changes = {"setup_seconds": result.setup_seconds + load_seconds}
     scaling = dataset.standardization
     if scaling is not None:
-        changes["draws"] = scaling.to_original(result.draws)
-        if result.laplace_mode is not None:
-            changes["laplace_mode"] = scaling.to_original(result.laplace_mode)
+        for key in ("draws", "laplace_mode"):
+            value = getattr(result, key)
+            if value is not None:
+                value = np.array(value, dtype=float)
+                value[..., :n_beta] = scaling.to_original(value[..., :n_beta])
+                changes[key] = value
         if result.laplace_cov is not None:
-            # to_original is linear, b -> M b, so the covariance maps to M cov M^T; applying it
-            # to the rows of cov gives cov M^T, and to the rows of its transpose M cov M^T.
-            changes["laplace_cov"] = scaling.to_original(scaling.to_original(result.laplace_cov).T)
+            # to_original is linear on the coefficients, b -> M b (applied to the last axis):
+            # the covariance's coefficient block maps to M C M^T, its cross block with the
+            # family parameters to M C_bf. Applied to the rows of C[:, :nb] it gives C M^T,
+            # applied to the rows of the transpose of C[:nb, :] it gives (M C)^T.
+            cov = np.array(result.laplace_cov, dtype=float)
+            cov[:n_beta, :] = scaling.to_original(cov[:n_beta, :].T).T
+            cov[:, :n_beta] = scaling.to_original(cov[:, :n_beta])
+            changes["laplace_cov"] = cov
     return dataclasses.replace(result, **changes)
 
 

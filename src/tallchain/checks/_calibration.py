@@ -17,7 +17,7 @@ from .._validation import check_flag, check_seed, fail, is_integer, positive_int
 from ..executors import check_scheduler, check_workers, run_tasks, worker_count
 from ..mcmc import sample, settings_from, spawn_seeds
 from ..exceptions import ModeNotFoundError
-from ..models import GaussianPrior, check_model
+from ..models import check_model
 from ..posterior import find_mode
 from ._ks import check_level, ecdf_ess
 
@@ -140,15 +140,17 @@ ATTEMPTS = 5
 MAX_SHORT_SHARE = 0.05
 
 
-def _replicate(model, prior, n_draws, seed, settings, parallel):
+def _replicate(model, n_draws, seed, settings, parallel):
     """One replication: (ranks, smallest ECDF ESS, simulated data sets that failed), or
-    (None, nan, ATTEMPTS) when none of ATTEMPTS data sets could be fitted."""
-    mean, _, cov = prior.resolve(model.n_coef)
+    (None, nan, ATTEMPTS) when none of ATTEMPTS data sets could be fitted.
+
+    theta is drawn from the model's own prior (family parameters on the sampler's scale); the
+    ranks compare it on the scale the draws are reported on (a monotone map: same ranks)."""
     for attempt in range(ATTEMPTS):
         # attempt 0 uses the replication's own seed; a retry, the next child spawned from it
         rng = np.random.default_rng(seed if attempt == 0 else seed.spawn(1)[0])
-        beta = rng.multivariate_normal(mean, cov, method="cholesky")
-        sim = model.with_response(model.simulate(beta, rng), prior=prior)
+        beta = rng.multivariate_normal(model.prior_mean, model.prior_cov, method="cholesky")
+        sim = model.with_response(model.simulate(beta, rng))
         try:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore")
@@ -160,12 +162,13 @@ def _replicate(model, prior, n_draws, seed, settings, parallel):
         # thin to L draws, equally spaced over the pooled chains (thinning reduces the
         # autocorrelation that would otherwise make the ranks over-dispersed; Talts et al. 2018)
         pick = np.linspace(0, flat.shape[0] - 1, n_draws).round().astype(int)
-        return np.sum(flat[pick] < beta, axis=0), float(np.min(ecdf_ess(r.draws))), attempt
+        ranks = np.sum(flat[pick] < model.natural_scale(beta), axis=0)
+        return ranks, float(np.min(ecdf_ess(r.draws))), attempt
     return None, float("nan"), ATTEMPTS
 
 
 def _replicate_task(shared, seed):
-    return _replicate(*shared[:3], seed, *shared[3:])
+    return _replicate(*shared[:2], seed, *shared[2:])
 
 
 # The defaults of a replication's sampler, where calibrate() is given no SamplerSettings.
@@ -179,7 +182,7 @@ def calibrate(model, settings=None, *, replications=100, thinned_draws=99, prior
 
     Parameters
     ----------
-    model : LinearRegression, LogisticRegression or PoissonRegression
+    model : LinearRegression, LogisticRegression, PoissonRegression or NegativeBinomialRegression
         Its X (and offset, noise sd) are used; its y only to build the Laplace prior.
     settings : SamplerSettings, optional
         The sampler settings of every replication (their seed is replaced by each
@@ -252,9 +255,9 @@ def calibrate(model, settings=None, *, replications=100, thinned_draws=99, prior
 
     if prior == "laplace":
         lap = find_mode(model)
-        cal_prior = GaussianPrior(mean=lap.mode, cov=lap.cov)
+        cal_model = model.with_theta_prior(lap.mode, lap.cov)
     else:
-        cal_prior = model.prior
+        cal_model = model
     seeds = spawn_seeds(seed, replications)
     n_workers = worker_count(workers, replications)
     parallel = scheduler == "serial" or (scheduler == "processes" and n_workers == 1)
@@ -270,7 +273,7 @@ def calibrate(model, settings=None, *, replications=100, thinned_draws=99, prior
                  '"laplace" (simulated coefficients near the posterior) or a tighter prior')
         ranks[i] = rk
 
-    run_tasks(_replicate_task, (model, cal_prior, draws, settings, parallel), seeds,
+    run_tasks(_replicate_task, (cal_model, draws, settings, parallel), seeds,
               scheduler=scheduler,
               workers=n_workers, on_result=_done, progress="calibrate" if progress else None)
     p = rank_uniformity_pvalues(ranks, draws, n_bins)
@@ -279,5 +282,5 @@ def calibrate(model, settings=None, *, replications=100, thinned_draws=99, prior
     else:
         verdict = "passed" if np.all(p > level / model.n_coef) else "failed"
     return CalibrationResult(ranks=ranks, n_draws=draws, p_values=p, n_bins=n_bins, level=level,
-                             verdict=verdict, coef_names=list(model.coef_names), prior=prior,
+                             verdict=verdict, coef_names=model.output_names, prior=prior,
                              settings=settings, ess=ess, refits=refits)

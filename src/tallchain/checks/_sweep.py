@@ -94,6 +94,9 @@ def model_fingerprint(model):
         h.update(np.ascontiguousarray(block).tobytes())
     for arr in (model.y, model.offset, model.prior_mean, model.prior_prec):
         h.update(np.ascontiguousarray(arr).tobytes())
+    for name in ("weights", "trials"):   # per-row data of some models: part of the likelihood
+        arr = getattr(model, name)
+        h.update(name.encode() + (b"-" if arr is None else np.ascontiguousarray(arr).tobytes()))
     return h.hexdigest()[:16]
 
 
@@ -249,7 +252,7 @@ def sweep(model, settings=None, *, methods=("penalty-mala", "sgld"), step_sizes=
 
     Parameters
     ----------
-    model : LinearRegression, LogisticRegression or PoissonRegression
+    model : LinearRegression, LogisticRegression, PoissonRegression or NegativeBinomialRegression
     settings : SamplerSettings, optional
         The settings held fixed across the grid (chains, draws, warmup, seed, control
         variates, ...); its method, step size and batch size are replaced by the grid's.

@@ -100,7 +100,7 @@ def check_on_twin(model, settings=None, *, level=0.05, **options):
 
     Parameters
     ----------
-    model : LinearRegression, LogisticRegression or PoissonRegression
+    model : LinearRegression, LogisticRegression, PoissonRegression or NegativeBinomialRegression
     settings : SamplerSettings, optional
         The sampler settings to check (default: ``SamplerSettings()``); its ``seed`` also
         seeds the twin's simulated response (GLMs).

@@ -14,7 +14,8 @@ The pure-NumPy references of these kernels, under the same names, are in ``_refe
 
 import math
 
-from ..models._kernels import dloglik_eta, jit, loglik_diff_eta, row_dot
+from ..models._family_params import BINOMIAL, dloglik_phi, family_value, log_norm_phi
+from ..models._kernels import dloglik_eta, jit, loglik_diff_eta, loglik_eta, row_dot
 
 
 @jit
@@ -69,8 +70,14 @@ def cv_gradient_rows(data, rows, delta, idx, out, work):
     Order 0 gives the plain sum of gradients; 1 subtracts f'*_i x_i (Baker et al. 2019);
     2 also subtracts f''*_i (eta_i - eta*_i) x_i, the gradient of the second-order proxy.
     """
+    if data.n_family:
+        _cv_gradient_rows_phi(data.family, data.X, data.intercept, data.weights, rows,
+                              delta, idx, out, work)
+        return
     family, X, noise_sd, intercept = data.family, data.X, data.noise_sd, data.intercept
-    aux, proxy_order = rows.aux, rows.order
+    aux, proxy_order, trials, weights = rows.aux, rows.order, data.trials, data.weights
+    binomial = family == BINOMIAL
+    weighted = weights.shape[0] == X.shape[0]
     n = idx.shape[0]
     p = X.shape[1]
     w = delta[intercept:]
@@ -83,6 +90,10 @@ def cv_gradient_rows(data, rows, delta, idx, out, work):
         u = d0 + row_dot(X, i, w)
         eta[k] = aux[i, AUX_ETA] + u
         yv[k] = aux[i, AUX_Y]
+        if binomial:
+            work[3, k] = trials[i]   # the row's trials (work has 4 rows for binomial data)
+        if weighted:
+            work[4, k] = weights[i]   # its frequency weight (5 rows for weighted data)
         c = 0.0
         if proxy_order >= 1:
             c = aux[i, AUX_F1]
@@ -90,7 +101,9 @@ def cv_gradient_rows(data, rows, delta, idx, out, work):
             c += aux[i, AUX_F2] * u
         r[k] = c
     for k in range(n):
-        r[k] = dloglik_eta(family, eta[k], yv[k], noise_sd) - r[k]
+        v = work[3, k] if binomial else noise_sd
+        wk = work[4, k] if weighted else 1.0
+        r[k] = wk * dloglik_eta(family, eta[k], yv[k], v) - r[k]
     g = out[intercept:]
     out[:] = 0.0
     g0 = 0.0
@@ -136,11 +149,35 @@ def proxy_loglik_diff_sum(rows, beta_new, beta_old):
 
 
 @jit
+def _read_pair(X, aux, i, k, p, d1, w1, d0, w0, e1, e0, yv):
+    """Read batch row i (the k-th) for a log-ratio: u1 = d1 + x_i . w1 and u0 = d0 + x_i . w0
+    in one pass over row i of X, e1[k], e0[k] = eta*_i + u1, eta*_i + u0, yv[k] = y_i;
+    returns (i, u1, u0, eta*_i)."""
+    u1 = d1
+    u0 = d0
+    for j in range(p):
+        x = X[i, j]
+        u1 += x * w1[j]
+        u0 += x * w0[j]
+    eta_star = aux[i, AUX_ETA]
+    e1[k] = eta_star + u1
+    e0[k] = eta_star + u0
+    yv[k] = aux[i, AUX_Y]
+    return i, u1, u0, eta_star
+
+
+@jit
 def batch_residual_diffs(data, rows, delta_new, delta_old, idx, out, work):
     """out[k] = D_i - [q_i(b') - q_i(b)] for i = idx[k], with D_i = l_i(b') - l_i(b) and
     delta_new = b' - beta*, delta_old = b - beta* (passes and ``work`` as above)."""
+    if data.n_family:
+        _residual_diffs_phi(data.family, data.X, data.intercept, data.weights, rows,
+                            delta_new, delta_old, idx, out, work)
+        return
     family, X, noise_sd, intercept = data.family, data.X, data.noise_sd, data.intercept
-    aux, proxy_order = rows.aux, rows.order
+    aux, proxy_order, trials, weights = rows.aux, rows.order, data.trials, data.weights
+    binomial = family == BINOMIAL
+    weighted = weights.shape[0] == X.shape[0]
     n = idx.shape[0]
     p = X.shape[1]
     w1 = delta_new[intercept:]
@@ -151,17 +188,11 @@ def batch_residual_diffs(data, rows, delta_new, delta_old, idx, out, work):
     e0 = work[1]
     yv = work[2]
     for k in range(n):
-        i = idx[k]
-        u1 = d1
-        u0 = d0
-        for j in range(p):
-            x = X[i, j]
-            u1 += x * w1[j]
-            u0 += x * w0[j]
-        eta_star = aux[i, AUX_ETA]
-        e1[k] = eta_star + u1
-        e0[k] = eta_star + u0
-        yv[k] = aux[i, AUX_Y]
+        i, u1, u0, eta_star = _read_pair(X, aux, idx[k], k, p, d1, w1, d0, w0, e1, e0, yv)
+        if binomial:
+            work[3, k] = trials[i]
+        if weighted:
+            work[4, k] = weights[i]
         c = 0.0
         if proxy_order >= 1:
             c = aux[i, AUX_F1] * (u1 - u0)
@@ -169,7 +200,110 @@ def batch_residual_diffs(data, rows, delta_new, delta_old, idx, out, work):
             c += 0.5 * aux[i, AUX_F2] * (u1 * u1 - u0 * u0)
         out[k] = c
     for k in range(n):
-        out[k] = loglik_diff_eta(family, e1[k], e0[k], yv[k], noise_sd) - out[k]
+        v = work[3, k] if binomial else noise_sd
+        wk = work[4, k] if weighted else 1.0
+        out[k] = wk * loglik_diff_eta(family, e1[k], e0[k], yv[k], v) - out[k]
+
+
+# Families with a sampled parameter: theta = (beta, phi), phi the last entry (log s for the
+# linear family, log alpha for NB2). The proxy is second order in (eta, phi) around
+# (eta*_i, phi*); phi's derivatives at the reference point follow from y_i, eta*_i and the
+# family value v* (`dloglik_phi`), so the row record stays (y, eta*, f'*, f''*). ``work``
+# needs 4 rows here.
+
+
+@jit
+def _cv_gradient_rows_phi(family, X, intercept, weights, rows, delta, idx, out, work):
+    """`cv_gradient_rows` with phi: out[:nb] as there with the proxy's eta-gradient
+    f'* + f''* u + l_ephi* dphi, out[nb] = sum of dl/dphi - (l_phi* + l_ephi* u + l_pp* dphi),
+    every row's terms times its frequency weight (kept in work[4])."""
+    aux, proxy_order, beta_star = rows.aux, rows.order, rows.beta_star
+    weighted = weights.shape[0] == X.shape[0]
+    n = idx.shape[0]
+    p = X.shape[1]
+    nb = p + intercept
+    w = delta[intercept:]
+    d0 = delta[0] if intercept else 0.0
+    dphi = delta[nb]
+    v_star = family_value(family, beta_star[nb])
+    v = family_value(family, beta_star[nb] + dphi)
+    eta, yv, r, r_phi = work[0], work[1], work[2], work[3]
+    for k in range(n):
+        i = idx[k]
+        u = d0 + row_dot(X, i, w)
+        eta_star = aux[i, AUX_ETA]
+        eta[k] = eta_star + u
+        yv[k] = aux[i, AUX_Y]
+        wk = weights[i] if weighted else 1.0
+        work[4, k] = wk
+        c = 0.0
+        c_phi = 0.0
+        if proxy_order >= 1:
+            l_p, l_ep, l_pp = dloglik_phi(family, eta_star, yv[k], v_star)
+            c = aux[i, AUX_F1]   # weighted in the row cache already
+            c_phi = wk * l_p
+            if proxy_order >= 2:
+                c += aux[i, AUX_F2] * u + wk * l_ep * dphi
+                c_phi += wk * (l_ep * u + l_pp * dphi)
+        r[k] = c
+        r_phi[k] = c_phi
+    for k in range(n):
+        wk = work[4, k]
+        r[k] = wk * dloglik_eta(family, eta[k], yv[k], v) - r[k]
+        r_phi[k] = wk * dloglik_phi(family, eta[k], yv[k], v)[0] - r_phi[k]
+    out[:] = 0.0
+    g0 = 0.0
+    g_phi = 0.0
+    for k in range(n):
+        i = idx[k]
+        rk = r[k]
+        g0 += rk
+        g_phi += r_phi[k]
+        for j in range(p):
+            out[intercept + j] += rk * X[i, j]
+    if intercept:
+        out[0] = g0
+    out[nb] = g_phi
+
+
+@jit
+def _residual_diffs_phi(family, X, intercept, weights, rows, delta_new, delta_old, idx, out,
+                        work):
+    """`batch_residual_diffs` with phi: D_i = l_i(eta', phi') - l_i(eta, phi), and the proxy
+    difference with the phi terms l_phi* dphi, l_ephi* u dphi and l_pp* dphi^2 / 2, every
+    row's terms times its frequency weight (kept in work[4])."""
+    aux, proxy_order, beta_star = rows.aux, rows.order, rows.beta_star
+    weighted = weights.shape[0] == X.shape[0]
+    n = idx.shape[0]
+    p = X.shape[1]
+    nb = p + intercept
+    w1 = delta_new[intercept:]
+    w0 = delta_old[intercept:]
+    d1 = delta_new[0] if intercept else 0.0
+    d0 = delta_old[0] if intercept else 0.0
+    p1 = delta_new[nb]
+    p0 = delta_old[nb]
+    v_star = family_value(family, beta_star[nb])
+    v1 = family_value(family, beta_star[nb] + p1)
+    v0 = family_value(family, beta_star[nb] + p0)
+    e1, e0, yv = work[0], work[1], work[2]
+    for k in range(n):
+        i, u1, u0, eta_star = _read_pair(X, aux, idx[k], k, p, d1, w1, d0, w0, e1, e0, yv)
+        wk = weights[i] if weighted else 1.0
+        work[4, k] = wk
+        c = 0.0
+        if proxy_order >= 1:
+            l_p, l_ep, l_pp = dloglik_phi(family, eta_star, yv[k], v_star)
+            c = aux[i, AUX_F1] * (u1 - u0) + wk * l_p * (p1 - p0)   # F1, F2: weighted
+            if proxy_order >= 2:
+                c += (0.5 * aux[i, AUX_F2] * (u1 * u1 - u0 * u0)
+                      + wk * (l_ep * (u1 * p1 - u0 * p0) + 0.5 * l_pp * (p1 * p1 - p0 * p0)))
+        out[k] = c
+    for k in range(n):
+        y = yv[k]
+        d = (loglik_eta(family, e1[k], y, v1, log_norm_phi(family, y, v1))
+             - loglik_eta(family, e0[k], y, v0, log_norm_phi(family, y, v0)))
+        out[k] = work[4, k] * d - out[k]
 
 
 @jit

@@ -42,8 +42,13 @@ def ecdf_ess(draws):
                          for q in ECDF_QUANTILES) for j in range(draws.shape[2])])
 
 
-def laplace_gap(draws, mode, cov):
+def laplace_gap(draws, mode, cov, n_log=0):
     """Distances between each coefficient's draws and its Laplace marginal N(mode_j, cov_jj).
+
+    The last ``n_log`` columns are family parameters (a noise sd, a dispersion) reported on
+    their natural scale but approximated, like sampled, on the log scale: they are compared
+    there (log draws against N(log mode_j, cov_jj)). The KS distance does not depend on that
+    choice (a monotone map keeps it); the shift and sd ratio are those of the log.
 
     Parameters
     ----------
@@ -63,6 +68,10 @@ def laplace_gap(draws, mode, cov):
         normal approximation of a plain GLM fit would have given the same marginal.
     """
     n_coef = draws.shape[2]
+    draws, mode = np.array(draws, dtype=float), np.array(mode, dtype=float)
+    if n_log:
+        draws[..., n_coef - n_log:] = np.log(draws[..., n_coef - n_log:])
+        mode[n_coef - n_log:] = np.log(mode[n_coef - n_log:])
     flat = draws.reshape(-1, n_coef)
     sd_laplace = np.sqrt(np.diag(cov))
     ks = np.array([stats.kstest(flat[:, j], stats.norm(mode[j], sd_laplace[j]).cdf).statistic

@@ -71,6 +71,15 @@ class SampleResult:
     laplace_cov: np.ndarray | None = None
     model_record: dict | None = None
 
+    @property
+    def n_family_params(self):
+        """Columns after the coefficients: the family's sampled parameters (a noise sd, a
+        dispersion), reported on their natural scale."""
+        record = self.model_record
+        if record is None:
+            return 0
+        return self.draws.shape[2] - int(record["add_intercept"]) - len(record["feature_names"])
+
     def __repr__(self):
         """The run in a few lines and the coefficient table (see `summary`)."""
         from ._tables import coefficient_table, run_header, table_notes

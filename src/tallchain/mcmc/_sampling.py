@@ -25,7 +25,7 @@ def sample(model, settings=None, **options):
 
     Parameters
     ----------
-    model : LinearRegression, LogisticRegression or PoissonRegression
+    model : LinearRegression, LogisticRegression, PoissonRegression or NegativeBinomialRegression
     settings : SamplerSettings, optional
         What defines the chains; the keyword options below that name a setting replace its
         value (``sample(model, settings, seed=2)``). Default: ``SamplerSettings()``.
@@ -159,10 +159,11 @@ def _result(model, settings, setup, states, runner, schedule, timings):
         "acceptance_target": spec.acceptance_target if settings.adapts_step else None,
         "mass_matrix": setup.preconditioner.kind,
     }
+    # Family parameters sampled on another scale (a log noise sd) are reported on their own.
     return SampleResult(
-        draws=runner.all_draws[:, warmup:warmup + n_done].copy(), stats=stats,
-        warmup_stats=warm, coef_names=list(model.coef_names), settings=settings, tuned=tuned,
+        draws=model.natural_scale(runner.all_draws[:, warmup:warmup + n_done]), stats=stats,
+        warmup_stats=warm, coef_names=model.output_names, settings=settings, tuned=tuned,
         n_rows=model.n_rows, setup_seconds=timings[0], sampling_seconds=timings[1], completed_draws=n_done,
-        laplace_mode=None if setup.laplace is None else setup.laplace.mode,
+        laplace_mode=None if setup.laplace is None else model.natural_scale(setup.laplace.mode),
         laplace_cov=None if setup.laplace is None else setup.laplace.cov,
         model_record=model.record())

@@ -45,7 +45,7 @@ def prepare(model, *, proxy_orders=(2, 0)):
 
     Parameters
     ----------
-    model : LinearRegression, LogisticRegression or PoissonRegression
+    model : LinearRegression, LogisticRegression, PoissonRegression or NegativeBinomialRegression
     proxy_orders : sequence of int, default=(2, 0)
         Orders of the Taylor proxies to cache (0 is the cache of runs without control
         variates).

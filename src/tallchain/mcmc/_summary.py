@@ -87,7 +87,8 @@ def summarize(result, *, warn=True, interval=0.9):
             table[key] = [float("nan")] * n_coef
     if result.laplace_cov is not None and draws.shape[1] >= 4:
         table.update({k: v.tolist() for k, v in
-                      laplace_gap(draws, result.laplace_mode, result.laplace_cov).items()})
+                      laplace_gap(draws, result.laplace_mode, result.laplace_cov,
+                                  n_log=result.n_family_params).items()})
     ess_min = float(np.nanmin(table["ess_bulk"])) if n_coef else float("nan")
     sd = result.stats.get("log_ratio_sd")
     run = {

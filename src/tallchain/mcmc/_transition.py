@@ -167,7 +167,7 @@ def _buffers(d, n_batch):
     return _Buffers(np.empty(d), np.empty(d), np.empty(d), np.empty(d), np.empty(d),
                     np.empty(d), np.empty(d), np.empty(d), np.empty(n_batch, dtype=np.int64),
                     np.empty(n_batch, dtype=np.int64), np.empty(n_batch),
-                    np.empty((3, n_batch)))
+                    np.empty((5, n_batch)))
 
 
 @jit

@@ -23,9 +23,20 @@ class _GLM:
 
     family = None
     family_name = None
+    #: Names of the family parameters sampled after the coefficients, on the sampler's scale
+    #: (``("log_noise_sd",)`` for a linear model with unknown noise sd); set per instance.
+    family_param_names = ()
+    #: Their names on the natural scale, as results report them (exp of the sampled log).
+    family_natural_names = ()
+    #: The constructor option holding the family parameter's prior (median, log_sd).
+    family_prior_option = None
+    #: Trials per row (binomial regression), else None.
+    trials = None
+    #: Constructor options without a default (a binomial model's ``trials``).
+    required_options = ()
 
     def __init__(self, X, y, *, prior=None, add_intercept=True, offset=None, noise_sd=1.0,
-                 coef_names=None, check=True):
+                 coef_names=None, weights=None, check=True):
         # Cheap checks first: nothing below scans or copies the data until they have passed.
         add_intercept = check_flag("add_intercept", add_intercept)
         check = check_flag("check", check)
@@ -57,13 +68,26 @@ class _GLM:
             if offset.shape[0] != n_rows:
                 fail("offset", f"has {rows_text(offset.shape[0])} but X has {n_rows}",
                      "give one offset per row")
+        if weights is not None:
+            weights = read_array("weights", weights).reshape(-1)
+            if weights.shape[0] != n_rows:
+                fail("weights", f"has {rows_text(weights.shape[0])} but X has {n_rows}",
+                     "give one frequency weight per row")
         names = check_coef_names(coef_names, n_cols, add_intercept)
-        n_coef = n_cols + int(add_intercept)
-        prior_mean, prior_prec, prior_cov = prior.resolve(n_coef)
+        n_beta = n_cols + int(add_intercept)
+        prior_mean, prior_prec, prior_cov = prior.resolve(n_beta)
         # Conversions (a copy only when needed), then the passes over the data.
         X = design_storage(X)
         y = float_vector("y", y)
         offset = np.zeros(n_rows) if offset is None else float_vector("offset", offset)
+        if weights is not None:
+            weights = float_vector("weights", weights)
+            check_finite_matrix("weights", weights)
+            bad = np.flatnonzero(weights < 0)
+            if bad.size:
+                fail("weights", f"has {weights[bad[0]]:g} in row {bad[0]}",
+                     "give frequency weights >= 0 (how many times each row counts)")
+        self.weights = weights
         if check:
             check_finite_matrix("X", X, names[int(add_intercept):])
             check_finite_matrix("y", y)
@@ -73,12 +97,30 @@ class _GLM:
         self.y = y
         self.offset = offset
         self.add_intercept = add_intercept
-        self.noise_sd = float(noise_sd)
+        self.noise_sd = None if noise_sd is None else float(noise_sd)
         self.n_rows = n_rows
-        self.n_coef = n_coef
-        self.coef_names = names
+        self.n_beta = n_beta
+        # The parameter vector theta = (coefficients, family parameters), priors independent.
+        fam_mean, fam_sd = self._family_prior()
+        self.n_coef = n_beta + len(fam_mean)
+        self.coef_names = names + list(self.family_param_names)
         self.prior = prior
-        self.prior_mean, self.prior_prec, self.prior_cov = prior_mean, prior_prec, prior_cov
+        self.prior_mean = np.concatenate([prior_mean, fam_mean])
+        self.prior_prec = _block_diagonal(prior_prec, 1.0 / np.square(fam_sd))
+        self.prior_cov = _block_diagonal(prior_cov, np.square(fam_sd))
+
+    def _family_prior(self):
+        """Gaussian prior (means, sds) of the family parameters on the sampler's (log) scale,
+        from the (median, log_sd) in ``family_prior_option`` or the family's default (stored
+        back, so that `with_response` keeps it). Called once y is stored."""
+        if not self.family_param_names:
+            return np.zeros(0), np.zeros(0)
+        value = getattr(self, self.family_prior_option)
+        if value is None:
+            value = self._default_family_prior()
+            setattr(self, self.family_prior_option, value)
+        median, log_sd = value
+        return np.array([np.log(median)]), np.array([log_sd])
 
     def _check_response(self, y):
         pass
@@ -119,8 +161,11 @@ class _GLM:
     def glm_data(self):
         """The data as every GLM kernel takes it: ``GLMData(family, X, y, offset, noise_sd,
         intercept)``, built from the arrays the model keeps (no copy)."""
-        return _kernels.GLMData(self.family, self.X, self.y, self.offset, self.noise_sd,
-                                int(self.add_intercept))
+        return _kernels.GLMData(self.family, self.X, self.y, self.offset,
+                                1.0 if self.noise_sd is None else self.noise_sd,
+                                int(self.add_intercept), len(self.family_param_names),
+                                _kernels.NO_TRIALS if self.trials is None else self.trials,
+                                _kernels.NO_WEIGHTS if self.weights is None else self.weights)
 
     @property
     def prior_arrays(self):
@@ -169,7 +214,7 @@ class _GLM:
     @property
     def feature_names(self):
         """The names of the columns of X (the coefficient names without the intercept)."""
-        return self.coef_names[int(self.add_intercept):]
+        return self.coef_names[int(self.add_intercept):self.n_beta]
 
     def linear_predictor(self, coef, *, with_offset=True):
         """eta_i = x_i . beta (+ intercept) (+ offset_i) for every row, in row blocks, so a
@@ -189,7 +234,7 @@ class _GLM:
         eta = np.empty(self.n_rows)
         for start, xb in row_blocks(self.X):
             stop = start + xb.shape[0]
-            eta[start:stop] = xb @ beta[k:] + (beta[0] if k else 0.0)
+            eta[start:stop] = xb @ beta[k:self.n_beta] + (beta[0] if k else 0.0)
             if with_offset:
                 eta[start:stop] += self.offset[start:stop]
         return eta
@@ -206,7 +251,8 @@ class _GLM:
         -------
         ndarray of shape (n_rows,)
         """
-        return self._draw_response(self.linear_predictor(coef), np.random.default_rng(rng))
+        return self._draw_response(self.linear_predictor(coef), np.random.default_rng(rng),
+                                   coef_vector(coef, self.n_coef))
 
     def with_response(self, y, *, prior=None, family=None, **options):
         """The same design (X, intercept, column names) with another response.
@@ -227,15 +273,17 @@ class _GLM:
 
         Returns
         -------
-        LinearRegression, LogisticRegression or PoissonRegression
+        LinearRegression, LogisticRegression, PoissonRegression or NegativeBinomialRegression
         """
         cls = type(self) if family is None else family
         kw = {name: getattr(self, name) for name in self.family_options
               if name in cls.family_options}
         kw.update(options)
+        if kw.get("noise_sd") is not None:   # a known noise sd has no prior
+            kw.pop("noise_sd_prior", None)
         new = cls(self.X, y, prior=self.prior if prior is None else prior,
-                  add_intercept=self.add_intercept, coef_names=self.feature_names, check=False,
-                  **kw)
+                  add_intercept=self.add_intercept, coef_names=self.feature_names,
+                  weights=self.weights, check=False, **kw)
         check_finite_matrix("y", new.y)
         new._check_response(new.y)
         return new
@@ -281,6 +329,24 @@ class _GLM:
         model.encoding, model.table_report = dataset.encoding, dataset.table_report
         return model
 
+    def with_theta_prior(self, mean, cov):
+        """The same model under a Gaussian prior N(mean, cov) on theta, kept as the model's
+        prior blocks can hold it: the coefficients' block as a `GaussianPrior`, each family
+        parameter with its own mean and variance (correlations between the blocks dropped).
+        For calibration against a Laplace approximation."""
+        mean, cov = np.asarray(mean, dtype=float), np.asarray(cov, dtype=float)
+        nb = self.n_beta
+        prior = GaussianPrior(mean=mean[:nb], cov=cov[:nb, :nb])
+        return self.with_response(self.y, prior=prior,
+                                  **self._family_prior_options(mean[nb:], np.diag(cov)[nb:]))
+
+    def _family_prior_options(self, means, variances):
+        """Constructor options that set the family parameters' Gaussian prior on the sampler's
+        scale."""
+        if not self.family_param_names:
+            return {}
+        return {self.family_prior_option: (float(np.exp(means[0])), float(np.sqrt(variances[0])))}
+
     def check_mode(self, mode, information):
         """Raise `ModeNotFoundError` when the mode found is not a proper posterior mode for
         this family (``information`` is the negative log-likelihood Hessian there); return the
@@ -303,5 +369,30 @@ class _GLM:
         return {**self.response.record(), "add_intercept": self.add_intercept,
                 "feature_names": list(self.feature_names)}
 
-    def _draw_response(self, eta, rng):
-        return self.response.draw(eta, rng)
+    def _draw_response(self, eta, rng, theta):
+        """One response per row given eta and the parameter vector theta (sampler's scale):
+        the family's `Response` with the family parameters on their natural scale."""
+        return self.response.draw(eta, rng, self.natural_scale(theta)[self.n_beta:])
+
+    def natural_scale(self, draws):
+        """Draws of theta (..., n_coef) with the family parameters on their natural scale
+        (``exp`` of the sampled log); a copy. See `output_names`."""
+        out = np.array(draws, dtype=float)
+        out[..., self.n_beta:] = np.exp(out[..., self.n_beta:])
+        return out
+
+    @property
+    def output_names(self):
+        """The names of `natural_scale`'s columns."""
+        return list(self.coef_names[:self.n_beta]) + list(self.family_natural_names)
+
+
+def _block_diagonal(a, diag):
+    """[[a, 0], [0, diag(diag)]] (a itself when diag is empty)."""
+    if len(diag) == 0:
+        return a
+    n, k = a.shape[0], len(diag)
+    out = np.zeros((n + k, n + k))
+    out[:n, :n] = a
+    out[n:, n:] = np.diag(diag)
+    return out

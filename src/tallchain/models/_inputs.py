@@ -100,6 +100,21 @@ def check_noise_sd(value):
     return value
 
 
+def check_median_prior(field, value):
+    """None, or a (median > 0, log_sd > 0) pair of finite numbers as floats: the log-normal
+    prior of a family parameter (``noise_sd_prior``, ``dispersion_prior``)."""
+    if value is None:
+        return None
+    fix = f"give (median, log_sd), e.g. {field}=(2.0, 1.0): log of it ~ N(log 2, 1)"
+    try:
+        pair = [float(v) for v in value]
+    except (TypeError, ValueError):
+        fail(field, f"must be two numbers, got {show_value(value)}", fix)
+    if len(pair) != 2 or not all(np.isfinite(pair)) or min(pair) <= 0:
+        fail(field, f"must be two finite numbers > 0, got {show_value(value)}", fix)
+    return tuple(pair)
+
+
 def check_coef_names(coef_names, n_cols, add_intercept):
     """The model's coefficient names: "intercept" first when added, then one per column."""
     fix = "give a list of distinct strings, one per column of X"

@@ -19,24 +19,30 @@ from collections import namedtuple
 import numba
 import numpy as np
 
-LINEAR = 0
-LOGISTIC = 1
-POISSON = 2
+from ._family_params import (BINOMIAL, LINEAR, LOGISTIC, NEG_BINOMIAL, OPTIONS, POISSON,
+                             dloglik_phi, family_value, log_norm_phi, nb_d2loglik, nb_dloglik,
+                             nb_loglik)
 
 # exp() overflows past this; Poisson gradients saturate here instead of producing inf * 0 = NaN.
 _EXP_MAX = 700.0
 _HALF_LOG_2PI = 0.5 * math.log(2.0 * math.pi)
 
-# Reassociation and contraction let LLVM vectorise the row dot products and sums; NaN and inf
-# keep their IEEE meaning (no "nnan"/"ninf"), which the overflow handling relies on.
-_OPTIONS = dict(cache=True, nogil=True, fastmath={"reassoc", "contract"}, error_model="numpy")
-jit = numba.njit(**_OPTIONS)
-pjit = numba.njit(parallel=True, **_OPTIONS)
+# The options (fastmath without "nnan"/"ninf"/"arcp") are set once, in _family_params.
+jit = numba.njit(**OPTIONS)
+pjit = numba.njit(parallel=True, **OPTIONS)
 
 # The parallel set-up passes split the rows into blocks of this size, whatever the thread count.
 BLOCK_ROWS = 4096
 
-GLMData = namedtuple("GLMData", ["family", "X", "y", "offset", "noise_sd", "intercept"])
+# A binomial model's trials per row, and frequency weights per row; one-entry placeholders
+# when absent (a model has at least 2 rows, so the length tells them apart).
+NO_TRIALS = np.ones(1)
+NO_TRIALS.flags.writeable = False
+NO_WEIGHTS = NO_TRIALS
+
+GLMData = namedtuple("GLMData", ["family", "X", "y", "offset", "noise_sd", "intercept",
+                                 "n_family", "trials", "weights"],
+                     defaults=(0, NO_TRIALS, NO_WEIGHTS))
 GLMData.__doc__ = """The data of a GLM as the kernels take it (numba reads a namedtuple as a typed struct).
 
 Attributes
@@ -47,9 +53,19 @@ X : ndarray of shape (N, p), float32 or float64, C order
     The design matrix as the model keeps it (possibly a memory map; never copied).
 y, offset : ndarray of shape (N,), float64
 noise_sd : float
-    The linear family's known noise sd (unused by the others).
+    The linear family's known noise sd (unused by the others, and when it is sampled).
 intercept : int
     1 when coefficient 0 is an intercept (X has no column of ones), else 0.
+n_family : int, default 0
+    The number of family parameters sampled after the coefficients: 1 for the linear family
+    with unknown noise sd, whose log is ``theta[n_beta]`` (n_beta = p + intercept), else 0.
+    The parameter vector is theta = (coefficients, family parameters).
+trials : ndarray of shape (N,) or (1,), float64
+    ``BINOMIAL``: each row's number of trials m_i, the value its row functions take in place
+    of the noise sd (`row_value`); a placeholder otherwise.
+weights : ndarray of shape (N,) or (1,), float64
+    Frequency weights: row i's log-likelihood counts weights[i] times (`row_weight`); a
+    one-entry placeholder when the model has none.
 """
 
 PriorArrays = namedtuple("PriorArrays", ["mean", "precision"])
@@ -90,6 +106,10 @@ def loglik_eta(family, eta, y, noise_sd, log_norm):
         return -0.5 * r * r + log_norm
     if family == LOGISTIC:
         return y * eta - softplus(eta)
+    if family == BINOMIAL:
+        return y * eta - noise_sd * softplus(eta) + log_norm
+    if family == NEG_BINOMIAL:
+        return nb_loglik(eta, y, noise_sd, log_norm)
     # Poisson, log link: y eta - e^eta - log y!  (-inf below float range for eta > ~709)
     return y * eta - math.exp(eta) + log_norm
 
@@ -101,6 +121,10 @@ def dloglik_eta(family, eta, y, noise_sd):
         return (y - eta) / (noise_sd * noise_sd)
     if family == LOGISTIC:
         return y - sigmoid(eta)
+    if family == BINOMIAL:
+        return y - noise_sd * sigmoid(eta)
+    if family == NEG_BINOMIAL:
+        return nb_dloglik(eta, y, noise_sd)
     return y - math.exp(min(eta, _EXP_MAX))
 
 
@@ -112,6 +136,11 @@ def d2loglik_eta(family, eta, y, noise_sd):
     if family == LOGISTIC:
         s = sigmoid(eta)
         return -s * (1.0 - s)
+    if family == BINOMIAL:
+        s = sigmoid(eta)
+        return -noise_sd * s * (1.0 - s)
+    if family == NEG_BINOMIAL:
+        return nb_d2loglik(eta, y, noise_sd)
     return -math.exp(min(eta, _EXP_MAX))
 
 
@@ -133,12 +162,14 @@ def loglik_diff_eta(family, eta_new, eta_old, y, noise_sd):
     if family == LINEAR:
         # -(1/2s^2)[(y-e')^2 - (y-e)^2] = -(1/2s^2)(e'-e)(e'+e-2y)
         return -0.5 * de * (eta_new + eta_old - 2.0 * y) / (noise_sd * noise_sd)
-    if family == LOGISTIC:
+    if family == LOGISTIC or family == BINOMIAL:
         # softplus(a) - softplus(b) = max(a,0) - max(b,0) + log[(1 + e^-|a|) / (1 + e^-|b|)],
         # one log instead of two: log1p((e^-|a| - e^-|b|) / (1 + e^-|b|)).
         ea = math.exp(-abs(eta_new))
         eb = math.exp(-abs(eta_old))
         soft = (max(eta_new, 0.0) - max(eta_old, 0.0)) + math.log1p((ea - eb) / (1.0 + eb))
+        if family == BINOMIAL:
+            soft *= noise_sd   # the row's trials
         return y * de - soft
     # y de - (e^{eta'} - e^{eta}), with |e^{eta'} - e^{eta}| = e^{hi} (1 - e^{-|de|}) and hi the
     # larger predictor: no 0 * inf when the smaller e^eta underflows, and past exp's range the
@@ -153,11 +184,22 @@ def loglik_diff_eta(family, eta_new, eta_old, y, noise_sd):
 
 @jit
 def row_dot(X, i, w):
-    """sum_j X[i, j] w[j] (w is the slope part of beta, a contiguous view)."""
+    """sum_j X[i, j] w[j] over the p columns of X (w starts at the slopes of the parameter
+    vector, a contiguous view; family parameters may follow them)."""
     acc = 0.0
-    for j in range(w.shape[0]):
+    for j in range(X.shape[1]):
         acc += X[i, j] * w[j]
     return acc
+
+
+@jit
+def scale_of(data, beta):
+    """The family value the rows use (the ``noise_sd`` argument of the per-row functions): from
+    the sampled theta[n_beta] when ``data.n_family`` (`family_value`: a noise sd, or NB2's
+    r = 1/alpha), else the known ``data.noise_sd``."""
+    if data.n_family:
+        return family_value(data.family, beta[data.X.shape[1] + data.intercept])
+    return data.noise_sd
 
 
 @jit
@@ -179,7 +221,28 @@ def log_norm_const(family, y_i, noise_sd):
         return -math.log(noise_sd) - _HALF_LOG_2PI
     if family == POISSON:
         return -math.lgamma(y_i + 1.0)
+    if family == NEG_BINOMIAL:
+        return log_norm_phi(family, y_i, noise_sd) - math.lgamma(y_i + 1.0)
+    if family == BINOMIAL:   # log C(m, y), m the row's trials
+        return (math.lgamma(noise_sd + 1.0) - math.lgamma(y_i + 1.0)
+                - math.lgamma(noise_sd - y_i + 1.0))
     return 0.0
+
+
+@jit
+def row_weight(weights, n_rows, i):
+    """Row i's frequency weight: weights[i], or 1 when the model has none (placeholder)."""
+    if weights.shape[0] == n_rows:
+        return weights[i]
+    return 1.0
+
+
+@jit
+def row_value(family, trials, i, v):
+    """The value row i's functions take: its trials (binomial), else the model's ``v``."""
+    if family == BINOMIAL:
+        return trials[i]
+    return v
 
 
 # ---------------------------------------------------------------------------------------------
@@ -190,12 +253,15 @@ def log_norm_const(family, y_i, noise_sd):
 @jit
 def batch_loglik(data, beta, idx, out):
     """out[k] = l_{idx[k]}(beta), constants included."""
-    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, data.noise_sd
+    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, scale_of(data, beta)
+    trials, weights, n_rows = data.trials, data.weights, data.X.shape[0]
     intercept = data.intercept
     for k in range(idx.shape[0]):
         i = idx[k]
         eta = linear_predictor(X, offset, intercept, i, beta)
-        out[k] = loglik_eta(family, eta, y[i], noise_sd, log_norm_const(family, y[i], noise_sd))
+        v = row_value(family, trials, i, noise_sd)
+        out[k] = row_weight(weights, n_rows, i) * loglik_eta(family, eta, y[i], v,
+                                                             log_norm_const(family, y[i], v))
 
 
 # ---------------------------------------------------------------------------------------------
@@ -207,63 +273,97 @@ def batch_loglik(data, beta, idx, out):
 def full_loglik(data, beta, with_const, lo, hi):
     """sum_{lo <= i < hi} l_i(beta); with ``with_const`` False the per-datum constants
     (-log s sqrt(2 pi), -log y!) are left out: MCMC needs only differences, and the constants
-    cost a log or lgamma per row."""
-    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, data.noise_sd
+    cost a log or lgamma per row). The part that depends on a sampled family parameter
+    (`log_norm_phi`) is kept either way."""
+    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, scale_of(data, beta)
+    trials, weights, n_rows = data.trials, data.weights, data.X.shape[0]
+    n_family = data.n_family
     w = beta[data.intercept:]
     b0 = beta[0] if data.intercept else 0.0
     acc = 0.0
     for i in range(lo, hi):
         eta = row_dot(X, i, w) + b0 + offset[i]
-        c = log_norm_const(family, y[i], noise_sd) if with_const else 0.0
-        acc += loglik_eta(family, eta, y[i], noise_sd, c)
+        v = row_value(family, trials, i, noise_sd)
+        c = _row_const(family, y[i], v, with_const, n_family)
+        acc += row_weight(weights, n_rows, i) * loglik_eta(family, eta, y[i], v, c)
     return acc
+
+
+@jit
+def _row_const(family, y_i, v, with_const, n_family):
+    """The row's constant as a pass keeps it: all of it, or only its phi-dependent part."""
+    if with_const:
+        return log_norm_const(family, y_i, v)
+    if n_family:
+        return log_norm_phi(family, y_i, v)
+    return 0.0
 
 
 @jit
 def full_loglik_grad(data, beta, grad, with_const, lo, hi):
     """sum_{lo <= i < hi} l_i(beta), with the sum of grad l_i(beta) written into ``grad``; one
     pass over the rows (``with_const`` as in `full_loglik`)."""
-    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, data.noise_sd
-    intercept = data.intercept
+    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, scale_of(data, beta)
+    trials, weights, n_rows = data.trials, data.weights, data.X.shape[0]
+    intercept, n_family = data.intercept, data.n_family
     p = X.shape[1]
     w = beta[intercept:]
     b0 = beta[0] if intercept else 0.0
     g = np.zeros(p)
     g0 = 0.0
+    g_phi = 0.0
     acc = 0.0
     for i in range(lo, hi):
         eta = row_dot(X, i, w) + b0 + offset[i]
-        c = log_norm_const(family, y[i], noise_sd) if with_const else 0.0
-        li, r = loglik_and_dloglik_eta(family, eta, y[i], noise_sd, c)
+        v = row_value(family, trials, i, noise_sd)
+        c = _row_const(family, y[i], v, with_const, n_family)
+        li, r = loglik_and_dloglik_eta(family, eta, y[i], v, c)
+        wi = row_weight(weights, n_rows, i)
+        li *= wi
+        r *= wi
         acc += li
         g0 += r
         for j in range(p):
             g[j] += r * X[i, j]
+        if n_family:
+            g_phi += wi * dloglik_phi(family, eta, y[i], noise_sd)[0]
     if intercept:
         grad[0] = g0
-    grad[intercept:] = g
+    grad[intercept:intercept + p] = g
+    if n_family:
+        grad[intercept + p] = g_phi
     return acc
 
 
 @jit
 def full_hessian(data, beta, hess, lo, hi):
-    """hess = sum_{lo <= i < hi} f''(eta_i) x_i x_i^T (the log-likelihood Hessian; overwritten)."""
-    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, data.noise_sd
-    intercept = data.intercept
+    """hess = sum_{lo <= i < hi} f''(eta_i) x_i x_i^T (the log-likelihood Hessian; overwritten);
+    with a sampled noise sd, also its row and column in phi = log s (`dloglik_phi`)."""
+    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, scale_of(data, beta)
+    trials, weights, n_rows = data.trials, data.weights, data.X.shape[0]
+    intercept, n_family = data.intercept, data.n_family
     p = X.shape[1]
-    d = p + intercept
+    nb = p + intercept
+    d = nb + n_family
     hess[:, :] = 0.0
-    xi = np.empty(d)
+    xi = np.empty(nb)
     for i in range(lo, hi):
-        w = d2loglik_eta(family, linear_predictor(X, offset, intercept, i, beta), y[i], noise_sd)
+        eta = linear_predictor(X, offset, intercept, i, beta)
+        wi = row_weight(weights, n_rows, i)
+        w = wi * d2loglik_eta(family, eta, y[i], row_value(family, trials, i, noise_sd))
         if intercept:
             xi[0] = 1.0
         for j in range(p):
             xi[j + intercept] = X[i, j]
-        for a in range(d):
+        for a in range(nb):
             wa = w * xi[a]
             for b in range(a + 1):
                 hess[a, b] += wa * xi[b]
+        if n_family:
+            _, l_ep, l_pp = dloglik_phi(family, eta, y[i], noise_sd)
+            for b in range(nb):
+                hess[nb, b] += wi * l_ep * xi[b]
+            hess[nb, nb] += wi * l_pp
     for a in range(d):
         for b in range(a):
             hess[b, a] = hess[a, b]
@@ -272,14 +372,18 @@ def full_hessian(data, beta, hess, lo, hi):
 @jit
 def full_eta_derivatives(data, beta, eta, f1, f2, lo, hi):
     """eta[i], f1[i], f2[i] = eta_i, f'(eta_i), f''(eta_i) at beta for lo <= i < hi (the row
-    cache of the control variates)."""
-    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, data.noise_sd
+    cache of the control variates; phi's derivatives follow from y, eta and s, see
+    `dloglik_phi`). f1 and f2 include the row's frequency weight."""
+    family, X, y, offset, noise_sd = data.family, data.X, data.y, data.offset, scale_of(data, beta)
+    trials, weights, n_rows = data.trials, data.weights, data.X.shape[0]
     intercept = data.intercept
     for i in range(lo, hi):
         e = linear_predictor(X, offset, intercept, i, beta)
         eta[i] = e
-        f1[i] = dloglik_eta(family, e, y[i], noise_sd)
-        f2[i] = d2loglik_eta(family, e, y[i], noise_sd)
+        v = row_value(family, trials, i, noise_sd)
+        wi = row_weight(weights, n_rows, i)
+        f1[i] = wi * dloglik_eta(family, e, y[i], v)
+        f2[i] = wi * d2loglik_eta(family, e, y[i], v)
 
 
 # ---------------------------------------------------------------------------------------------

@@ -38,7 +38,7 @@ def _run(serial, parallel, data, *rest):
 
 def _beta(data, beta):
     """beta as a contiguous float64 vector of the model's length (checked)."""
-    return coef_vector(beta, data.X.shape[1] + data.intercept)
+    return coef_vector(beta, data.X.shape[1] + data.intercept + data.n_family)
 
 
 def loglik_grad(data, beta):

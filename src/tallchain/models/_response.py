@@ -57,19 +57,32 @@ class Response:
         return f"{type(self).__name__}({opts})"
 
 
+def _family_parameter(extra, name):
+    """The first family parameter of ``extra`` (natural scale), broadcastable against eta of
+    shape (rows, n_draws) when extra has shape (n_draws, k), or (rows,) when it has (k,)."""
+    extra = None if extra is None else np.asarray(extra, dtype=float)
+    if extra is None or extra.shape[-1] < 1:
+        fail("draws", f"hold no {name} for a family that samples it",
+             "predict from the draws of the run that sampled it")
+    return extra[..., 0]
+
+
 class NormalResponse(Response):
-    """y ~ Normal(eta, noise_sd^2): identity link, known noise sd."""
+    """y ~ Normal(eta, noise_sd^2): identity link; the noise sd known, or sampled (None: each
+    posterior draw's own, passed to `draw` as ``extra``)."""
 
     family_name = "linear"
 
     def __init__(self, noise_sd=1.0):
-        self.noise_sd = check_noise_sd(noise_sd)
+        self.noise_sd = None if noise_sd is None else check_noise_sd(noise_sd)
 
     def inverse_link(self, eta):
         return eta
 
-    def sample(self, mu, rng):
-        return mu + self.noise_sd * rng.standard_normal(mu.shape)
+    def draw(self, eta, rng, extra=None):
+        sd = self.noise_sd if self.noise_sd is not None else _family_parameter(extra, "noise sd")
+        mu = self.mean(eta)
+        return mu + sd * rng.standard_normal(mu.shape)
 
     def options(self):
         return {"noise_sd": self.noise_sd}
@@ -103,7 +116,42 @@ class PoissonResponse(Response):
         return rng.poisson(np.minimum(mu, np.exp(30.0))).astype(float)
 
 
-RESPONSES = {cls.family_name: cls for cls in (NormalResponse, BernoulliResponse, PoissonResponse)}
+class NegativeBinomialResponse(Response):
+    """NB2: y ~ Poisson(mu g), g ~ Gamma(shape 1/alpha, scale alpha), mu = exp(eta), so that
+    Var y = mu + alpha mu^2 (Cameron & Trivedi, Regression Analysis of Count Data, 2013);
+    the dispersion alpha is each posterior draw's own (``extra``). exp(coefficient) is a
+    rate ratio."""
+
+    family_name = "negative-binomial"
+    ratio_name = "rate ratio"
+
+    def inverse_link(self, eta):
+        return np.exp(eta)
+
+    def draw(self, eta, rng, extra=None):
+        r = 1.0 / _family_parameter(extra, "dispersion")
+        mu = np.exp(np.minimum(np.asarray(eta, dtype=float), 30.0))   # as PoissonResponse
+        return rng.poisson(mu * rng.gamma(r, 1.0 / r, size=mu.shape)).astype(float)
+
+
+class BinomialResponse(Response):
+    """Successes out of each row's trials, y ~ Binomial(m, expit(eta)); the mean response
+    here is the probability of success of one trial. exp(coefficient) is an odds ratio."""
+
+    family_name = "binomial"
+    ratio_name = "odds ratio"
+
+    def inverse_link(self, eta):
+        return special.expit(eta)
+
+    def draw(self, eta, rng, extra=None):
+        fail("predict", "new binomial observations need each new row's trials, which "
+             "predictions do not take yet", "use the mean response (the probability of "
+             "success) of result.summary or fit the rows as logistic 0/1 data")
+
+
+RESPONSES = {cls.family_name: cls for cls in (NormalResponse, BernoulliResponse, PoissonResponse,
+                                              NegativeBinomialResponse, BinomialResponse)}
 
 
 #: The keys of a model's record (``model.record()``) that describe the design, not the

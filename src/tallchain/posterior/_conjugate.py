@@ -56,8 +56,10 @@ def conjugate_posterior(model):
     GaussianPosterior
     """
     if not getattr(model, "closed_form_posterior", False):
-        fail("model", f"is {type(model).__name__}",
-             "conjugate_posterior needs a LinearRegression (known noise sd)")
+        what = ("a LinearRegression whose noise sd is sampled"
+                if getattr(model, "noise_sd", 0) is None else type(model).__name__)
+        fail("model", f"is {what}",
+             "conjugate_posterior needs a LinearRegression with a known noise_sd")
     d = model.n_coef
     gram = np.zeros((d, d))
     xty = np.zeros(d)
@@ -65,8 +67,9 @@ def conjugate_posterior(model):
         yb = model.y[start:start + xb.shape[0]] - model.offset[start:start + xb.shape[0]]
         if model.add_intercept:
             xb = np.column_stack([np.ones(xb.shape[0]), xb])
-        gram += xb.T @ xb
-        xty += xb.T @ yb
+        wx = xb if model.weights is None else xb * model.weights[start:start + xb.shape[0], None]
+        gram += wx.T @ xb      # frequency weights: X' W X and X' W y
+        xty += wx.T @ yb
     s2 = model.noise_sd**2
     precision = model.prior_prec + gram / s2
     cov = spd_inverse(precision)
