@@ -209,9 +209,11 @@ def coefficient_figure(summary):
         ax.hlines(rows, a, b, color="tab:blue", lw=2.2)
         ax.plot(m, rows, "o", color="tab:blue", ms=6)
         ax.axvline(null, color="gray", ls="--", lw=1)
-        if log:
-            from matplotlib import ticker
+        from matplotlib import ticker
 
+        if not log:   # at most 6 ticks: five-character labels such as -0.25 do not run together
+            ax.xaxis.set_major_locator(ticker.MaxNLocator(6))
+        else:
             ax.set_xscale("log")
             # Plain numbers (0.6, 1, 2) rather than powers of ten: ratios are read as such.
             ax.xaxis.set_major_locator(ticker.LogLocator(subs=(1.0, 2.0, 3.0, 5.0)))
