@@ -67,6 +67,8 @@ class DataSettings:
     """The resolved ``[data]`` section (see `tallchain.data.load_data` for the meaning).
 
     Either ``x`` (arrays, or a CSV/Parquet file with ``y`` a column) or ``table`` is set.
+    ``offset``, ``trials`` and ``weights`` (`ROW_KEYS`) are array sources beside array files,
+    column names of a table.
     """
 
     x: DataSource | None
@@ -92,7 +94,7 @@ class ModelSettings:
 
     Attributes
     ----------
-    family : {"linear", "logistic", "poisson", "negative-binomial"}
+    family : {"linear", "logistic", "poisson", "negative-binomial", "binomial"}
     formula : str or None
         ``"response ~ terms"`` for a ``[data] table``.
     noise_sd : float or None

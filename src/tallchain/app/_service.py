@@ -24,7 +24,10 @@ def build_model(config):
 
     Returns
     -------
-    model : LinearRegression, LogisticRegression, PoissonRegression or NegativeBinomialRegression
+    model : LinearRegression, LogisticRegression, PoissonRegression, NegativeBinomialRegression
+        or BinomialRegression
+        Frequency weights (``[data] weights``) go to every family; the family's own options
+        (trials, offset, noise sd, priors) only to a family that takes them.
     dataset : tallchain.data.Dataset
     """
     d, m = config.data, config.model
