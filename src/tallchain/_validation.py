@@ -166,3 +166,21 @@ def show_value(value):
         value = value.item()
     text = repr(value).replace("\n", " ")
     return text if len(text) <= 60 else text[:57] + "..."
+
+
+# Per-row values with a rule beyond being finite: (the values refused, the fix). Shared by the
+# models (arrays, rows counted from 0) and the table reader (columns, rows counted from 1).
+_ROW_VALUE_RULES = {
+    "trials": (lambda v: (v < 1) | (v != np.floor(v)), "give whole numbers of trials >= 1"),
+    "weights": (lambda v: v < 0, "give frequency weights >= 0 (how many times each row counts)"),
+}
+
+
+def first_bad_row_value(role, values):
+    """``(index, fix)`` of the first of ``values`` that the rule of ``role`` ("trials",
+    "weights") refuses, or None when all pass (or the role has no rule, as an offset)."""
+    if role not in _ROW_VALUE_RULES:
+        return None
+    refused, fix = _ROW_VALUE_RULES[role]
+    bad = np.flatnonzero(refused(np.asarray(values)))
+    return None if not bad.size else (int(bad[0]), fix)

@@ -106,10 +106,10 @@ def test_bad_noise_sd_prior_exits_2(tmp_path, rng, capsys, family, model_extra, 
     assert re.search(pattern, err[0]), err[0]
 
 
-def test_binomial_family_is_refused_until_the_config_has_trials(tmp_path, rng, capsys):
+def test_binomial_family_without_trials_is_refused_naming_the_key(tmp_path, rng, capsys):
     X = rng.standard_normal((20, 1))
     path = _setup(tmp_path, X, (X[:, 0] > 0).astype(float), family="binomial")
     assert cli.main(["run", str(path), "--out", str(tmp_path / "out")]) == 2
     err = capsys.readouterr().err.strip().splitlines()
-    assert len(err) == 1 and re.search(r'model\.family: "binomial" needs trials per row.*'
-                                       r"tallchain\.BinomialRegression\(X, y, trials=", err[0])
+    assert len(err) == 1 and re.search(r'model\.family: "binomial" needs trials per row, and '
+                                       r'data\.trials is missing; add trials = ', err[0]), err

@@ -37,6 +37,7 @@ _ARGUMENT_KEYS = {
     "prior cov": "model.prior_cov", "noise_sd": "model.noise_sd",
     "noise_sd_prior": "model.noise_sd_prior", "dispersion_prior": "model.dispersion_prior",
     "X": "data.x", "y": "data.y", "offset": "data.offset", "columns": "data.columns",
+    "trials": "data.trials", "weights": "data.weights",
     "coef_names": "data.columns", "standardize": "data.standardize",
     "table": "data.table", "missing": "data.missing", "formula": "model.formula",
 }
@@ -66,6 +67,8 @@ class DataSettings:
     """The resolved ``[data]`` section (see `tallchain.data.load_data` for the meaning).
 
     Either ``x`` (arrays, or a CSV/Parquet file with ``y`` a column) or ``table`` is set.
+    ``offset``, ``trials`` and ``weights`` (`ROW_KEYS`) are array sources beside array files,
+    column names of a table.
     """
 
     x: DataSource | None
@@ -77,6 +80,12 @@ class DataSettings:
     table: DataSource | None = None
     missing: str = "drop"
     cache_dir: Path | None = None
+    trials: DataSource | str | None = None
+    weights: DataSource | str | None = None
+
+
+#: ``[data]`` keys of per-row values: array sources beside x and y, or column names of a table.
+ROW_KEYS = ("offset", "trials", "weights")
 
 
 @dataclass(frozen=True)
@@ -85,7 +94,7 @@ class ModelSettings:
 
     Attributes
     ----------
-    family : {"linear", "logistic", "poisson", "negative-binomial"}
+    family : {"linear", "logistic", "poisson", "negative-binomial", "binomial"}
     formula : str or None
         ``"response ~ terms"`` for a ``[data] table``.
     noise_sd : float or None
@@ -297,11 +306,13 @@ def _check_compute(compute):
 
 def _model_settings(table, data_table, base_dir):
     family = one_of("model.family", table["family"], tuple(FAMILIES), "family")
-    for key in FAMILIES[family].required_options:   # not yet a key of the config
-        fail("model.family", f'"{family}" needs {key} per row, which a config cannot give yet',
-             f"fit it from Python (tallchain.{FAMILIES[family].__name__}(X, y, {key}=...))")
+    for key in FAMILIES[family].required_options:   # per-row values: keys of [data]
+        if key not in data_table:
+            fail("model.family", f'"{family}" needs {key} per row, and data.{key} is missing',
+                 f'add {key} = "<column>" (or a .npy/.npz file) under [data]')
     for key, given in (("noise_sd", table), ("noise_sd_prior", table),
-                       ("dispersion_prior", table), ("offset", data_table)):
+                       ("dispersion_prior", table), ("offset", data_table),
+                       ("trials", data_table)):
         users = [name for name, cls in FAMILIES.items() if key in cls.family_options]
         if key in given and family not in users:
             fail(key, f'is only used by family {" or ".join(map(repr, users))}, not "{family}"'
@@ -379,7 +390,7 @@ def _data_settings(table, formula, base_dir):
         if "y" not in table:
             fail("data.y", "is missing", 'name the response column of the table: y = "<column>"')
         y = table["y"]
-        offset = table.get("offset")
+        rows = {key: table.get(key) for key in ROW_KEYS}
     else:
         if x.path.suffix.lower() not in ARRAY_SUFFIXES:
             fail("X", f"{x.path.name} has an unsupported file type {x.path.suffix!r}",
@@ -391,13 +402,14 @@ def _data_settings(table, formula, base_dir):
         else:
             fail("data.y", "is missing", 'give the response file: y = "y.npy"')
         _check_exists(y, "y")
-        offset = table.get("offset")
-        if offset is not None:
-            offset = DataSource.parse(offset, base_dir)
-            _check_exists(offset, "offset")
+        rows = {key: None if table.get(key) is None else DataSource.parse(table[key], base_dir)
+                for key in ROW_KEYS}
+        for key, source in rows.items():
+            if source is not None:
+                _check_exists(source, f"data.{key}")
     columns = table.get("columns")
-    return DataSettings(x=x, y=y, offset=offset,
-                        columns=None if columns is None else tuple(columns), **common)
+    return DataSettings(x=x, y=y, columns=None if columns is None else tuple(columns),
+                        **rows, **common)
 
 
 def _table_settings(table, formula, base_dir, common):
@@ -419,9 +431,9 @@ def _table_settings(table, formula, base_dir, common):
              'give [model] formula = "y ~ a + b", or y = "<response column>" and columns = '
              '["a", "b"] (every column is not taken by default: an identifier would go in as '
              "a covariate)")
-    return DataSettings(x=None, y=table.get("y"), offset=table.get("offset"),
+    return DataSettings(x=None, y=table.get("y"),
                         columns=None if columns is None else tuple(columns),
-                        table=source, **common)
+                        table=source, **{key: table.get(key) for key in ROW_KEYS}, **common)
 
 
 def _check_exists(source, field):

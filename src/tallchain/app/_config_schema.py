@@ -29,7 +29,8 @@ _STR_LIST = ("a list of strings",
 
 SCHEMA = {
     "data": {"x": _STR, "y": _STR, "table": _STR, "add_intercept": _BOOL, "standardize": _BOOL,
-             "columns": _STR_LIST, "offset": _STR, "missing": _STR, "cache_dir": _STR},
+             "columns": _STR_LIST, "offset": _STR, "trials": _STR, "weights": _STR,
+             "missing": _STR, "cache_dir": _STR},
     "model": {"family": _STR, "formula": _STR, "noise_sd": _NUMBER, "noise_sd_prior": _NUMBERS,
               "dispersion_prior": _NUMBERS, "prior_mean": _NUMBERS, "prior_sd": _NUMBERS,
               "prior_cov": _STR},

@@ -24,20 +24,25 @@ def build_model(config):
 
     Returns
     -------
-    model : LinearRegression, LogisticRegression, PoissonRegression or NegativeBinomialRegression
+    model : LinearRegression, LogisticRegression, PoissonRegression, NegativeBinomialRegression
+        or BinomialRegression
+        Frequency weights (``[data] weights``) go to every family; the family's own options
+        (trials, offset, noise sd, priors) only to a family that takes them.
     dataset : tallchain.data.Dataset
     """
     d, m = config.data, config.model
     with config.named_fields():
-        dataset = load_data(d.x, d.y, offset=d.offset, columns=d.columns,
+        dataset = load_data(d.x, d.y, offset=d.offset, trials=d.trials, weights=d.weights,
+                            columns=d.columns,
                             add_intercept=d.add_intercept, standardize=d.standardize,
                             table=None if d.table is None else d.table.path,
                             formula=m.formula, missing=d.missing, cache_dir=d.cache_dir)
         family = FAMILIES[m.family]
         options = {"noise_sd": m.noise_sd, "noise_sd_prior": m.noise_sd_prior,
-                   "dispersion_prior": m.dispersion_prior, "offset": dataset.offset}
+                   "dispersion_prior": m.dispersion_prior, "offset": dataset.offset,
+                   "trials": dataset.trials}
         model = family(dataset.X, dataset.y, prior=m.prior(), add_intercept=dataset.add_intercept,
-                       coef_names=dataset.feature_names,
+                       coef_names=dataset.feature_names, weights=dataset.weights,
                        **{k: v for k, v in options.items()
                           if k in family.family_options and v is not None})
     return model, dataset
@@ -153,6 +158,7 @@ def _data_record(config, dataset):
     d, scaling = config.data, dataset.standardization
     text = (lambda v: None if v is None else str(v))
     return {"x": text(d.x), "table": text(d.table), "y": text(d.y), "offset": text(d.offset),
+            "trials": text(d.trials), "weights": text(d.weights),
             "formula": config.model.formula, "add_intercept": dataset.add_intercept,
             "rows": dataset.table_report,
             "encoding": None if dataset.encoding is None else dataset.encoding.to_dict(),

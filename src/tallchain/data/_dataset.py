@@ -1,4 +1,5 @@
-"""Load X, y and an offset from their sources into a checked `Dataset` (private)."""
+"""Load X, y and the per-row values (offset, trials, weights) from their sources into a
+checked `Dataset` (private)."""
 
 from dataclasses import dataclass
 
@@ -20,6 +21,10 @@ class Dataset:
         Possibly a read-only memory map.
     y : ndarray of shape (n_rows,)
     offset : ndarray of shape (n_rows,) or None
+    trials : ndarray of shape (n_rows,) or None
+        Trials per row (binomial regression).
+    weights : ndarray of shape (n_rows,) or None
+        Frequency weights.
     feature_names : list of str
         Column names (``x0, x1, ...`` for arrays without names; from the formula for a
         table read through one).
@@ -40,15 +45,18 @@ class Dataset:
     add_intercept: bool = True
     encoding: object = None
     table_report: dict | None = None
+    trials: np.ndarray | None = None
+    weights: np.ndarray | None = None
 
     @property
     def n_rows(self):
         return self.X.shape[0]
 
 
-def load_data(x=None, y=None, *, offset=None, columns=None, add_intercept=True,
-              standardize=False, table=None, formula=None, missing="drop", cache_dir=None):
-    """Load X, y and an optional offset, check the columns, and standardise if asked.
+def load_data(x=None, y=None, *, offset=None, trials=None, weights=None, columns=None,
+              add_intercept=True, standardize=False, table=None, formula=None, missing="drop",
+              cache_dir=None):
+    """Load X, y and the optional per-row values, check the columns, and standardise if asked.
 
     Two routes: arrays (``x`` and ``y``: ``.npy``/``.npz`` files, or a CSV ``x`` with ``y``
     one of its columns), or a table (``table``: a ``.parquet``/``.csv`` file or a table in
@@ -61,10 +69,14 @@ def load_data(x=None, y=None, *, offset=None, columns=None, add_intercept=True,
     y : DataSource, path-like or str, optional
         A ``.npy``/``.npz`` file; for a CSV ``x`` or a table, the name of the response column.
     offset : DataSource, path-like or str, optional
-        As for y (Poisson models).
+        As for y (Poisson and negative binomial models).
+    trials : DataSource, path-like or str, optional
+        As for y: the trials per row of binomial regression (whole numbers >= 1).
+    weights : DataSource, path-like or str, optional
+        As for y: frequency weights (>= 0), any family.
     columns : sequence of str, optional
         For a CSV or table, the feature columns to use, by name (a CSV ``x``: default all but
-        the response and offset; a table needs them or a formula). For a ``.npy``/``.npz`` X,
+        the response, offset, trials and weights; a table needs them or a formula). For a ``.npy``/``.npz`` X,
         the names of its columns, one per column in order (default: x0, x1, ...).
     add_intercept : bool, default=True
         Ignored with a formula, which decides (``- 1`` removes the intercept).
@@ -89,6 +101,8 @@ def load_data(x=None, y=None, *, offset=None, columns=None, add_intercept=True,
         Constant or duplicate columns; rows dropped for missing values; a cache entry written.
     """
     table_data = None
+    given = {role: source for role, source in
+             (("offset", offset), ("trials", trials), ("weights", weights)) if source is not None}
     if table is not None:
         if x is not None:
             fail("x", "is given together with table", "give the data once: x and y, or table")
@@ -97,25 +111,26 @@ def load_data(x=None, y=None, *, offset=None, columns=None, add_intercept=True,
                  "the covariates (a table's every column is not taken by default: an "
                  "identifier or a date would go in as a covariate)")
         table_data = load_table(table, formula=formula, response=_column_name(y, "y"),
-                                columns=columns, offset=_column_name(offset, "offset"),
-                                missing=missing, cache_dir=cache_dir)
+                                columns=columns, missing=missing, cache_dir=cache_dir,
+                                **_column_names(given))
     elif formula is not None:
         fail("formula", "needs a table", "give the data as table = ... (a Parquet or CSV file)")
     else:
         x = x if isinstance(x, DataSource) else DataSource.parse(x)
         if x.is_table:
             table_data = load_table(x.path, response=_column_name(y, "y"), columns=columns,
-                                    offset=_column_name(offset, "offset"), missing=missing,
-                                    cache_dir=cache_dir, field="X")
+                                    missing=missing, cache_dir=cache_dir, field="X",
+                                    **_column_names(given))
     if table_data is not None:
-        X, y_arr, off_arr = table_data.X, table_data.y, table_data.offset
+        X, y_arr = table_data.X, table_data.y
+        per_row = {role: getattr(table_data, role) for role in given}
         names = table_data.feature_names
         if formula is not None:
             add_intercept = table_data.encoding.intercept
     else:
         X = load_array(x, field="X")
         y_arr = load_array(y, field="y")
-        off_arr = None if offset is None else load_array(offset, field="offset")
+        per_row = {role: load_array(source, field=role) for role, source in given.items()}
         n_cols = X.shape[1] if X.ndim == 2 else 1
         if isinstance(columns, (str, bytes)):
             fail("columns", f"is the single string {columns!r}, not a list of names",
@@ -135,10 +150,15 @@ def load_data(x=None, y=None, *, offset=None, columns=None, add_intercept=True,
     scaling = None
     if standardize:
         X, scaling = standardize_columns(X, intercept=add_intercept, stats=stats)
-    return Dataset(X=X, y=y_arr, offset=off_arr, feature_names=names, standardization=scaling,
+    return Dataset(X=X, y=y_arr, offset=per_row.get("offset"), trials=per_row.get("trials"),
+                   weights=per_row.get("weights"), feature_names=names, standardization=scaling,
                    add_intercept=add_intercept,
                    encoding=None if table_data is None else table_data.encoding,
                    table_report=None if table_data is None else table_data.report)
+
+
+def _column_names(given):
+    return {role: _column_name(source, role) for role, source in given.items()}
 
 
 def _column_name(source, field):

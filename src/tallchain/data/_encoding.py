@@ -17,6 +17,8 @@ import numpy as np
 from .._validation import fail, show_value
 
 ENCODING_VERSION = 1
+#: Per-row values read from a column of their own, as given (not through the formula).
+ROW_ROLES = ("offset", "trials", "weights")
 MAX_LEVELS = 10_000
 # Transforms that learn from the data they see (a mean, a scale, knots, a lag) would learn
 # from one batch only; the linear-predictor transforms of formulaic (log, exp, I, C, ...)
@@ -40,6 +42,10 @@ class Encoding:
         The response: a column name, or the left-hand side of the formula.
     offset : str or None
         The offset column.
+    trials : str or None
+        The column of trials per row (binomial regression).
+    weights : str or None
+        The column of frequency weights.
     variables : list of str
         The table columns X is computed from.
     levels : dict of str to list
@@ -59,6 +65,8 @@ class Encoding:
     columns: list = field(default_factory=list)
     intercept: bool = True
     version: int = ENCODING_VERSION
+    trials: str | None = None
+    weights: str | None = None
 
     def to_dict(self):
         """A JSON-ready dict (`from_dict` reads it back)."""
@@ -75,10 +83,16 @@ class Encoding:
 
     @property
     def needed(self):
-        """Every table column read for a fit: response, offset and the variables of X."""
+        """Every table column read for a fit: response, row columns and the variables of X."""
         names = [] if self.response_columns is None else list(self.response_columns)
-        names += [self.offset] if self.offset else []
+        names += list(self.row_columns.values())
         return list(dict.fromkeys(names + list(self.variables)))
+
+    @property
+    def row_columns(self):
+        """``{role: column}`` of the per-row values given (offset, trials, weights), each
+        copied into an array of its own beside y."""
+        return {role: getattr(self, role) for role in ROW_ROLES if getattr(self, role)}
 
     @property
     def response_columns(self):
@@ -89,7 +103,7 @@ class Encoding:
         return sorted(Formula(self.formula).lhs.required_variables)
 
 
-def formula_encoding(formula, names, *, offset=None, field="formula"):
+def formula_encoding(formula, names, *, row_columns=None, field="formula"):
     """Parse a formula and check its variables against the table's column names.
 
     Returns
@@ -126,8 +140,10 @@ def formula_encoding(formula, names, *, offset=None, field="formula"):
     if not lhs.required_variables:
         fail(field, "has no response variable on the left of ~", "name the response column")
     categorical = {m.strip("`") for m in _CATEGORICAL_CALL.findall(formula)}
-    return Encoding(kind="formula", formula=formula, response=str(lhs), offset=offset,
-                    variables=variables), categorical
+    row_columns = dict(row_columns or {})
+    return Encoding(kind="formula", formula=formula, response=str(lhs),
+                    offset=row_columns.pop("offset", None), variables=variables,
+                    **row_columns), categorical
 
 
 def encode_block(encoding, frame, state):

@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .._validation import fail, one_of, show_value
+from .._validation import fail, first_bad_row_value, one_of, show_value
 from ..exceptions import DataNote, DataWarning
 from . import _cache
 from ._encoding import MAX_LEVELS, Encoding, encode_block, formula_encoding
@@ -34,6 +34,8 @@ class TableData:
         A read-only memory map of the cache entry (files), or an array (tables in memory).
     y : ndarray of shape (n_used,)
     offset : ndarray of shape (n_used,) or None
+    trials : ndarray of shape (n_used,) or None
+    weights : ndarray of shape (n_used,) or None
     encoding : Encoding
     report : dict
         ``rows_read``, ``rows_used``, ``missing`` (per column: rows with that value missing),
@@ -45,6 +47,8 @@ class TableData:
     offset: np.ndarray | None
     encoding: Encoding
     report: dict = field(default_factory=dict)
+    trials: np.ndarray | None = None
+    weights: np.ndarray | None = None
 
     @property
     def feature_names(self):
@@ -52,7 +56,8 @@ class TableData:
 
 
 def load_table(table, *, formula=None, response=None, columns=None, offset=None,
-               missing="drop", cache_dir=None, cache=True, field="table"):
+               trials=None, weights=None, missing="drop", cache_dir=None, cache=True,
+               field="table"):
     """Encode a table into a design matrix, by a formula or by named numeric columns.
 
     Parameters
@@ -66,8 +71,11 @@ def load_table(table, *, formula=None, response=None, columns=None, offset=None,
     columns : sequence of str, optional
         Without a formula: the feature columns (numbers or true/false). Default: all others,
         with a `DataWarning` for any that looks like a row identifier.
-    offset : str, optional
-        The offset column.
+    offset, trials, weights : str, optional
+        The columns of the offset, of the trials per row (whole numbers >= 1) and of the
+        frequency weights (>= 0). Each is read as numbers into an array of its own; a
+        missing value drops the row as for any column used; a value its rule refuses stops,
+        naming the column and the row.
     missing : {"drop", "error"}, default="drop"
         Drop the rows with a missing value in a column used (counted per column, with a
         `DataWarning`), or stop at the first.
@@ -82,15 +90,17 @@ def load_table(table, *, formula=None, response=None, columns=None, offset=None,
     """
     missing = one_of("missing", missing, MISSING_CHOICES, "missing-value policy")
     source = Table(table, field=field)
-    if offset is not None:
-        source.column(offset, "offset")
+    rows = {role: name for role, name in
+            (("offset", offset), ("trials", trials), ("weights", weights)) if name is not None}
+    for role, name in rows.items():
+        source.column(name, role)
     if formula is not None:
         if response is not None or columns is not None:
             fail("formula", "is given together with " + ("y" if response is not None else
                  "columns"), "give the response and the terms in the formula alone")
-        encoding, categorical = formula_encoding(formula, source.names, offset=offset)
+        encoding, categorical = formula_encoding(formula, source.names, row_columns=rows)
     else:
-        encoding, categorical = _columns_encoding(source, response, columns, offset), set()
+        encoding, categorical = _columns_encoding(source, response, columns, rows), set()
     types = _column_types(source, encoding, categorical)
     selection = {"encoding": encoding.to_dict(), "missing": missing}
     use_cache = cache and source.path is not None
@@ -107,8 +117,7 @@ def load_table(table, *, formula=None, response=None, columns=None, offset=None,
     scan = _scan(source, encoding, types, missing, id_check=columns is None and
                  formula is None)
     shapes = {"X": (scan["kept"], _n_features(source, encoding, types)), "y": (scan["kept"],)}
-    if offset is not None:
-        shapes["offset"] = (scan["kept"],)
+    shapes.update({role: (scan["kept"],) for role in rows})
     report = {"rows_read": scan["rows"], "rows_used": scan["kept"], "missing": scan["missing"],
               "missing_policy": missing, "cache": None if entry is None else str(entry)}
     _warn_missing(report, source.label)
@@ -136,27 +145,30 @@ def load_table(table, *, formula=None, response=None, columns=None, offset=None,
 
 def _table_data(arrays, encoding, report):
     return TableData(X=arrays["X"], y=arrays["y"], offset=arrays.get("offset"),
+                     trials=arrays.get("trials"), weights=arrays.get("weights"),
                      encoding=encoding, report=report)
 
 
-def _columns_encoding(source, response, columns, offset):
+def _columns_encoding(source, response, columns, rows):
     if response is None:
         fail("y", f"is missing for the table {source.label}",
              'name the response column (y = "<column>"), or give a formula')
     source.column(response, "y")
-    if offset is not None and offset == response:
-        fail("offset", f'is the response column "{response}"', "give a separate offset column")
+    roles = {response: "response"}
+    for role, name in rows.items():
+        if name in roles:
+            fail(role, f'is the {roles[name]} column "{name}"', f"give a separate {role} column")
+        roles[name] = role
     if columns is None:
-        names = [n for n in source.names if n not in (response, offset)]
+        names = [n for n in source.names if n not in roles]
     else:
         if isinstance(columns, (str, bytes)):
             fail("columns", f"is the single string {columns!r}, not a list of names",
                  "give a list of column names")
         names = list(columns)
         for name in names:
-            if name in (response, offset):
-                fail("columns", f'lists "{name}", which is the '
-                     f'{"response" if name == response else "offset"} column',
+            if name in roles:
+                fail("columns", f'lists "{name}", which is the {roles[name]} column',
                      "leave it out of the feature columns")
             source.column(name, "columns")
         if len(set(names)) != len(names):
@@ -164,8 +176,9 @@ def _columns_encoding(source, response, columns, offset):
             fail("columns", f'lists "{dup}" twice', "give each feature column once")
     if not names:
         fail("columns", f"no feature columns left in {source.label}", "give at least one column")
-    return Encoding(kind="columns", formula=None, response=response, offset=offset,
-                    variables=names, columns=names)
+    return Encoding(kind="columns", formula=None, response=response,
+                    offset=rows.get("offset"), trials=rows.get("trials"),
+                    weights=rows.get("weights"), variables=names, columns=names)
 
 
 def _column_types(source, encoding, categorical):
@@ -177,7 +190,7 @@ def _column_types(source, encoding, categorical):
     inferred = source.types(needed)
     types = {}
     numeric_only = set(encoding.variables) if encoding.kind == "columns" else set()
-    numeric_only |= {encoding.offset} - {None}
+    numeric_only |= set(encoding.row_columns.values())
     if encoding.kind == "columns":
         numeric_only.add(encoding.response)
     for name in needed:
@@ -343,7 +356,7 @@ def _fill(source, encoding, types, arrays):
     """Second pass: encode the complete rows of each batch into ``arrays``."""
     state = {}
     at = 0
-    X, y, off = arrays["X"], arrays["y"], arrays.get("offset")
+    X, y = arrays["X"], arrays["y"]
     for start, batch in source.batches(encoding.needed, types=types):
         frame = _complete_frame(batch, encoding.needed, start)
         if not len(frame):
@@ -354,9 +367,18 @@ def _fill(source, encoding, types, arrays):
         _check_finite(yb[:, None], [encoding.response], frame.index, source.label)
         X[at:stop] = xb
         y[at:stop] = yb
-        if off is not None:
-            off[at:stop] = frame[encoding.offset].to_numpy(dtype=np.float64)
+        for role, name in encoding.row_columns.items():
+            values = frame[name].to_numpy(dtype=np.float64)
+            _check_row_values(role, name, values, frame.index, source.label)
+            arrays[role][at:stop] = values
         at = stop
+
+
+def _check_row_values(role, name, values, rows, label):
+    bad = first_bad_row_value(role, values)
+    if bad is not None:
+        fail(name, f"is {values[bad[0]]:g} in row {rows[bad[0]]} of {label}, not usable as "
+             f"{role}", f"{bad[1]}, or leave the cell empty to drop the row")
 
 
 def _check_finite(block, names, rows, label):

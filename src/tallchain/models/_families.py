@@ -7,7 +7,7 @@ import numpy as np
 from scipy import special
 
 from .._arrays import symmetrized
-from .._validation import check_finite_matrix, fail
+from .._validation import check_finite_matrix, fail, first_bad_row_value
 from ..exceptions import DataWarning, ModeNotFoundError
 from . import _kernels
 from ._glm import _GLM
@@ -365,10 +365,9 @@ class BinomialRegression(_GLM):
         self.trials = float_vector("trials", read_array("trials", trials).reshape(-1))
         if check:
             check_finite_matrix("trials", self.trials)
-            bad = np.flatnonzero((self.trials < 1) | (self.trials != np.floor(self.trials)))
-            if bad.size:
-                fail("trials", f"has {self.trials[bad[0]]:g} in row {bad[0]}",
-                     "give whole numbers of trials >= 1")
+            bad = first_bad_row_value("trials", self.trials)
+            if bad is not None:
+                fail("trials", f"has {self.trials[bad[0]]:g} in row {bad[0]}", bad[1])
         super().__init__(X, y, prior=prior, add_intercept=add_intercept, coef_names=coef_names,
                          weights=weights, check=check)
         if self.trials.shape[0] != self.n_rows:

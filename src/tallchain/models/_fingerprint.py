@@ -29,6 +29,9 @@ def small_digest(a):
     return f"{'x'.join(map(str, b.shape))} sha1:{hashlib.sha1(b.tobytes()).hexdigest()[:16]}"
 
 
+_PER_ROW = ("offset", "trials", "weights")
+
+
 def fingerprint(model):
     """The items that define ``model``'s posterior, each named as a refusal names it.
 
@@ -37,7 +40,11 @@ def fingerprint(model):
     dict of str to JSON-ready value
     """
     options = {name.replace("_", " "): _option(getattr(model, name))
-               for name in model.family_options if name != "offset"}
+               for name in model.family_options if name not in _PER_ROW}
+    # Per-row arrays some models have; absent ones are left out, so that the fingerprint of
+    # a model without them is what it was before they existed.
+    per_row = {f"data values ({name})": array_digest(getattr(model, name))
+               for name in _PER_ROW[1:] if getattr(model, name) is not None}
     return {
         "family": model.family_name,
         **options,
@@ -48,6 +55,7 @@ def fingerprint(model):
         "data values (X)": array_digest(model.X),
         "data values (y)": array_digest(model.y),
         "data values (offset)": array_digest(model.offset),
+        **per_row,
     }
 
 

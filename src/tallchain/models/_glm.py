@@ -3,7 +3,7 @@
 import numpy as np
 
 from .._arrays import row_blocks
-from .._validation import check_finite_matrix, check_flag, fail
+from .._validation import check_finite_matrix, check_flag, fail, first_bad_row_value
 from ..data import is_table_object, load_data, table_matrix
 from . import _kernels, _passes
 from ._fingerprint import fingerprint
@@ -83,10 +83,9 @@ class _GLM:
         if weights is not None:
             weights = float_vector("weights", weights)
             check_finite_matrix("weights", weights)
-            bad = np.flatnonzero(weights < 0)
-            if bad.size:
-                fail("weights", f"has {weights[bad[0]]:g} in row {bad[0]}",
-                     "give frequency weights >= 0 (how many times each row counts)")
+            bad = first_bad_row_value("weights", weights)
+            if bad is not None:
+                fail("weights", f"has {weights[bad[0]]:g} in row {bad[0]}", bad[1])
         self.weights = weights
         if check:
             check_finite_matrix("X", X, names[int(add_intercept):])
