@@ -386,3 +386,15 @@ def test_installed_script_reports_bad_input_without_traceback(tmp_path, rng):
     assert proc.stderr.strip() == "tallchain: error: data.x: contains inf in row 2, column 0; " \
                                   "remove or impute that value"
 
+
+
+def test_the_module_runs_as_a_script_and_states_its_version():
+    # `python -m tallchain.app._cli` once failed with a NameError: the main guard ran before
+    # the helpers below it were defined.
+    from importlib.metadata import version
+
+    done = subprocess.run([sys.executable, "-W", "ignore::RuntimeWarning", "-m",
+                           "tallchain.app._cli", "--version"],
+                          capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.strip() == f"tallchain {version('tallchain')}"

@@ -81,12 +81,12 @@ def _error(message):
     return EXIT_BAD_INPUT
 
 
-if __name__ == "__main__":  # pragma: no cover
-    sys.exit(main())
-
-
 def _version():
     try:
         return version("tallchain")
     except PackageNotFoundError:  # pragma: no cover - running from a source tree
         return "0.0.0"
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
