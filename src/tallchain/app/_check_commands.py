@@ -15,6 +15,11 @@ from ._service import build_model, check_before_work
 _EXIT_FOR = {"passed": EXIT_OK, "failed": EXIT_CHECK_FAILED, "inconclusive": EXIT_INCONCLUSIVE}
 
 
+def _verdict_word(verdict):
+    """A check's verdict as printed: a failure in capitals, so that it stands out."""
+    return verdict.upper() if verdict == "failed" else verdict
+
+
 def _scheduler_argument(parser):
     parser.add_argument("--scheduler", default=None, metavar="WHERE",
                         help='where runs execute: "processes" (default), "dask-local", or a '
@@ -67,7 +72,7 @@ def _validate(args):
             print(f"{name:<{w}}{ks:>9.4f}{fl:>9.4f}{ratio:>10.2f}  {v}")
         for note in check.notes:
             print(f"note: {note}")
-        print(f"{check.verdict.upper() if check.verdict == 'failed' else check.verdict} "
+        print(f"{_verdict_word(check.verdict)} "
               f"(false-alarm rate {check.level:g} over {len(k.coef_names)} coefficients, "
               f"threshold {k.tolerance:.3f} floors): wrote validate.json to {out}")
     return _EXIT_FOR[check.verdict]
@@ -217,6 +222,6 @@ def _calibrate(args):
                   f"draws than the {res.n_draws} they rank among (limit "
                   f"{MAX_SHORT_SHARE:.0%}): their ranks are over-dispersed; raise draws or "
                   "lower --thinned-draws")
-        print(f"{res.verdict.upper() if res.verdict == 'failed' else res.verdict} in "
+        print(f"{_verdict_word(res.verdict)} in "
               f"{seconds:.0f} s: wrote calibrate.json, calibrate.png to {out}")
     return _EXIT_FOR[res.verdict]

@@ -175,7 +175,7 @@ def _run_point(model, reference, tolerance, settings, options):
         ks_max, ratio_max, floor = float(np.max(k.ks)), float(ratio[j]), float(k.floor[j])
         ess_min = float(np.min(ess_bulk(r.draws)))
         ess_ecdf_min = float(np.min(k.ess))
-        if not ess_ecdf_min >= MIN_ESS_FOR_VERDICT:
+        if not k.conclusive:
             verdict = f"inconclusive (ECDF ESS < {MIN_ESS_FOR_VERDICT})"
         else:
             verdict = "within noise" if ratio_max <= tolerance else "biased"
