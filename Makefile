@@ -24,11 +24,15 @@ $(STAMP): $(VENV)/bin/python pyproject.toml
 
 venv install: $(STAMP)
 
+# Tests run in one worker process per core, at most four (pytest-xdist); `worksteal` balances
+# the few long statistical tests. Every test owns its files (tmp_path), so workers never share.
+PYTEST_WORKERS := -n auto --maxprocesses 4 --dist worksteal
+
 test: $(STAMP)
-	$(VPY) -m pytest
+	$(VPY) -m pytest $(PYTEST_WORKERS)
 
 test-fast: $(STAMP)
-	$(VPY) -m pytest -m "not slow"
+	$(VPY) -m pytest $(PYTEST_WORKERS) -m "not slow"
 
 demo: $(STAMP)
 	$(VENV)/bin/tallchain demo
