@@ -21,8 +21,7 @@ import numpy as np
 from .._validation import check_folder, fail, one_of, positive_number
 from ..data import ARRAY_SUFFIXES, MISSING_CHOICES, TABLE_SUFFIXES, DataSource, load_array
 from ..exceptions import InputError
-from ..mcmc import SamplerSettings
-from ..mcmc._summary import check_interval
+from ..mcmc import SamplerSettings, check_interval
 from ..models import FAMILIES, GaussianPrior, check_median_prior, check_noise_sd
 from ._config_schema import SCHEMA, check_required, check_shape, check_value
 

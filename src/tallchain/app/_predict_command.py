@@ -6,8 +6,7 @@ from pathlib import Path
 import numpy as np
 
 from .._validation import fail
-from ..mcmc._predict import predict_blocks, prediction_columns, rows_per_block
-from ..mcmc._summary import check_interval
+from ..mcmc import check_interval, predict_blocks, prediction_columns, rows_per_block
 from ._config import DEFAULT_INTERVAL
 from ._new_rows import read_blocks, table_columns, write_table
 from ._registry import EXIT_OK, command

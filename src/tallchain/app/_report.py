@@ -2,7 +2,7 @@
 
 import sys
 
-from ..mcmc._tables import NAME_WIDTH, coefficient_table, run_header, table_notes  # noqa: F401
+from ..mcmc import NAME_WIDTH, coefficient_table, run_header, table_notes  # noqa: F401
 
 
 def print_summary(result, summary, *, file=None, standardized=False):

@@ -6,7 +6,7 @@ import numpy as np
 from scipy import stats
 
 from .._validation import fail, is_number
-from ..mcmc._laplace_gap import ECDF_QUANTILES, KS_CRITICAL, ecdf_ess  # noqa: F401
+from ..mcmc import ECDF_QUANTILES, KS_CRITICAL, ecdf_ess  # noqa: F401
 
 #: Below this ESS of the empirical CDF a KS verdict is "inconclusive": ESS estimates are
 #: themselves unreliable from short chains, and the floor is too wide to show bias (common
