@@ -105,6 +105,18 @@ def test_calibrate_refuses_bad_input_before_mode_and_workers(logistic, no_expens
     _one_line(exc)
 
 
+def test_calibrate_refuses_frequency_weights_before_mode_and_workers(data, no_expensive_work):
+    X, _, b = data
+    weighted = tc.LogisticRegression(X, b, weights=np.full(len(b), 2.0))
+    with pytest.raises(tc.InputError, match=r"^model: has frequency weights, which "
+                       r"simulation-based calibration cannot honour") as exc:
+        calibrate(weighted)
+    _one_line(exc)
+    # power: the same model without weights passes the check and reaches the mode finding
+    with pytest.raises(AssertionError, match="find_mode started before the input check"):
+        calibrate(tc.LogisticRegression(X, b))
+
+
 def test_calibrate_accepts_numpy_scalars_and_all_distinct_thinned_draws(linear, monkeypatch):
     # thinned_draws equal to chains x draws is allowed: every draw is picked exactly once.
     calibration = _calibration

@@ -231,6 +231,15 @@ def calibrate(model, settings=None, *, replications=100, thinned_draws=99, prior
         When ``prior="laplace"`` and the mode of the user's posterior cannot be found.
     """
     check_model(model)
+    if model.weights is not None:
+        # The weighted likelihood counts row i w_i times, but a simulated data set has one
+        # response per row: no data-generating process has that likelihood, so the ranks are
+        # not uniform even for an exact sampler (Talts et al. 2018 need simulation and
+        # inference from the same joint distribution).
+        fail("model", "has frequency weights, which simulation-based calibration cannot "
+             "honour (one simulated response per row, counted w_i times)",
+             "calibrate the same settings on the model without weights, or on the data with "
+             "each row repeated w_i times")
     replications = positive_int("replications", replications, minimum=2)
     draws = positive_int("thinned_draws", thinned_draws, minimum=1)
     if not is_integer(n_bins) or not 2 <= n_bins <= draws + 1:
