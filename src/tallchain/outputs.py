@@ -1,5 +1,6 @@
 """Output files of a run: posterior.nc, summary.csv, run.json (written atomically)."""
 
+import contextlib
 import json
 import math
 import os
@@ -35,6 +36,22 @@ def check_writable(field, folder):
     except OSError as exc:
         fail(field, f'cannot write to "{folder}" ({exc.strerror or exc})',
              "give a folder you can create and write to (--out DIR or [output] dir)")
+
+
+@contextlib.contextmanager
+def removed_if_left_empty(folder):
+    """Remove ``folder`` again when the block fails, if the block created it and left it
+    empty: a run refused for its data (after `check_writable` made the folder) leaves no empty
+    output folder behind. A folder that existed before, or holds any file, is kept."""
+    folder = Path(folder)
+    existed = folder.exists()
+    try:
+        yield
+    except BaseException:
+        if not existed:
+            with contextlib.suppress(OSError):    # not empty, or already gone: keep it
+                folder.rmdir()
+        raise
 
 
 def write_npz(path, **arrays):

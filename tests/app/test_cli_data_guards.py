@@ -93,6 +93,16 @@ def test_a_response_whose_squares_overflow_is_named_too(write, capsys):
     assert re.match(r"tallchain: error: data\.y: holds -1e\+200 in row 5, too large", err), err
 
 
+def test_a_run_refused_for_its_data_leaves_no_empty_output_folder(write, capsys, tmp_path):
+    # check_writable creates the folder before the data are read; refused data remove it again.
+    argv = write(edit=_set(12, 1, 1e300))
+    assert cli.main(["run", *argv]) == 2 and not (tmp_path / "o").exists()
+    # Power: a folder that existed before the run is the user's and stays, even empty.
+    (tmp_path / "o").mkdir()
+    assert cli.main(["run", *argv]) == 2 and (tmp_path / "o").is_dir()
+    assert "Traceback" not in capsys.readouterr().err
+
+
 def test_the_limit_is_where_sums_of_products_overflow():
     # numpy's finfo gives the largest float64; N products at the limit sum to a finite
     # number, at twice the limit to infinity (the power of the check).

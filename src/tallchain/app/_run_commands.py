@@ -4,6 +4,7 @@ from pathlib import Path
 
 from ._config import load_config
 from .._validation import fail, positive_int
+from ..outputs import removed_if_left_empty
 from ._registry import (EXIT_OK, OVERRIDES, REPORT_OVERRIDES, add_config_arguments, command,
                         config_from_args, dest, warning_line, warnings_as_lines)
 from ._report import print_outputs, print_summary
@@ -38,7 +39,7 @@ def _add_run_arguments(parser):
 def _run(args):
     _check_folder_options(args)
     config = config_from_args(args)
-    with warnings_as_lines():
+    with removed_if_left_empty(config.output_dir), warnings_as_lines():
         result, summary, dataset = run_config(config, progress=not args.quiet,
                                               resume=args.resume, scheduler=args.scheduler,
                                               workers=args.workers, extend=args.extend,
