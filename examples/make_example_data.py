@@ -10,6 +10,9 @@ this package. Nothing describes a real organisation.
   end in an order?
 * ``streetlights.npz`` (Poisson): faults reported per district and month in a fictional town,
   with the log of the number of lamps as offset.
+* ``nursery.parquet`` (binomial): trays of a fictional tree nursery, seeds sown and seedlings
+  that came up, by soil mix (a categorical column read through a formula), night temperature
+  and whether the seeds were coated.
 
 Usage::
 
@@ -29,7 +32,10 @@ TRUTH = {
                  "returning": 1.2, "mobile": -0.5},
     "poisson": {"intercept": -3.0, "older_lamp_type": 0.8, "temperature": -0.3,
                 "years_since_rewiring": 0.02},
+    "binomial": {"intercept": -0.4, "C(soil_mix)[T.peat]": 0.5, "C(soil_mix)[T.sand]": -0.3,
+                 "night_temperature": 0.08, "coated": 0.6},
 }
+SOIL_MIXES = ("loam", "peat", "sand")   # loam first: the reference level of C(soil_mix)
 NOISE_SD = 4.0
 
 
@@ -68,6 +74,21 @@ def streetlights(rng, n):
     return X, rng.poisson(np.exp(eta)).astype(float), np.log(lamps)
 
 
+def nursery(rng, n):
+    """A table (dict of columns): soil mix, night temperature (deg C), coated, sown, came_up."""
+    soil = rng.choice(SOIL_MIXES, n, p=[0.5, 0.3, 0.2])
+    temperature = rng.normal(12.0, 3.0, n)
+    coated = rng.binomial(1, 0.5, n)
+    sown = rng.integers(20, 61, n)
+    b = TRUTH["binomial"]
+    eta = (b["intercept"] + b["night_temperature"] * (temperature - 12.0) + b["coated"] * coated
+           + np.select([soil == "peat", soil == "sand"], [b["C(soil_mix)[T.peat]"],
+                                                          b["C(soil_mix)[T.sand]"]], 0.0))
+    came_up = rng.binomial(sown, 1.0 / (1.0 + np.exp(-eta)))
+    return {"soil_mix": soil, "night_temperature": np.round(temperature - 12.0, 2),
+            "coated": coated, "seeds_sown": sown, "came_up": came_up}
+
+
 def main(argv=None):
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--out", default=Path(__file__).parent / "data", type=Path)
@@ -86,6 +107,10 @@ def main(argv=None):
                comments="")
     X, y, offset = streetlights(rng, args.rows)
     np.savez(out / "streetlights.npz", x=X, y=y, offset=offset)
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    pq.write_table(pa.table(nursery(rng, args.rows)), out / "nursery.parquet")
     (out / "truth.json").write_text(json.dumps(
         {"note": "invented data; the coefficients they were simulated from",
          "noise_sd_linear": NOISE_SD, **TRUTH}, indent=2) + "\n")

@@ -8,6 +8,7 @@ of the cache (`_cache`), or into memory for a table that is itself in memory. Ne
 holds more than one batch of the table.
 """
 
+import os
 import re
 import warnings
 from dataclasses import dataclass, field
@@ -403,7 +404,9 @@ def _warn_cache_written(entry, shapes, removed):
     size = sum(int(np.prod(s)) for s in shapes.values()) * 8
     gone = f"; removed {len(removed)} stale entr{'y' if len(removed) == 1 else 'ies'}" \
         if removed else ""
-    warnings.warn(f"wrote the encoded table ({size / 2**20:,.1f} MiB) to the cache {entry}; "
+    # normpath: "configs/../examples/data/..." reads as "examples/data/..." in the note
+    warnings.warn(f"wrote the encoded table ({size / 2**20:,.1f} MiB) to the cache "
+                  f"{os.path.normpath(entry)}; "
                   f"later runs reuse it while the table is unchanged{gone} (safe to delete)",
                   DataNote, stacklevel=3)
 
