@@ -188,6 +188,23 @@ def test_column_errors(tmp_path, kwargs, message):
         io.load_table(path, **kwargs)
 
 
+@pytest.mark.parametrize("kwargs, message", [
+    ({"formula": "label ~ a + b", "offset": "label"}, r'^offset: is the response column "label"'),
+    ({"formula": "label ~ a + np.log(b)", "weights": "b"},
+     r'^formula: uses "b", which is the weights column; leave it out of the terms, or give the '
+     r"weights a column of its own"),
+    ({"formula": "label ~ a", "offset": "b", "weights": "b"},
+     r'^weights: is the offset column "b"; give a separate weights column'),
+])
+def test_a_formula_column_has_one_role(tmp_path, kwargs, message):
+    path = _write_csv(tmp_path / "d.csv", ["a", "b", "label"], [[1, 2, 0], [3, 4, 1]])
+    with pytest.raises(InputError, match=message):
+        io.load_table(path, cache=False, **kwargs)
+    # power: the same per-row column outside the terms is read
+    data = io.load_table(path, formula="label ~ a", weights="b", cache=False)
+    assert data.weights.tolist() == [2.0, 4.0]
+
+
 def test_header_problems(tmp_path):
     (tmp_path / "empty.csv").write_text("")
     with pytest.raises(InputError, match=r"empty\.csv has no header row"):

@@ -103,6 +103,20 @@ class Encoding:
         return sorted(Formula(self.formula).lhs.required_variables)
 
 
+def check_row_roles(response_columns, row_columns):
+    """Refuse a per-row column (offset, trials, weights) that is the response or already has
+    another role: one column, one role.
+
+    Returns ``{column: role}`` of the response and the per-row columns.
+    """
+    roles = dict.fromkeys(response_columns, "response")
+    for role, name in row_columns.items():
+        if name in roles:
+            fail(role, f'is the {roles[name]} column "{name}"', f"give a separate {role} column")
+        roles[name] = role
+    return roles
+
+
 def formula_encoding(formula, names, *, row_columns=None, field="formula"):
     """Parse a formula and check its variables against the table's column names.
 
@@ -139,6 +153,12 @@ def formula_encoding(formula, names, *, row_columns=None, field="formula"):
                  f"{did_you_mean(name, names)}the columns are: {', '.join(names)}")
     if not lhs.required_variables:
         fail(field, "has no response variable on the left of ~", "name the response column")
+    roles = check_row_roles(sorted(lhs.required_variables), row_columns or {})
+    for name in variables:
+        if roles.get(name, "response") != "response":
+            fail(field, f'uses "{name}", which is the {roles[name]} column',
+                 f"leave it out of the terms, or give the {roles[name]} a column of its own "
+                 "(a copy under another name)")
     categorical = {m.strip("`") for m in _CATEGORICAL_CALL.findall(formula)}
     row_columns = dict(row_columns or {})
     return Encoding(kind="formula", formula=formula, response=str(lhs),

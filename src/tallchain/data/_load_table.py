@@ -18,7 +18,7 @@ import numpy as np
 from .._validation import fail, first_bad_row_value, one_of, show_value
 from ..exceptions import DataNote, DataWarning
 from . import _cache
-from ._encoding import MAX_LEVELS, Encoding, encode_block, formula_encoding
+from ._encoding import MAX_LEVELS, Encoding, check_row_roles, encode_block, formula_encoding
 from ._tables import Table, is_text
 
 MISSING_CHOICES = ("drop", "error")
@@ -155,11 +155,7 @@ def _columns_encoding(source, response, columns, rows):
         fail("y", f"is missing for the table {source.label}",
              'name the response column (y = "<column>"), or give a formula')
     source.column(response, "y")
-    roles = {response: "response"}
-    for role, name in rows.items():
-        if name in roles:
-            fail(role, f'is the {roles[name]} column "{name}"', f"give a separate {role} column")
-        roles[name] = role
+    roles = check_row_roles([response], rows)
     if columns is None:
         names = [n for n in source.names if n not in roles]
     else:
