@@ -1,4 +1,4 @@
-"""The result of `estimate`: estimates from R coupled pairs, meeting times, the TV bound (private)."""
+"""The result of `estimate`: R coupled pairs' estimates, meeting times, TV bound (private)."""
 
 from dataclasses import dataclass, field
 
@@ -75,7 +75,7 @@ class EstimateResult:
         return int(below[0]) if below.size else None
 
     def meeting_quantiles(self):
-        """Quantiles 0.5, 0.9, 0.99 and 1 (the largest) of the meeting times of the pairs that met."""
+        """Quantiles 0.5, 0.9, 0.99 and 1 (the largest) of the met pairs' meeting times."""
         met = self.meeting_times[self.meeting_times >= 0]
         if met.size == 0:
             return {str(q): None for q in MEETING_QUANTILES}

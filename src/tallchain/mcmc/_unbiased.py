@@ -42,7 +42,9 @@ M_PER_K = 10
 INIT_WIDTH = 2.0
 
 
-def _check_arguments(replicates, lag, span, max_iterations, level):
+def check_estimate_arguments(replicates, lag, span, max_iterations, level):
+    """estimate()'s own arguments checked and standardised (InputError naming the first bad
+    one); also used by the CLI before it reads the data."""
     replicates = positive_int("replicates", replicates, minimum=2)
     lag = positive_int("lag", lag, minimum=1)
     max_iterations = positive_int("max_iterations", max_iterations, minimum=2)
@@ -50,7 +52,8 @@ def _check_arguments(replicates, lag, span, max_iterations, level):
         if (not isinstance(span, (tuple, list)) or len(span) != 2
                 or not all(is_integer(v) for v in span) or not 0 <= span[0] <= span[1]):
             fail("span", f"must be a pair of integers (k, m) with 0 <= k <= m, got {span!r}",
-                 "give e.g. span=(100, 1000), or leave it out to choose k and m from a pilot")
+                 "give k <= m, e.g. 100 and 1000, or leave it out to choose k and m from a "
+                 "pilot")
         span = (int(span[0]), int(span[1]))
         if span[1] > max_iterations:
             fail("span", f"ends at m = {span[1]}, beyond max_iterations = {max_iterations}",
@@ -60,7 +63,8 @@ def _check_arguments(replicates, lag, span, max_iterations, level):
     return replicates, lag, span, max_iterations, float(level)
 
 
-def _check_settings(settings):
+def check_coupled_settings(settings):
+    """Refuse the settings that have no coupled version (InputError)."""
     method = settings.method
     if method not in COUPLED_METHODS + _BROKEN:
         fail("method", f"{method} has no coupled version (it does not target the posterior "
@@ -161,14 +165,14 @@ def estimate(model, settings=None, *, replicates=20, lag=1, span=None, max_itera
     """
     t0 = time.perf_counter()
     check_model(model)
-    replicates, lag, span, max_iterations, level = _check_arguments(
+    replicates, lag, span, max_iterations, level = check_estimate_arguments(
         replicates, lag, span, max_iterations, level)
     check_scheduler(scheduler)
     check_workers(workers)
     check_flag("progress", progress)
     settings = settings_from(settings, options, owner="estimate()",
                              defaults=_TUNING_DEFAULTS).check_against(model)
-    _check_settings(settings)
+    check_coupled_settings(settings)
 
     prep = prepare(model, proxy_orders=(settings.proxy_order_used,))
     tune_seed, pair_root = spawn_seeds(settings.seed, 2)
