@@ -77,11 +77,14 @@ def check_coupled_settings(settings):
              'use log_ratio_variance="same-batch"')
 
 
-def _pair_task(shared, task):
-    """One pair: (H (2, n_coef), counts OUT_*) from its seed and its (k, m)."""
+def run_one_pair(shared, seed, span, *, keep_met=False, n_trace=0):
+    """One pair from its seed: (H (2, n_coef), counts OUT_* (int64), trace (2, n_trace,
+    n_coef)); ``shared`` is what `coupled_setup` returns, ``span`` is (k, m).
+
+    Both starting points are drawn from the pair's stream: N(mode, INIT_WIDTH^2 Sigma) with
+    the Laplace approximation's mode and covariance (the same law for both chains)."""
     job, plan, start_mean, start_chol = shared
-    seed, (k, m) = task
-    plan = plan._replace(k=k, m=m)
+    plan = plan._replace(k=span[0], m=span[1], keep_met=keep_met)
     rng = np.random.Generator(np.random.PCG64(seed))
     d = start_mean.shape[0]
     starts = start_mean + INIT_WIDTH * rng.standard_normal((2, d)) @ start_chol.T
@@ -93,9 +96,29 @@ def _pair_task(shared, task):
             _chain.init_full_state(data, prior, st)
     sums = np.zeros((2, d))
     out = np.zeros(_pair.N_OUT, dtype=np.int64)
+    trace = _pair.new_trace(n_trace, d)
     _pair.run_pair(data, prior, job.cache.rows, job.pre.matrices, job.codes, plan, *states,
-                   rng, sums, out, _pair.new_trace(0, d))
+                   rng, sums, out, trace)
+    return sums, out, trace
+
+
+def _pair_task(shared, task):
+    """One pair of `estimate`: (H, counts) from (seed, (k, m))."""
+    sums, out, _ = run_one_pair(shared, *task)
     return sums, out
+
+
+def coupled_setup(model, settings, preparation=None):
+    """What every pair of a run shares, ``(job, plan, mode, chol of the Laplace covariance)``,
+    after a tuned warmup run of ``settings`` (checked) has fixed the step and batch size
+    (``plan.h``, ``plan.n_batch``); ``plan``'s lag, k, m and stop rule are set by the caller."""
+    prep = preparation or prepare(model, proxy_orders=(settings.proxy_order_used,))
+    h, n_batch = _tuned(model, settings, prep)
+    setup = set_up(model, settings, prep, np.random.default_rng(0))
+    job = ChainJob(model, settings, setup.cache, setup.preconditioner)
+    plan = _pair.Plan(h, n_batch, 1, 0, 0, 1, False)
+    lap = prep.laplace
+    return job, plan, lap.mode, np.linalg.cholesky(lap.cov)
 
 
 def _tuned(model, settings, preparation):
@@ -174,14 +197,11 @@ def estimate(model, settings=None, *, replicates=20, lag=1, span=None, max_itera
                              defaults=_TUNING_DEFAULTS).check_against(model)
     check_coupled_settings(settings)
 
-    prep = prepare(model, proxy_orders=(settings.proxy_order_used,))
     tune_seed, pair_root = spawn_seeds(settings.seed, 2)
-    h, n_batch = _tuned(model, replace(settings, seed=tune_seed), prep)
-    setup = set_up(model, settings, prep, np.random.default_rng(0))
-    job = ChainJob(model, settings, setup.cache, setup.preconditioner)
-    plan = _pair.Plan(h, n_batch, lag, 0, 0, max_iterations, False)
-    lap = prep.laplace
-    shared = (job, plan, lap.mode, np.linalg.cholesky(lap.cov))
+    job, plan, mode, chol = coupled_setup(model, replace(settings, seed=tune_seed))
+    plan = plan._replace(lag=lag, max_iterations=max_iterations)
+    shared = (job, plan, mode, chol)
+    h, n_batch = plan.h, plan.n_batch
     seeds = (pair_root.spawn(PILOT_PAIRS + replicates)
              if isinstance(pair_root, np.random.SeedSequence)
              else [s.bit_generator.seed_seq for s in pair_root.spawn(PILOT_PAIRS + replicates)])
