@@ -122,7 +122,8 @@ def coupled_setup(model, settings, preparation=None):
 
 
 def _tuned(model, settings, preparation):
-    """(step size, batch size) at the end of a tuned warmup run, and the run's set-up."""
+    """(step size, batch size) at the end of a tuned warmup run of ``settings``: the median
+    of the chains' tuned steps, and the batch size warmup chose (1 for full-data methods)."""
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         run = sample(model, settings, preparation=preparation, parallel=False)
