@@ -248,3 +248,13 @@ def test_an_unknown_chain_scheduler_is_a_clear_error(model):
         tc.sample(model, scheduler="gpu", **RUN)
     with pytest.raises(tc.InputError, match=r"workers: must be a whole number >= 1"):
         tc.sample(model, scheduler="processes", workers=0, **RUN)
+
+
+def test_coupled_pairs_on_a_cluster_equal_pairs_in_this_process(model, client):
+    # estimate()'s pairs are tasks with their own seeds: the same numbers on a cluster
+    kw = dict(method="penalty-mala", replicates=4, seed=3, warmup=200)
+    here = tc.estimate(model, scheduler="serial", **kw)
+    there = tc.estimate(model, scheduler=client, **kw)
+    assert np.array_equal(here.replicates, there.replicates)
+    assert np.array_equal(here.meeting_times, there.meeting_times)
+    assert here.span == there.span

@@ -17,7 +17,7 @@ from importlib.metadata import PackageNotFoundError, version
 from .checks import calibrate, check_on_twin, ks_check, sweep
 from .exceptions import (ConvergenceWarning, DataNote, DataWarning, InputError, ModeNotFoundError,
                          NoisyLogRatioWarning, SamplingInterrupted, WorkerDiedError)
-from .mcmc import RunOptions, SampleResult, SamplerSettings, sample
+from .mcmc import EstimateResult, RunOptions, SampleResult, SamplerSettings, estimate, sample
 from .models import (BinomialRegression, GaussianPrior, LinearRegression, LogisticRegression,
                      NegativeBinomialRegression, PoissonRegression)
 from .posterior import GaussianPosterior, LaplaceApproximation, conjugate_posterior, find_mode
@@ -40,6 +40,9 @@ __all__ = [
     "SamplerSettings",
     "RunOptions",
     "SampleResult",
+    # unbiased estimates from coupled chains
+    "estimate",
+    "EstimateResult",
     # exact and approximate posteriors
     "conjugate_posterior",
     "GaussianPosterior",

@@ -231,3 +231,27 @@ def coefficient_figure(summary):
     if len(keep) < len(t["coef"]):
         axes[0][0].set_xlabel("coefficient (the intercept is in summary.csv)")
     return fig
+
+
+def plot_tv_bound(result, path):
+    """Write the bound on the total variation distance to the posterior against iteration
+    (`EstimateResult.tv_bound`, Biswas, Jacob & Vanetti 2019), with the warmup it implies."""
+    plt = _pyplot()
+    fig, ax = plt.subplots(figsize=(6.4, 4.0), layout="constrained")
+    bound = np.asarray(result.tv_bound)
+    t = np.arange(bound.size)
+    ax.step(t, np.maximum(bound, 1e-4), where="post", color="C0",
+            label=f"lag {result.lag}, {int(np.sum(result.meeting_times >= 0))} pairs")
+    ax.set_yscale("log")
+    ax.axhline(1.0, color="0.6", lw=0.8)
+    target = 0.01
+    ax.axhline(target, color="C3", lw=0.8, ls="--", label=f"TV = {target:g}")
+    warm = result.warmup_for_tv
+    if warm is not None:
+        ax.axvline(warm, color="C3", lw=0.8, ls=":", label=f"warmup {warm}")
+    ax.set_xlabel("iteration t")
+    ax.set_ylabel("upper bound on TV distance (floored at 1e-4)")
+    ax.set_title(f"{result.method}: coupling bound on the distance to the posterior")
+    ax.legend(loc="upper right", fontsize="small")
+    fig.savefig(Path(path), dpi=110)
+    plt.close(fig)

@@ -5,7 +5,7 @@ import sys
 from importlib.metadata import PackageNotFoundError, version
 
 from ..exceptions import InputError, ModeNotFoundError, WorkerDiedError
-from . import _check_commands, _predict_command, _run_commands  # noqa: F401  (they register the commands)
+from . import _check_commands, _estimate_command, _predict_command, _run_commands  # noqa: F401  (they register the commands)
 from ._registry import COMMANDS, EXIT_BAD_INPUT, PROG, UsageError, Parser, one_line
 
 

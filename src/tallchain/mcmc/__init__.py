@@ -1,9 +1,10 @@
 """Markov chains: the settings, the method table, the numba transition loop, warmup, runners,
-checkpoints, `sample`, the result and its summary."""
+checkpoints, `sample`, the result and its summary; coupled pairs and `estimate`."""
 
 from ._acceptance_rules import (accept_probability, ceperley_dewing_closed_form,
                                 ceperley_dewing_penalty, ceperley_dewing_series, mean_acceptance,
                                 validity_bound)
+from ._estimate_result import EstimateResult
 from ._laplace_gap import ECDF_QUANTILES, KS_CRITICAL, ecdf_ess
 from ._methods import METHODS
 from ._predict import predict_blocks, prediction_columns, rows_per_block
@@ -13,11 +14,13 @@ from ._settings import RunOptions, SamplerSettings, settings_from
 from ._setup import Preparation, prepare, spawn_seeds
 from ._summary import Summary, check_interval, ess_bulk, summarize
 from ._tables import NAME_WIDTH, coefficient_table, run_header, table_notes
+from ._unbiased import check_coupled_settings, check_estimate_arguments, estimate
 
-__all__ = ["sample", "SamplerSettings", "RunOptions", "settings_from", "prepare",
-           "Preparation", "spawn_seeds", "SampleResult", "to_arviz", "Summary", "summarize",
+__all__ = ["sample", "estimate", "EstimateResult", "SamplerSettings", "RunOptions",
+           "settings_from", "prepare", "Preparation", "spawn_seeds", "SampleResult", "to_arviz", "Summary", "summarize",
            "ess_bulk", "METHODS", "accept_probability", "mean_acceptance",
            "ceperley_dewing_series", "ceperley_dewing_closed_form", "ceperley_dewing_penalty",
            "validity_bound", "ecdf_ess", "KS_CRITICAL", "ECDF_QUANTILES", "check_interval",
            "predict_blocks", "prediction_columns", "rows_per_block", "coefficient_table",
-           "run_header", "table_notes", "NAME_WIDTH"]
+           "run_header", "table_notes", "NAME_WIDTH", "check_coupled_settings",
+           "check_estimate_arguments"]
