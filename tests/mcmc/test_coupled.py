@@ -244,3 +244,15 @@ def test_results_are_bitwise_equal_on_one_and_two_workers(model, tmp_path):
     runs[1].plot(tmp_path / "tv_bound.png")
     assert (tmp_path / "tv_bound.png").stat().st_size > 0
     assert list(runs[1].table.columns) == ["mean", "se", "lower", "upper", "sd", "sd_se"]
+
+
+def test_the_tuning_runs_noise_advice_reaches_the_user(model):
+    # The pairs inherit the tuning run's step and batch size, so its advice on the log-ratio
+    # noise concerns them; the advice's rule (median log-ratio sd > 2) is mcmc/_advice.py's.
+    with pytest.warns(tc.NoisyLogRatioWarning, match=r"log-ratio sd is .* > 2"):
+        tc.estimate(model, method="penalty-rwm", control_variates=False, batch_size=5,
+                    step_size=1.0, replicates=2, span=(0, 5), seed=1, scheduler="serial")
+    # power: at the default settings the tuning run has nothing to say and nothing is raised
+    # (pytest turns any warning into an error here)
+    tc.estimate(model, method="penalty-rwm", replicates=2, span=(0, 5), seed=1,
+                scheduler="serial")

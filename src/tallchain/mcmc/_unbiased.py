@@ -15,7 +15,7 @@ from dataclasses import replace
 import numpy as np
 
 from .._validation import check_flag, fail, is_integer, positive_int
-from ..exceptions import ConvergenceWarning
+from ..exceptions import ConvergenceWarning, NoisyLogRatioWarning
 from ..executors import check_scheduler, check_workers, run_tasks, worker_count
 from ..models import check_model
 from . import _coupled_loop as _pair
@@ -123,9 +123,13 @@ def coupled_setup(model, settings, preparation=None):
 
 def _tuned(model, settings, preparation):
     """(step size, batch size) at the end of a tuned warmup run of ``settings``: the median
-    of the chains' tuned steps, and the batch size warmup chose (1 for full-data methods)."""
+    of the chains' tuned steps, and the batch size warmup chose (1 for full-data methods).
+
+    The run's advice on its log-ratio noise stays (the pairs use the same step and batch);
+    what it says about its own few draws (ESS, R-hat) does not concern the pairs."""
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
+        warnings.simplefilter("default", NoisyLogRatioWarning)
         run = sample(model, settings, preparation=preparation, parallel=False)
     h = float(np.median(run.tuned["step_size"]))
     n_batch = int(run.tuned["batch_size"] or 1)
