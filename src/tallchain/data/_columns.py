@@ -12,6 +12,7 @@ import numpy as np
 from .._arrays import row_blocks
 from .._validation import check_finite_matrix, fail, overflow_limit, too_large
 from ..exceptions import DataWarning
+from ._sparse import is_csr_design
 
 _BLOCK_BYTES = 2**24
 
@@ -142,6 +143,9 @@ def _columns_equal(X, a, b):
 def standardize_columns(X, *, intercept, stats=None, memory_fraction=0.5):
     """Return a standardised float64 copy of X and the `Standardization` to map back.
 
+    A sparse X (`CSRDesign`) is scaled, not centred: each column divided by its sd, so that
+    its zeros stay zeros; only its values are copied (``center`` is 0).
+
     The copy is made only when it fits in ``memory_fraction`` of the memory available now
     (``MemAvailable`` of /proc/meminfo; no limit where that is unknown). A larger X must be
     standardised on disk beforehand; the error says so.
@@ -160,15 +164,18 @@ def standardize_columns(X, *, intercept, stats=None, memory_fraction=0.5):
     Z : ndarray of shape (n_rows, n_features)
     standardization : Standardization
     """
+    stats = column_stats(X) if stats is None else stats
+    scale = np.where(stats["sd"] > 0, stats["sd"], 1.0)
+    if is_csr_design(X):   # scaled only: a centred column would have no zeros left
+        return X.scaled_columns(scale), Standardization(center=np.zeros(X.shape[1]),
+                                                        scale=scale, intercept=bool(intercept))
     need = X.shape[0] * X.shape[1] * 8
     avail = _available_memory()
     if avail is not None and need > memory_fraction * avail:
         fail("standardize", f"needs a {need / 2**30:.1f} GiB copy of X but only "
              f"{avail / 2**30:.1f} GiB of memory is free",
              "standardise the columns in the file beforehand, or set standardize = false")
-    stats = column_stats(X) if stats is None else stats
     center = stats["mean"] if intercept else np.zeros(X.shape[1])
-    scale = np.where(stats["sd"] > 0, stats["sd"], 1.0)
     Z = np.empty(X.shape, dtype=np.float64)
     row = 0
     for block in _blocks(X):

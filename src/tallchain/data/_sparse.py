@@ -119,6 +119,20 @@ class CSRDesign:
             data[a:a + step] = self.data[a:a + step] / scale[self.indices[a:a + step]]
         return CSRDesign(data, self.indices, self.indptr, self.shape)
 
+    def __getitem__(self, key):
+        """Rows by a slice (``X[a:b]``, ``X[a:b, j]``) as a dense array, for inspection."""
+        rows, rest = (key[0], key[1:]) if isinstance(key, tuple) else (key, ())
+        if not isinstance(rows, slice):
+            fail("X", "is sparse: only slices of rows can be read as dense arrays",
+                 "index it as X[a:b] or convert it with X.to_scipy()")
+        lo, hi, step = rows.indices(self.shape[0])
+        block = self.dense_rows(lo, max(lo, hi), dtype=None)[::step]
+        return block[(slice(None), *rest)] if rest else block
+
+    def __array__(self, dtype=None, copy=None):
+        """The dense matrix (the whole of it: for small designs and tests)."""
+        return self.dense_rows(0, self.shape[0], dtype)
+
     def __repr__(self):
         return f"CSRDesign(shape={self.shape}, nnz={self.nnz}, dtype={self.dtype})"
 
@@ -147,6 +161,42 @@ def prefer_sparse(n_nonzero, n_entries):
     """The storage rule of a formula's design: sparse when at most `SPARSE_MAX_DENSITY` of
     the entries (counted on a sample of rows) are non-zero."""
     return n_entries > 0 and n_nonzero <= SPARSE_MAX_DENSITY * n_entries
+
+
+def read_sparse_npz(path, archive, field):
+    """A `CSRDesign` from an open ``.npz`` archive written by ``scipy.sparse.save_npz`` (any
+    of its formats), or None when the archive is not one. Nothing is unpickled: the arrays
+    are read with ``allow_pickle=False`` by the caller, and ``format`` must be a plain string
+    array."""
+    if not {"format", "shape", "data"} <= set(archive.files):
+        return None
+    import scipy.sparse as sp
+    fmt = archive["format"]
+    fmt = fmt.item().decode() if fmt.dtype.kind == "S" else str(fmt.item())
+    shape = tuple(int(v) for v in archive["shape"])
+    fix = "save the matrix with scipy.sparse.save_npz(path, matrix)"
+    if len(shape) != 2:
+        fail(field, f"{path.name} holds a sparse array of shape {shape}",
+             "give a two-dimensional matrix")
+    try:
+        if fmt in ("csr", "csc", "bsr"):
+            arrays = (archive["data"], archive["indices"], archive["indptr"])
+            if fmt == "csr":
+                check_csr(field, *arrays, shape)
+            matrix = {"csr": sp.csr_matrix, "csc": sp.csc_matrix, "bsr": sp.bsr_matrix}[fmt](
+                arrays, shape=shape)
+        elif fmt == "coo":
+            matrix = sp.coo_matrix((archive["data"], (archive["row"], archive["col"])),
+                                   shape=shape)
+        elif fmt == "dia":
+            matrix = sp.dia_matrix((archive["data"], archive["offsets"]), shape=shape)
+        else:
+            fail(field, f"{path.name} holds a sparse matrix in format {fmt!r}",
+                 "save it as CSR: scipy.sparse.save_npz(path, matrix.tocsr())")
+    except (KeyError, ValueError) as exc:
+        fail(field, f"{path.name} is not a readable sparse matrix ({str(exc).splitlines()[0]})",
+             fix)
+    return CSRDesign.from_scipy(matrix, field)
 
 
 def check_csr(field, data, indices, indptr, shape):
