@@ -10,6 +10,7 @@ checked against numpy's standard deviations (ddof=0).
 """
 
 import re
+from pathlib import Path
 
 import arviz as az
 import numpy as np
@@ -108,3 +109,40 @@ def test_standardize_scales_sparse_columns_without_centring(tmp_path, rng):
     back = ds.standardization.to_original(coef)
     assert_ulps_close(back[1:], coef[1:] / sd, ulps=66)
     assert back[0] == coef[0]
+
+
+def _flights_like(rng, n):
+    import pandas as pd
+    return pd.DataFrame({"late": (rng.random(n) < 0.3).astype(float),
+                         "carrier": rng.choice(list("ABCDEFGHIJ"), n),
+                         "month": rng.integers(1, 13, n), "hour": rng.integers(5, 23, n)})
+
+
+def test_formula_with_categorical_terms_is_stored_sparse_in_the_cache(tmp_path, rng):
+    import warnings
+
+    from tallchain.data import encode_new_rows
+    from tallchain.data._sparse import SPARSE_MAX_DENSITY
+
+    frame = _flights_like(rng, 3000)
+    frame.to_parquet(tmp_path / "f.parquet")
+    formula = "late ~ hour + C(carrier) + C(month)"
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        ds = load_data(table=tmp_path / "f.parquet", formula=formula)
+        again = load_data(table=tmp_path / "f.parquet", formula=formula)   # from the cache
+        dense = load_data(table=tmp_path / "f.parquet", formula="late ~ hour + month")
+    # 3 of 21 columns non-zero per row (hour, a carrier and a month level at most):
+    # below the rule's share, so CSR; two numeric columns are not
+    assert isinstance(ds.X, CSRDesign) and ds.X.shape == (3000, 1 + 9 + 11)
+    assert ds.X.nnz <= 3 * 3000 and ds.X.nnz / (3000 * 21) <= SPARSE_MAX_DENSITY
+    assert isinstance(dense.X, np.ndarray)
+    entry = Path(ds.table_report["cache"])
+    assert sorted(p.name for p in entry.glob("X*.npy")) == ["X_data.npy", "X_indices.npy",
+                                                          "X_indptr.npy"]
+    for part in (again.X.data, again.X.indices, again.X.indptr):
+        assert isinstance(part, np.memmap) and part.mode == "r"
+    # the same values as formulaic's dense encoding of the same rows (the new-rows path)
+    expected = encode_new_rows(ds.encoding, frame.drop(columns=["late"]))
+    np.testing.assert_array_equal(np.asarray(ds.X), expected)
+    np.testing.assert_array_equal(np.asarray(again.X), expected)
