@@ -22,6 +22,8 @@ What is checked, and against what:
   (scipy.stats.ks_2samp) within 1.5 noise floors 1.358 sqrt(2 / ESS) (ECDF ESS of the draws,
   `tallchain.checks` convention). Power: the same test on a design whose column 0 is moved by
   +1 in every row holding a non-zero fails on that column's coefficient. Marked slow.
+* The same with the parallel passes forced (prange over blocks of rows), which pass a CSR
+  design to their threads taken apart.
 * A scipy.sparse X from a model constructor, and pickling (workers receive models as files):
   the CSR arrays of a memory map travel as file paths and reopen equal.
 """
@@ -38,6 +40,7 @@ from tallchain.checks._ks import ecdf_ess
 from tallchain.data import CSRDesign
 from tallchain.mcmc import _estimators as E
 from tallchain.models import _kernels as K
+from tallchain.models import _passes
 from tallchain.posterior._control_variates import RowCache, row_cache
 from ulps import assert_ulps_close
 
@@ -92,7 +95,16 @@ def test_model_keeps_scipy_sparse_as_csr(pair):
     assert csr.X.nbytes < dense.X.nbytes
 
 
-def test_full_data_passes_agree_in_ulps(pair, rng):
+@pytest.fixture(params=["serial", "parallel"])
+def passes(request, monkeypatch):
+    """Serial passes (N below the parallel threshold), or the parallel kernels forced: their
+    prange loop hands a CSR design to its threads apart and joins it inside."""
+    if request.param == "parallel":
+        monkeypatch.setattr(_passes, "PARALLEL_MIN_ROWS", 0)
+    return request.param
+
+
+def test_full_data_passes_agree_in_ulps(pair, rng, passes):
     dense, csr = pair
     theta = dense.prior_mean + 0.3 * rng.standard_normal(dense.n_coef)
     ulps = P + 2 + N + 4
@@ -121,7 +133,7 @@ def test_full_data_passes_agree_in_ulps(pair, rng):
                       ulps=ulps, scale=phi.T @ (c[:, None] * phi), err_msg="Hessian")
 
 
-def test_row_cache_and_minibatch_estimators_agree_in_ulps(pair, rng):
+def test_row_cache_and_minibatch_estimators_agree_in_ulps(pair, rng, passes):
     dense, csr = pair
     star = tc.find_mode(dense).mode
     d = dense.n_coef
@@ -231,3 +243,54 @@ def test_penalty_mala_draws_agree_and_a_shifted_column_fails(rng):
     ks_w, floor_w = two_sample_ks(wrong, dense)
     print("shifted column 0 KS/floor:", np.round(ks_w / floor_w, 2))
     assert ks_w[1] > 1.5 * floor_w[1]   # coefficient 1 is column 0's (after the intercept)
+
+
+_MEMORY_SCRIPT = """
+import resource, sys
+import numpy as np
+import tallchain as tc
+from tallchain.data import CSRDesign
+
+def one_hot(n, rng, n_vars=10, levels=11):
+    level = rng.integers(0, levels, size=(n, n_vars), dtype=np.int32)
+    nz = level > 0
+    indptr = np.zeros(n + 1, dtype=np.int64)
+    np.cumsum(nz.sum(axis=1), out=indptr[1:])
+    cols = (np.arange(n_vars, dtype=np.int32) * (levels - 1))[None, :] + level - 1
+    X = CSRDesign(np.ones(int(indptr[-1])), cols[nz].astype(np.int32), indptr,
+                  (n, n_vars * (levels - 1)))
+    y = (rng.random(n) < 0.3).astype(float)
+    return X, y
+
+def rss():
+    with open("/proc/self/statm") as fh:
+        return int(fh.read().split()[1]) * resource.getpagesize()
+
+rng = np.random.default_rng(1)
+run = dict(method="penalty-mala", chains=2, draws=200, warmup=100, seed=1, parallel=False)
+tc.sample(tc.LogisticRegression(*one_hot(3000, rng)), **run)   # compile first
+base = rss()
+X, y = one_hot(int(sys.argv[1]), rng)
+tc.sample(tc.LogisticRegression(X, y), **run)
+peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+print(max(peak, rss()) - base, X.nbytes, X.shape[0] * X.shape[1] * 8)
+"""
+
+
+@pytest.mark.slow
+def test_a_million_row_one_hot_design_runs_in_less_memory_than_its_dense_form(tmp_path):
+    """Peak RSS growth of a whole run (design, model, set-up, sampling) in a fresh process,
+    over the RSS after compiling, against the N x d x 8 bytes of the dense form (never built).
+    The peak includes the CSR arrays themselves (checked: the measure sees them)."""
+    import os
+    import subprocess
+    import sys
+    script = tmp_path / "memory.py"
+    script.write_text(_MEMORY_SCRIPT)
+    env = {**os.environ, "PYTHONPATH": os.pathsep.join(sys.path)}
+    out = subprocess.run([sys.executable, str(script), "1000000"], capture_output=True,
+                         text=True, env=env, timeout=1200, check=True).stdout.split()
+    grown, csr_bytes, dense_bytes = map(int, out[-3:])
+    print(f"\npeak RSS growth {grown / 2**20:.0f} MiB, CSR {csr_bytes / 2**20:.0f} MiB, "
+          f"dense form {dense_bytes / 2**20:.0f} MiB")
+    assert csr_bytes <= grown < dense_bytes

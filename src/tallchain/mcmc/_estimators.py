@@ -14,7 +14,9 @@ The pure-NumPy references of these kernels, under the same names, are in ``_refe
 
 import math
 
-from ..models._family_params import BINOMIAL, dloglik_phi, family_value, log_norm_phi
+import numba
+
+from ..models._family_params import BINOMIAL, OPTIONS, dloglik_phi, family_value, log_norm_phi
 from ..models._kernels import dloglik_eta, jit, loglik_diff_eta, loglik_eta
 from ..models._rows import row_axpy, row_dot, row_dot2
 
@@ -147,7 +149,7 @@ def proxy_loglik_diff_sum(rows, beta_new, beta_old):
     return acc
 
 
-@jit
+@numba.njit(inline="always", **OPTIONS)
 def _read_pair(X, aux, i, k, d1, w1, d0, w0, e1, e0, yv):
     """Read batch row i (the k-th) for a log-ratio: u1 = d1 + x_i . w1 and u0 = d0 + x_i . w0
     in one pass over row i of X, e1[k], e0[k] = eta*_i + u1, eta*_i + u0, yv[k] = y_i;

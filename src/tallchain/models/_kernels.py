@@ -22,7 +22,7 @@ import numpy as np
 from ._family_params import (BINOMIAL, LINEAR, LOGISTIC, NEG_BINOMIAL, OPTIONS, POISSON,
                              dloglik_phi, family_value, log_norm_phi, nb_d2loglik, nb_dloglik,
                              nb_loglik)
-from ._rows import row_axpy, row_dot, row_outer
+from ._rows import design_join, design_parts, row_axpy, row_dot, row_outer
 
 # exp() overflows past this; Poisson gradients saturate here instead of producing inf * 0 = NaN.
 _EXP_MAX = 700.0
@@ -383,6 +383,22 @@ def full_eta_derivatives(data, beta, eta, f1, f2, lo, hi):
 
 
 @jit
+def _split(data):
+    """``data`` as (design arrays, shape, the other fields), for a parallel loop (`_joined`)."""
+    parts, shape = design_parts(data.X)
+    return parts, shape, (data.family, data.y, data.offset, data.noise_sd, data.intercept,
+                          data.n_family, data.trials, data.weights)
+
+
+@jit
+def _joined(parts, shape, rest):
+    """The GLMData of `_split`."""
+    family, y, offset, noise_sd, intercept, n_family, trials, weights = rest
+    return GLMData(family, design_join(parts, shape), y, offset, noise_sd, intercept, n_family,
+                   trials, weights)
+
+
+@jit
 def _block_bounds(b, n):
     """Rows [lo, hi) of block b of n rows."""
     lo = b * BLOCK_ROWS
@@ -396,9 +412,11 @@ def par_loglik_grad(data, beta, grad, with_const):
     d = grad.shape[0]
     nb = (n + BLOCK_ROWS - 1) // BLOCK_ROWS
     part = np.empty((nb, d + 1))
+    parts, shape, rest = _split(data)
     for b in numba.prange(nb):
         lo, hi = _block_bounds(b, n)
-        part[b, 0] = full_loglik_grad(data, beta, part[b, 1:], with_const, lo, hi)
+        part[b, 0] = full_loglik_grad(_joined(parts, shape, rest), beta, part[b, 1:],
+                                      with_const, lo, hi)
     acc = 0.0
     for j in range(d):
         grad[j] = 0.0
@@ -416,9 +434,10 @@ def par_hessian(data, beta, hess):
     d = hess.shape[0]
     nb = (n + BLOCK_ROWS - 1) // BLOCK_ROWS
     part = np.empty((nb, d, d))
+    parts, shape, rest = _split(data)
     for b in numba.prange(nb):
         lo, hi = _block_bounds(b, n)
-        full_hessian(data, beta, part[b], lo, hi)
+        full_hessian(_joined(parts, shape, rest), beta, part[b], lo, hi)
     for a in range(d):
         for c in range(d):
             acc = 0.0
@@ -433,6 +452,7 @@ def par_eta_derivatives(data, beta, eta, f1, f2):
     independent)."""
     n = data.X.shape[0]
     nb = (n + BLOCK_ROWS - 1) // BLOCK_ROWS
+    parts, shape, rest = _split(data)
     for b in numba.prange(nb):
         lo, hi = _block_bounds(b, n)
-        full_eta_derivatives(data, beta, eta, f1, f2, lo, hi)
+        full_eta_derivatives(_joined(parts, shape, rest), beta, eta, f1, f2, lo, hi)

@@ -15,6 +15,7 @@ compiles the one that fits X's type (the overloads at the end).
 from numba import types
 from numba.extending import overload
 
+from ..data import CSRArrays
 from ._family_params import OPTIONS
 
 _INLINE = {k: v for k, v in OPTIONS.items() if k != "cache"}
@@ -106,21 +107,56 @@ def _csr_row_outer(X, i, w, hess, intercept, xi):
                 hess[b, a] += wa * data[m]
 
 
-@overload(row_dot, jit_options=_INLINE)
+@overload(row_dot, jit_options=_INLINE, inline="always")
 def _row_dot(X, i, w):
     return row_dot if _is_dense(X) else _csr_row_dot
 
 
-@overload(row_dot2, jit_options=_INLINE)
+@overload(row_dot2, jit_options=_INLINE, inline="always")
 def _row_dot2(X, i, w1, w0):
     return row_dot2 if _is_dense(X) else _csr_row_dot2
 
 
-@overload(row_axpy, jit_options=_INLINE)
+@overload(row_axpy, jit_options=_INLINE, inline="always")
 def _row_axpy(X, i, r, g):
     return row_axpy if _is_dense(X) else _csr_row_axpy
 
 
-@overload(row_outer, jit_options=_INLINE)
+@overload(row_outer, jit_options=_INLINE, inline="always")
 def _row_outer(X, i, w, hess, intercept, xi):
     return row_outer if _is_dense(X) else _csr_row_outer
+
+
+# A parallel loop (numba prange) passes the variables it uses to its threads one tuple level
+# deep: a CSR design nested in the kernels' GLMData is one level too deep. Parallel kernels
+# take the design apart before the loop (`design_parts`) and put it together inside
+# (`design_join`); for a dense X both are the identity.
+
+
+def design_parts(X):
+    """(arrays, shape): a tuple of X's arrays and its shape."""
+    return (X,), X.shape
+
+
+def design_join(parts, shape):
+    """The design of `design_parts`."""
+    return parts[0]
+
+
+def _csr_design_parts(X):
+    return (X.data, X.indices, X.indptr), X.shape
+
+
+@overload(design_parts, jit_options=_INLINE, inline="always")
+def _design_parts(X):
+    return design_parts if _is_dense(X) else _csr_design_parts
+
+
+@overload(design_join, jit_options=_INLINE, inline="always")
+def _design_join(parts, shape):
+    if isinstance(parts[0], types.Array) and len(parts) == 1:
+        return design_join
+
+    def csr(parts, shape):
+        return CSRArrays(parts[0], parts[1], parts[2], shape)
+    return csr
