@@ -29,10 +29,10 @@ import numba
 import numpy as np
 
 import tallchain as tc
+from bench_tall_data import time_full_pass   # this folder is the script's path
 from tallchain.data import CSRDesign
 from tallchain.mcmc import ess_bulk
 from tallchain.mcmc._batches import draw_batch
-from tallchain.models import _kernels
 
 N_VARS, LEVELS = 10, 11
 D = N_VARS * (LEVELS - 1)
@@ -73,19 +73,6 @@ def make_data(n, rng):
     eta = -0.5 + np.add.reduceat(effects[indices], indptr[:-1]) * (counts > 0)
     y = (rng.random(n) < 1.0 / (1.0 + np.exp(-eta))).astype(float)
     return CSRDesign(data, indices, indptr, (n, D)), y
-
-
-def time_full_pass(model, repeats=3):
-    beta = np.zeros(model.n_coef)
-    grad = np.empty(model.n_coef)
-    data = model.glm_data
-    _kernels.full_loglik_grad(data, beta, grad, True, 0, model.n_rows)
-    times = []
-    for _ in range(repeats):
-        t = time.perf_counter()
-        _kernels.full_loglik_grad(data, beta, grad, True, 0, model.n_rows)
-        times.append(time.perf_counter() - t)
-    return float(np.median(times))
 
 
 def transition_cost(model, chains, draws, warmup):
