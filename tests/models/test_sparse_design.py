@@ -294,3 +294,18 @@ def test_a_million_row_one_hot_design_runs_in_less_memory_than_its_dense_form(tm
     print(f"\npeak RSS growth {grown / 2**20:.0f} MiB, CSR {csr_bytes / 2**20:.0f} MiB, "
           f"dense form {dense_bytes / 2**20:.0f} MiB")
     assert csr_bytes <= grown < dense_bytes
+
+
+def test_bad_values_in_a_sparse_x_are_named_by_row_and_column(rng):
+    from tallchain.exceptions import InputError
+    Xs = sparse_design(rng, n=200)
+    y = (rng.random(200) < 0.5).astype(float)
+    bad = Xs.copy()
+    bad.data[7] = np.nan
+    row, col = np.searchsorted(bad.indptr, 7, side="right") - 1, bad.indices[7]
+    with pytest.raises(InputError, match=rf"^X: contains nan in row {row}, column {col};"):
+        tc.LogisticRegression(bad, y)
+    big = Xs.copy()
+    big.data[7] = 1e300
+    with pytest.raises(InputError, match=rf"^X: column x{col} holds 1e\+300 in row {row}, too "):
+        tc.LogisticRegression(big, y)

@@ -120,12 +120,19 @@ class CSRDesign:
         return CSRDesign(data, self.indices, self.indptr, self.shape)
 
     def __getitem__(self, key):
-        """Rows by a slice (``X[a:b]``, ``X[a:b, j]``) as a dense array, for inspection."""
+        """Rows by an index or a slice (``X[i]``, ``X[a:b]``, ``X[a:b, j]``) as a dense array,
+        for inspection and error messages."""
         rows, rest = (key[0], key[1:]) if isinstance(key, tuple) else (key, ())
+        if isinstance(rows, (int, np.integer)):   # one row
+            i = int(rows) % self.shape[0]
+            return self[(slice(i, i + 1), *rest)][0]
         if not isinstance(rows, slice):
             fail("X", "is sparse: only slices of rows can be read as dense arrays",
                  "index it as X[a:b] or convert it with X.to_scipy()")
         lo, hi, step = rows.indices(self.shape[0])
+        if len(rest) == 1 and isinstance(rest[0], (int, np.integer)):   # one column, sparsely
+            column = self.row_slice(lo, max(lo, hi))[::step, int(rest[0])]
+            return column.toarray().reshape(-1).astype(self.dtype, copy=False)
         block = self.dense_rows(lo, max(lo, hi), dtype=None)[::step]
         return block[(slice(None), *rest)] if rest else block
 
