@@ -113,6 +113,15 @@ def main():
         X, y = make_data(n, rng)
         model = tc.LogisticRegression(X, y, prior=tc.GaussianPrior(sd=10.0))
         t_pass = time_full_pass(model)
+        # check: the CSR kernels' log-likelihood against scipy's CSR product and NumPy's
+        # logistic log-likelihood at a random point (a sum of N terms: 1e-9 relative)
+        beta = 0.1 * rng.standard_normal(model.n_coef)
+        eta = beta[0] + X.to_scipy() @ beta[1:]
+        ref = float(np.sum(y * eta - np.logaddexp(0.0, eta)))
+        ok = abs(model.log_likelihood(beta) - ref) <= 1e-9 * abs(ref)
+        print(f"check: CSR log-likelihood vs scipy/NumPy {'ok' if ok else 'FAILED'}", flush=True)
+        if not ok:
+            raise SystemExit(1)
         r, per_it, evals = transition_cost(model, chains, draws, warmup)
         grown = peak_rss() - base
         nb = r.tuned["batch_size"]
