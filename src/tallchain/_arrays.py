@@ -14,12 +14,17 @@ def row_blocks(a, *, block_bytes=BLOCK_BYTES, dtype=np.float64):
 
     Parameters
     ----------
-    a : ndarray of shape (n_rows, ...) or (n_rows,)
+    a : ndarray of shape (n_rows, ...) or (n_rows,), or a sparse design
+        A sparse design (``dense_rows``) yields dense blocks of its rows.
     block_bytes : int, default=2**24
     dtype : numpy dtype or None, default=float64
     """
     row_bytes = 8 * max(1, int(np.prod(a.shape[1:], dtype=np.int64)))
     rows = max(1, block_bytes // row_bytes)
+    if hasattr(a, "dense_rows"):   # a sparse design (tallchain.data CSRDesign): dense blocks
+        for start in range(0, a.shape[0], rows):
+            yield start, a.dense_rows(start, min(start + rows, a.shape[0]), dtype)
+        return
     for start in range(0, a.shape[0], rows):
         block = a[start:start + rows]
         yield start, (np.asarray(block) if dtype is None else np.asarray(block, dtype=dtype))

@@ -24,7 +24,9 @@ def check_finite_matrix(name, a, columns=None):
     columns of a matrix in the message."""
     if a.dtype.kind not in "fiu":
         fail(name, f"has dtype {a.dtype}, not numeric", "give a float or integer array")
-    if a.dtype.kind == "f":
+    if a.dtype.kind == "f" and hasattr(a, "indptr"):
+        _check_sparse_values(name, a, columns)
+    elif a.dtype.kind == "f":
         limit = overflow_limit(a.shape[0])
         # float32 (or narrower) values cannot reach the limit below 10^230 rows
         wide = float(np.finfo(a.dtype).max) > limit
@@ -37,6 +39,21 @@ def check_finite_matrix(name, a, columns=None):
             big = np.abs(block).max(axis=0) > limit if wide and block.size else False
             if np.any(big):
                 too_large(name, a, int(np.argmax(big)) if a.ndim == 2 else None, columns)
+
+
+def _check_sparse_values(name, a, columns):
+    """`check_finite_matrix` for a sparse design (data, indices, indptr): its stored values
+    only, located by row through indptr."""
+    limit = overflow_limit(a.shape[0])
+    for start, block in row_blocks(a.data, dtype=None):
+        bad = ~np.isfinite(block)
+        if bad.any():
+            k = start + int(np.argmax(bad))
+            row = int(np.searchsorted(a.indptr, k, side="right")) - 1
+            fail(name, f"contains {a.data[k]} in row {row}, column {a.indices[k]}",
+                 "remove or impute that value")
+        if block.size and np.abs(block).max() > limit:
+            too_large(name, a, int(a.indices[start + int(np.argmax(np.abs(block)))]), columns)
 
 
 def overflow_limit(n_rows):

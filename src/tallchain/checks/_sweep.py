@@ -11,6 +11,7 @@ import numpy as np
 
 from .._arrays import row_blocks
 from .._validation import check_flag, fail, is_integer, is_number, one_of
+from ..data import is_csr_design
 from ..executors import check_scheduler, check_workers, run_tasks, worker_count
 from ..mcmc import METHODS, ess_bulk, prepare, sample, settings_from, spawn_seeds
 from ..models import check_model
@@ -141,7 +142,7 @@ def _warm_kernels(model, settings, options):
     types; it is done once per process and kind of run.
     """
     arrays = tuple((a.dtype.str, a.ndim, a.flags.c_contiguous, a.flags.writeable)
-                   for a in (model.X, model.y, model.offset) if a is not None)
+                   for a in (*_design_parts(model.X), model.y, model.offset) if a is not None)
     record = settings.record()
     key = (type(model).__name__, arrays,
            tuple(sorted((k, repr(v)) for k, v in record.items()
@@ -429,3 +430,8 @@ def write_sweep(result, directory):
     atomic_write(out / "sweep.csv", _csv)
     write_json(out / "sweep.json", result.as_dict())
     plot_sweep(result, out / "sweep.png")
+
+
+def _design_parts(X):
+    """The arrays a kernel's compiled types depend on: X, or a sparse X's three arrays."""
+    return (X.data, X.indices, X.indptr) if is_csr_design(X) else (X,)

@@ -22,7 +22,7 @@ import numpy as np
 from ..exceptions import DataWarning
 
 CACHE_FOLDER = ".tallchain-cache"
-CACHE_VERSION = 2
+CACHE_VERSION = 3   # 3: formulas with mostly-zero designs stored as CSR
 
 
 def cache_folder(table_path, cache_dir=None):

@@ -12,6 +12,7 @@ import numpy as np
 from .._arrays import row_blocks
 from .._validation import check_finite_matrix, fail, overflow_limit, too_large
 from ..exceptions import DataWarning
+from ._sparse import design_blocks, is_csr_design
 
 _BLOCK_BYTES = 2**24
 
@@ -80,22 +81,48 @@ def column_stats(X):
     lo, hi = np.full(p, np.inf), np.full(p, -np.inf)
     seen = 0
     with np.errstate(invalid="ignore", over="ignore"):  # NaN/inf are located below
-        for block in _blocks(X):
+        blocks = ((b, _sparse_moments(b)) for _, b in design_blocks(X, _BLOCK_BYTES)) \
+            if is_csr_design(X) else ((b, _dense_moments(b)) for b in _blocks(X))
+        for block, (bmean, bm2, bmin, bmax) in blocks:
             nb = block.shape[0]
-            bmean = block.mean(axis=0)
-            bm2 = ((block - bmean) ** 2).sum(axis=0)
             total = seen + nb
             delta = bmean - mean
             mean = mean + delta * nb / total
             m2 = m2 + bm2 + delta**2 * seen * nb / total
             seen = total
-            np.minimum(lo, block.min(axis=0), out=lo)
-            np.maximum(hi, block.max(axis=0), out=hi)
+            np.minimum(lo, bmin, out=lo)
+            np.maximum(hi, bmax, out=hi)
     # NaN or inf in X shows in the minimum or maximum (an inf M2 with finite extremes is an
     # overflow of the squares, which check_columns reports by column name).
     if not (np.all(np.isfinite(lo)) and np.all(np.isfinite(hi))):
         check_finite_matrix("X", X)
     return {"mean": mean, "sd": np.sqrt(m2 / max(n_rows, 1)), "min": lo, "max": hi}
+
+
+def _dense_moments(block):
+    bmean = block.mean(axis=0)
+    return bmean, ((block - bmean) ** 2).sum(axis=0), block.min(axis=0), block.max(axis=0)
+
+
+def _sparse_moments(block):
+    """`_dense_moments` of a scipy CSR block from its non-zeros: a column with k non-zeros
+    of n rows adds (n - k) mean^2 to M2 for its zeros, and 0 to its extremes when k < n."""
+    n, p = block.shape
+    cols, vals = block.indices, block.data
+    count = np.bincount(cols, minlength=p)
+    bmean = np.bincount(cols, weights=vals, minlength=p) / n
+    bm2 = (np.bincount(cols, weights=(vals - bmean[cols]) ** 2, minlength=p)
+           + (n - count) * bmean**2)
+    has_zero = np.where(count < n, 0.0, np.inf)
+    bmin = np.minimum(has_zero, _column_extreme(np.minimum, cols, vals, p, np.inf))
+    bmax = np.maximum(-has_zero, _column_extreme(np.maximum, cols, vals, p, -np.inf))
+    return bmean, bm2, bmin, bmax
+
+
+def _column_extreme(ufunc, cols, vals, p, start):
+    out = np.full(p, start)
+    ufunc.at(out, cols, vals)
+    return out
 
 
 def check_columns(X, names, *, intercept, stats=None):
@@ -142,6 +169,9 @@ def _columns_equal(X, a, b):
 def standardize_columns(X, *, intercept, stats=None, memory_fraction=0.5):
     """Return a standardised float64 copy of X and the `Standardization` to map back.
 
+    A sparse X (`CSRDesign`) is scaled, not centred: each column divided by its sd, so that
+    its zeros stay zeros; only its values are copied (``center`` is 0).
+
     The copy is made only when it fits in ``memory_fraction`` of the memory available now
     (``MemAvailable`` of /proc/meminfo; no limit where that is unknown). A larger X must be
     standardised on disk beforehand; the error says so.
@@ -160,15 +190,18 @@ def standardize_columns(X, *, intercept, stats=None, memory_fraction=0.5):
     Z : ndarray of shape (n_rows, n_features)
     standardization : Standardization
     """
+    stats = column_stats(X) if stats is None else stats
+    scale = np.where(stats["sd"] > 0, stats["sd"], 1.0)
+    if is_csr_design(X):   # scaled only: a centred column would have no zeros left
+        return X.scaled_columns(scale), Standardization(center=np.zeros(X.shape[1]),
+                                                        scale=scale, intercept=bool(intercept))
     need = X.shape[0] * X.shape[1] * 8
     avail = _available_memory()
     if avail is not None and need > memory_fraction * avail:
         fail("standardize", f"needs a {need / 2**30:.1f} GiB copy of X but only "
              f"{avail / 2**30:.1f} GiB of memory is free",
              "standardise the columns in the file beforehand, or set standardize = false")
-    stats = column_stats(X) if stats is None else stats
     center = stats["mean"] if intercept else np.zeros(X.shape[1])
-    scale = np.where(stats["sd"] > 0, stats["sd"], 1.0)
     Z = np.empty(X.shape, dtype=np.float64)
     row = 0
     for block in _blocks(X):

@@ -166,10 +166,12 @@ def formula_encoding(formula, names, *, row_columns=None, field="formula"):
                     **row_columns), categorical
 
 
-def encode_block(encoding, frame, state):
+def encode_block(encoding, frame, state, sparse=False):
     """Encode a pandas frame of complete rows: ``(X block, y block or None)``.
 
     ``state`` is a dict kept across batches (formulaic's model specs, built on the first).
+    With ``sparse`` (formulas only) the X block is a scipy CSR matrix: formulaic's sparse
+    output, never dense.
     """
     if encoding.kind == "columns":
         X = np.column_stack([frame[c].to_numpy(dtype=np.float64) for c in encoding.variables]) \
@@ -186,7 +188,14 @@ def encode_block(encoding, frame, state):
         encoding.intercept = "Intercept" in names
         encoding.columns = [n for n in names if n != "Intercept"]
     spec = state["rhs"]
-    X = np.asarray(_materialise(spec.get_model_matrix, None, frame), dtype=np.float64)
+    if sparse:
+        import scipy.sparse as sp
+        if "rhs_sparse" not in state:
+            state["rhs_sparse"] = spec.update(output="sparse")
+        X = sp.csr_matrix(_materialise(state["rhs_sparse"].get_model_matrix, None, frame),
+                          dtype=np.float64)
+    else:
+        X = np.asarray(_materialise(spec.get_model_matrix, None, frame), dtype=np.float64)
     if encoding.intercept:
         X = X[:, [j for j, n in enumerate(spec.column_names) if n != "Intercept"]]
     y = None

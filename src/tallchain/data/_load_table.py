@@ -11,6 +11,7 @@ holds more than one batch of the table.
 import os
 import re
 import warnings
+from pathlib import Path
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -18,7 +19,9 @@ import numpy as np
 from .._validation import fail, first_bad_row_value, one_of, show_value
 from ..exceptions import DataNote, DataWarning
 from . import _cache
+from ._csr_store import CSRSink, design_of
 from ._encoding import MAX_LEVELS, Encoding, check_row_roles, encode_block, formula_encoding
+from ._sparse import prefer_sparse
 from ._tables import Table, is_text
 
 MISSING_CHOICES = ("drop", "error")
@@ -117,7 +120,9 @@ def load_table(table, *, formula=None, response=None, columns=None, offset=None,
             return _table_data(arrays, Encoding.from_dict(meta["encoding"]), meta["report"])
     scan = _scan(source, encoding, types, missing, id_check=columns is None and
                  formula is None)
-    shapes = {"X": (scan["kept"], _n_features(source, encoding, types)), "y": (scan["kept"],)}
+    n_features, sparse = _n_features(source, encoding, types)
+    shapes = {"y": (scan["kept"],)} if sparse else {"X": (scan["kept"], n_features),
+                                                     "y": (scan["kept"],)}
     shapes.update({role: (scan["kept"],) for role in rows})
     report = {"rows_read": scan["rows"], "rows_used": scan["kept"], "missing": scan["missing"],
               "missing_policy": missing, "cache": None if entry is None else str(entry)}
@@ -128,24 +133,36 @@ def load_table(table, *, formula=None, response=None, columns=None, offset=None,
     else:
         removed, writer = [], None
     arrays = writer.arrays if writer is not None else {n: np.empty(s) for n, s in shapes.items()}
+    sink = None
+    if sparse:
+        sink = CSRSink(None if writer is None else writer.tmp, scan["kept"], n_features)
+        arrays = {**arrays, "X": sink}
     try:
         _fill(source, encoding, types, arrays)
+        if sink is not None:
+            arrays.update(sink.finish())
+            del arrays["X"]
     except BaseException:
+        if sink is not None:
+            sink.discard()
         if writer is not None:
             writer.discard()
         raise
     if writer is not None:
         if writer.tmp is None:
             report["cache"] = None
-        arrays = writer.commit({"source": identity, "encoding": encoding.to_dict(),
-                                "report": report})
+        committed = writer.commit({"source": identity, "encoding": encoding.to_dict(),
+                                   "report": report})
+        # in memory (folder not writable): the writer's arrays and a sparse X's; else the
+        # entry's files, mapped
+        arrays = {**arrays, **committed} if report["cache"] is None else committed
         if report["cache"] is not None:
             _warn_cache_written(entry, shapes, removed)
     return _table_data(arrays, encoding, report)
 
 
 def _table_data(arrays, encoding, report):
-    return TableData(X=arrays["X"], y=arrays["y"], offset=arrays.get("offset"),
+    return TableData(X=design_of(arrays, len(encoding.columns)), y=arrays["y"], offset=arrays.get("offset"),
                      trials=arrays.get("trials"), weights=arrays.get("weights"),
                      encoding=encoding, report=report)
 
@@ -324,15 +341,17 @@ def _warn_identifiers(encoding, increasing):
 
 
 def _n_features(source, encoding, types):
-    """The number of X's columns: from a formula, the columns of its first complete row."""
+    """The number of X's columns and whether X is stored sparse: from a formula, the columns
+    of its first batch of complete rows (up to 256), and its share of non-zeros there
+    (`prefer_sparse`); named columns are stored dense."""
     if encoding.kind == "columns":
-        return len(encoding.variables)
+        return len(encoding.variables), False
     for start, batch in source.batches(encoding.needed, batch_rows=256, types=types):
         frame = _complete_frame(batch, encoding.needed, start)
         if len(frame):
-            encode_block(encoding, frame.iloc[:1], {})
-            return len(encoding.columns)
-    return 0   # pragma: no cover - _scan has refused a table without complete rows
+            xb, _ = encode_block(encoding, frame, {})
+            return len(encoding.columns), prefer_sparse(np.count_nonzero(xb), xb.size)
+    return 0, False   # pragma: no cover - _scan has refused a table without complete rows
 
 
 def _complete_frame(batch, needed, start):
@@ -358,11 +377,14 @@ def _fill(source, encoding, types, arrays):
         frame = _complete_frame(batch, encoding.needed, start)
         if not len(frame):
             continue
-        xb, yb = encode_block(encoding, frame, state)
+        xb, yb = encode_block(encoding, frame, state, sparse=isinstance(X, CSRSink))
         stop = at + len(frame)
         _check_finite(xb, encoding.columns, frame.index, source.label)
         _check_finite(yb[:, None], [encoding.response], frame.index, source.label)
-        X[at:stop] = xb
+        if isinstance(X, CSRSink):
+            X.append(xb)
+        else:
+            X[at:stop] = xb
         y[at:stop] = yb
         for role, name in encoding.row_columns.items():
             values = frame[name].to_numpy(dtype=np.float64)
@@ -379,6 +401,15 @@ def _check_row_values(role, name, values, rows, label):
 
 
 def _check_finite(block, names, rows, label):
+    if hasattr(block, "indptr"):   # a CSR block: its values, located through indptr
+        bad = np.flatnonzero(~np.isfinite(block.data))
+        if bad.size:
+            k = bad[0]
+            i, j = np.searchsorted(block.indptr, k, side="right") - 1, block.indices[k]
+            fail(names[j], f"is {block.data[k]} in row {rows[i]} of {label}",
+                 "a transform such as log() needs values in its domain: correct or drop "
+                 "that row")
+        return
     bad = ~np.isfinite(block)
     if bad.any():
         i, j = np.argwhere(bad)[0]
@@ -397,7 +428,7 @@ def _warn_missing(report, label):
 
 
 def _warn_cache_written(entry, shapes, removed):
-    size = sum(int(np.prod(s)) for s in shapes.values()) * 8
+    size = sum(f.stat().st_size for f in Path(entry).glob("*.npy"))
     gone = f"; removed {len(removed)} stale entr{'y' if len(removed) == 1 else 'ies'}" \
         if removed else ""
     # normpath: "configs/../examples/data/..." reads as "examples/data/..." in the note

@@ -8,6 +8,7 @@ import numpy as np
 
 from .._validation import did_you_mean, fail
 from ..exceptions import InputError
+from ._sparse import read_sparse_npz
 
 #: File types accepted for a design matrix as an array (tables: `TABLE_SUFFIXES`).
 ARRAY_SUFFIXES = (".npy", ".npz")
@@ -62,8 +63,9 @@ def load_array(source, *, field="X"):
 
     Returns
     -------
-    ndarray
-        A read-only memory map for ``.npy`` files; an in-memory array for ``.npz`` files.
+    ndarray or CSRDesign
+        A read-only memory map for ``.npy`` files; an in-memory array for ``.npz`` files; for
+        X, a `CSRDesign` from a ``.npz`` file written by ``scipy.sparse.save_npz``.
     """
     if not isinstance(source, DataSource):
         source = DataSource.parse(source)
@@ -81,6 +83,10 @@ def load_array(source, *, field="X"):
     if suffix == ".npz":
         try:
             with np.load(path, allow_pickle=False) as archive:
+                if field == "X" and source.key is None:
+                    sparse = read_sparse_npz(path, archive, field)
+                    if sparse is not None:
+                        return sparse
                 key = source.key or _DEFAULT_NPZ_KEY.get(field, field)
                 if key not in archive.files:
                     hint = did_you_mean(key, archive.files).replace('"', f'"{path.name}:', 1)

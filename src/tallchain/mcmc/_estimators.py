@@ -14,8 +14,11 @@ The pure-NumPy references of these kernels, under the same names, are in ``_refe
 
 import math
 
-from ..models._family_params import BINOMIAL, dloglik_phi, family_value, log_norm_phi
-from ..models._kernels import dloglik_eta, jit, loglik_diff_eta, loglik_eta, row_dot
+import numba
+
+from ..models._family_params import BINOMIAL, OPTIONS, dloglik_phi, family_value, log_norm_phi
+from ..models._kernels import dloglik_eta, jit, loglik_diff_eta, loglik_eta
+from ..models._rows import row_axpy, row_dot, row_dot2
 
 
 @jit
@@ -79,7 +82,6 @@ def cv_gradient_rows(data, rows, delta, idx, out, work):
     binomial = family == BINOMIAL
     weighted = weights.shape[0] == X.shape[0]
     n = idx.shape[0]
-    p = X.shape[1]
     w = delta[intercept:]
     d0 = delta[0] if intercept else 0.0
     eta = work[0]
@@ -111,8 +113,7 @@ def cv_gradient_rows(data, rows, delta, idx, out, work):
         i = idx[k]
         rk = r[k]
         g0 += rk
-        for j in range(p):
-            g[j] += rk * X[i, j]
+        row_axpy(X, i, rk, g)
     if intercept:
         out[0] = g0
 
@@ -148,17 +149,14 @@ def proxy_loglik_diff_sum(rows, beta_new, beta_old):
     return acc
 
 
-@jit
-def _read_pair(X, aux, i, k, p, d1, w1, d0, w0, e1, e0, yv):
+@numba.njit(inline="always", **OPTIONS)
+def _read_pair(X, aux, i, k, d1, w1, d0, w0, e1, e0, yv):
     """Read batch row i (the k-th) for a log-ratio: u1 = d1 + x_i . w1 and u0 = d0 + x_i . w0
     in one pass over row i of X, e1[k], e0[k] = eta*_i + u1, eta*_i + u0, yv[k] = y_i;
     returns (i, u1, u0, eta*_i)."""
-    u1 = d1
-    u0 = d0
-    for j in range(p):
-        x = X[i, j]
-        u1 += x * w1[j]
-        u0 += x * w0[j]
+    s1, s0 = row_dot2(X, i, w1, w0)
+    u1 = d1 + s1
+    u0 = d0 + s0
     eta_star = aux[i, AUX_ETA]
     e1[k] = eta_star + u1
     e0[k] = eta_star + u0
@@ -179,7 +177,6 @@ def batch_residual_diffs(data, rows, delta_new, delta_old, idx, out, work):
     binomial = family == BINOMIAL
     weighted = weights.shape[0] == X.shape[0]
     n = idx.shape[0]
-    p = X.shape[1]
     w1 = delta_new[intercept:]
     w0 = delta_old[intercept:]
     d1 = delta_new[0] if intercept else 0.0
@@ -188,7 +185,7 @@ def batch_residual_diffs(data, rows, delta_new, delta_old, idx, out, work):
     e0 = work[1]
     yv = work[2]
     for k in range(n):
-        i, u1, u0, eta_star = _read_pair(X, aux, idx[k], k, p, d1, w1, d0, w0, e1, e0, yv)
+        i, u1, u0, eta_star = _read_pair(X, aux, idx[k], k, d1, w1, d0, w0, e1, e0, yv)
         if binomial:
             work[3, k] = trials[i]
         if weighted:
@@ -251,6 +248,7 @@ def _cv_gradient_rows_phi(family, X, intercept, weights, rows, delta, idx, out, 
         wk = work[4, k]
         r[k] = wk * dloglik_eta(family, eta[k], yv[k], v) - r[k]
         r_phi[k] = wk * dloglik_phi(family, eta[k], yv[k], v)[0] - r_phi[k]
+    g = out[intercept:]
     out[:] = 0.0
     g0 = 0.0
     g_phi = 0.0
@@ -259,8 +257,7 @@ def _cv_gradient_rows_phi(family, X, intercept, weights, rows, delta, idx, out, 
         rk = r[k]
         g0 += rk
         g_phi += r_phi[k]
-        for j in range(p):
-            out[intercept + j] += rk * X[i, j]
+        row_axpy(X, i, rk, g)
     if intercept:
         out[0] = g0
     out[nb] = g_phi
@@ -288,7 +285,7 @@ def _residual_diffs_phi(family, X, intercept, weights, rows, delta_new, delta_ol
     v0 = family_value(family, beta_star[nb] + p0)
     e1, e0, yv = work[0], work[1], work[2]
     for k in range(n):
-        i, u1, u0, eta_star = _read_pair(X, aux, idx[k], k, p, d1, w1, d0, w0, e1, e0, yv)
+        i, u1, u0, eta_star = _read_pair(X, aux, idx[k], k, d1, w1, d0, w0, e1, e0, yv)
         wk = weights[i] if weighted else 1.0
         work[4, k] = wk
         c = 0.0

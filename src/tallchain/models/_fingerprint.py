@@ -23,6 +23,18 @@ def array_digest(a):
     return f"{'x'.join(map(str, a.shape))} {a.dtype} crc32:{crc:08x}"
 
 
+def design_digest(X):
+    """`array_digest` of a dense X; of a sparse one, ``"<shape> csr <dtype> crc32:<hex>"`` with
+    the CRC-32 running over its data, indices and indptr arrays in turn."""
+    if not hasattr(X, "indptr"):
+        return array_digest(X)
+    crc = 0
+    for part in (X.data, X.indices, X.indptr):
+        for _, block in row_blocks(part, dtype=None):
+            crc = zlib.crc32(np.ascontiguousarray(block).view(np.uint8).reshape(-1), crc)
+    return f"{'x'.join(map(str, X.shape))} csr {X.dtype} crc32:{crc:08x}"
+
+
 def small_digest(a):
     """A short exact hash of a small float array (prior mean, covariance)."""
     b = np.ascontiguousarray(a, dtype=np.float64)
@@ -52,7 +64,7 @@ def fingerprint(model):
         "coefficient names": list(model.coef_names),
         "prior mean": small_digest(model.prior_mean),
         "prior covariance": small_digest(model.prior_cov),
-        "data values (X)": array_digest(model.X),
+        "data values (X)": design_digest(model.X),
         "data values (y)": array_digest(model.y),
         "data values (offset)": array_digest(model.offset),
         **per_row,

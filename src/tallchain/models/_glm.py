@@ -2,14 +2,13 @@
 
 import numpy as np
 
-from .._arrays import row_blocks
 from .._validation import check_finite_matrix, check_flag, fail, first_bad_row_value
-from ..data import is_table_object, load_data, table_matrix
+from ..data import design_blocks, is_csr_design, is_table_object, load_data, table_matrix
 from . import _kernels, _passes
 from ._fingerprint import fingerprint
 from ._inputs import (as_design, check_coef_names, coef_vector, design_storage, float_vector,
                       read_array, rows_text)
-from ._mapped import MappedArray, ZeroOffset, mapped_source
+from ._mapped import MappedArray, MappedCSR, ZeroOffset, mapped_source
 from ._prior import GaussianPrior
 
 
@@ -142,7 +141,11 @@ class _GLM:
         # A memory-mapped array travels as its file, not its bytes: workers of a sweep or a
         # calibration (local processes, or a Dask cluster on shared storage) map it again.
         state = self.__dict__.copy()
+        if is_csr_design(state["X"]):
+            state["X"] = MappedCSR.of(state["X"])
         for name in ("X", "y", "offset"):
+            if isinstance(state[name], MappedCSR):
+                continue
             source = mapped_source(state[name])
             if source is not None:
                 state[name] = MappedArray(*source)
@@ -152,15 +155,17 @@ class _GLM:
 
     def __setstate__(self, state):
         for name in ("X", "y", "offset"):
-            if isinstance(state[name], (MappedArray, ZeroOffset)):
+            if isinstance(state[name], (MappedArray, MappedCSR, ZeroOffset)):
                 state[name] = state[name].open()
         self.__dict__.update(state)
 
     @property
     def glm_data(self):
         """The data as every GLM kernel takes it: ``GLMData(family, X, y, offset, noise_sd,
-        intercept)``, built from the arrays the model keeps (no copy)."""
-        return _kernels.GLMData(self.family, self.X, self.y, self.offset,
+        intercept)``, built from the arrays the model keeps (no copy; a sparse design as its
+        `CSRArrays`)."""
+        X = self.X.kernel_form() if is_csr_design(self.X) else self.X
+        return _kernels.GLMData(self.family, X, self.y, self.offset,
                                 1.0 if self.noise_sd is None else self.noise_sd,
                                 int(self.add_intercept), len(self.family_param_names),
                                 _kernels.NO_TRIALS if self.trials is None else self.trials,
@@ -217,7 +222,7 @@ class _GLM:
 
     def linear_predictor(self, coef, *, with_offset=True):
         """eta_i = x_i . beta (+ intercept) (+ offset_i) for every row, in row blocks, so a
-        memory-mapped X is never read whole.
+        memory-mapped X is never read whole (a sparse X by its non-zeros).
 
         Parameters
         ----------
@@ -231,7 +236,7 @@ class _GLM:
         beta = coef_vector(coef, self.n_coef)
         k = int(self.add_intercept)
         eta = np.empty(self.n_rows)
-        for start, xb in row_blocks(self.X):
+        for start, xb in design_blocks(self.X):
             stop = start + xb.shape[0]
             eta[start:stop] = xb @ beta[k:self.n_beta] + (beta[0] if k else 0.0)
             if with_offset:

@@ -3,11 +3,19 @@
 import numpy as np
 
 from .._validation import fail, is_number, show_value
+from ..data import CSRDesign, is_csr_design, is_sparse_matrix
 
 
 def as_design(X):
     """X as a two-dimensional numeric array with its shape checked; not yet copied (see
-    `design_storage`)."""
+    `design_storage`). A scipy.sparse matrix becomes a `CSRDesign` (canonical CSR)."""
+    if is_sparse_matrix(X):
+        if len(X.shape) != 2:
+            fail("X", f"must be two-dimensional, got shape {X.shape}",
+                 "give an (n_rows, n_features) matrix")
+        return CSRDesign.from_scipy(X)
+    if is_csr_design(X):
+        return X
     if isinstance(X, np.ndarray) and X.dtype == object:
         fail("X", "is an object array", "give a numeric array (pickled arrays are not read)")
     X = read_array("X", X)
@@ -25,7 +33,10 @@ def as_design(X):
 
 def design_storage(X):
     """float32/float64 C-contiguous X as it is (a memory map stays one); anything else
-    (float16, integers, bool, another order) copied to float64, which holds it exactly."""
+    (float16, integers, bool, another order) copied to float64, which holds it exactly. A
+    `CSRDesign` is kept as it is (its values are float32/float64 already)."""
+    if is_csr_design(X):
+        return X
     if X.dtype not in (np.float32, np.float64):
         X = X.astype(np.float64)
     if not X.flags.c_contiguous:

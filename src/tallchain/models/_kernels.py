@@ -22,6 +22,7 @@ import numpy as np
 from ._family_params import (BINOMIAL, LINEAR, LOGISTIC, NEG_BINOMIAL, OPTIONS, POISSON,
                              dloglik_phi, family_value, log_norm_phi, nb_d2loglik, nb_dloglik,
                              nb_loglik)
+from ._rows import design_join, design_parts, row_axpy, row_dot, row_outer
 
 # exp() overflows past this; Poisson gradients saturate here instead of producing inf * 0 = NaN.
 _EXP_MAX = 700.0
@@ -49,8 +50,10 @@ Attributes
 ----------
 family : int
     ``LINEAR``, ``LOGISTIC`` or ``POISSON``.
-X : ndarray of shape (N, p), float32 or float64, C order
-    The design matrix as the model keeps it (possibly a memory map; never copied).
+X : ndarray of shape (N, p), float32 or float64, C order; or CSRArrays
+    The design matrix as the model keeps it (possibly a memory map; never copied): dense, or
+    compressed sparse rows (`tallchain.data.CSRArrays`). Kernels read rows only through the
+    helpers of ``_rows.py`` (`row_dot`, `row_axpy`, `row_outer`), written once per storage.
 y, offset : ndarray of shape (N,), float64
 noise_sd : float
     The linear family's known noise sd (unused by the others, and when it is sampled).
@@ -180,16 +183,6 @@ def loglik_diff_eta(family, eta_new, eta_old, y, noise_sd):
     a = -math.expm1(-abs(de))
     m = math.exp(hi + math.log(a)) if hi > _EXP_MAX else math.exp(hi) * a
     return y * de - m if de > 0.0 else y * de + m
-
-
-@jit
-def row_dot(X, i, w):
-    """sum_j X[i, j] w[j] over the p columns of X (w starts at the slopes of the parameter
-    vector, a contiguous view; family parameters may follow them)."""
-    acc = 0.0
-    for j in range(X.shape[1]):
-        acc += X[i, j] * w[j]
-    return acc
 
 
 @jit
@@ -323,8 +316,7 @@ def full_loglik_grad(data, beta, grad, with_const, lo, hi):
         r *= wi
         acc += li
         g0 += r
-        for j in range(p):
-            g[j] += r * X[i, j]
+        row_axpy(X, i, r, g)
         if n_family:
             g_phi += wi * dloglik_phi(family, eta, y[i], noise_sd)[0]
     if intercept:
@@ -351,18 +343,13 @@ def full_hessian(data, beta, hess, lo, hi):
         eta = linear_predictor(X, offset, intercept, i, beta)
         wi = row_weight(weights, n_rows, i)
         w = wi * d2loglik_eta(family, eta, y[i], row_value(family, trials, i, noise_sd))
-        if intercept:
-            xi[0] = 1.0
-        for j in range(p):
-            xi[j + intercept] = X[i, j]
-        for a in range(nb):
-            wa = w * xi[a]
-            for b in range(a + 1):
-                hess[a, b] += wa * xi[b]
+        row_outer(X, i, w, hess, intercept, xi)
         if n_family:
             _, l_ep, l_pp = dloglik_phi(family, eta, y[i], noise_sd)
-            for b in range(nb):
-                hess[nb, b] += wi * l_ep * xi[b]
+            c = wi * l_ep
+            if intercept:
+                hess[nb, 0] += c
+            row_axpy(X, i, c, hess[nb, intercept:])
             hess[nb, nb] += wi * l_pp
     for a in range(d):
         for b in range(a):
@@ -396,6 +383,22 @@ def full_eta_derivatives(data, beta, eta, f1, f2, lo, hi):
 
 
 @jit
+def _split(data):
+    """``data`` as (design arrays, shape, the other fields), for a parallel loop (`_joined`)."""
+    parts, shape = design_parts(data.X)
+    return parts, shape, (data.family, data.y, data.offset, data.noise_sd, data.intercept,
+                          data.n_family, data.trials, data.weights)
+
+
+@jit
+def _joined(parts, shape, rest):
+    """The GLMData of `_split`."""
+    family, y, offset, noise_sd, intercept, n_family, trials, weights = rest
+    return GLMData(family, design_join(parts, shape), y, offset, noise_sd, intercept, n_family,
+                   trials, weights)
+
+
+@jit
 def _block_bounds(b, n):
     """Rows [lo, hi) of block b of n rows."""
     lo = b * BLOCK_ROWS
@@ -409,9 +412,11 @@ def par_loglik_grad(data, beta, grad, with_const):
     d = grad.shape[0]
     nb = (n + BLOCK_ROWS - 1) // BLOCK_ROWS
     part = np.empty((nb, d + 1))
+    parts, shape, rest = _split(data)
     for b in numba.prange(nb):
         lo, hi = _block_bounds(b, n)
-        part[b, 0] = full_loglik_grad(data, beta, part[b, 1:], with_const, lo, hi)
+        part[b, 0] = full_loglik_grad(_joined(parts, shape, rest), beta, part[b, 1:],
+                                      with_const, lo, hi)
     acc = 0.0
     for j in range(d):
         grad[j] = 0.0
@@ -429,9 +434,10 @@ def par_hessian(data, beta, hess):
     d = hess.shape[0]
     nb = (n + BLOCK_ROWS - 1) // BLOCK_ROWS
     part = np.empty((nb, d, d))
+    parts, shape, rest = _split(data)
     for b in numba.prange(nb):
         lo, hi = _block_bounds(b, n)
-        full_hessian(data, beta, part[b], lo, hi)
+        full_hessian(_joined(parts, shape, rest), beta, part[b], lo, hi)
     for a in range(d):
         for c in range(d):
             acc = 0.0
@@ -446,6 +452,7 @@ def par_eta_derivatives(data, beta, eta, f1, f2):
     independent)."""
     n = data.X.shape[0]
     nb = (n + BLOCK_ROWS - 1) // BLOCK_ROWS
+    parts, shape, rest = _split(data)
     for b in numba.prange(nb):
         lo, hi = _block_bounds(b, n)
-        full_eta_derivatives(data, beta, eta, f1, f2, lo, hi)
+        full_eta_derivatives(_joined(parts, shape, rest), beta, eta, f1, f2, lo, hi)

@@ -14,6 +14,27 @@ class MappedArray:
                          offset=self.offset, order="C")
 
 
+class MappedCSR:
+    """A sparse design whose arrays travel as files where they are whole read-only maps, as
+    their bytes otherwise."""
+
+    def __init__(self, parts, shape):
+        self.parts, self.shape = parts, shape
+
+    @classmethod
+    def of(cls, design):
+        parts = []
+        for a in (design.data, design.indices, design.indptr):
+            source = mapped_source(a)
+            parts.append(a if source is None else MappedArray(*source))
+        return cls(parts, design.shape)
+
+    def open(self):
+        from ..data import CSRDesign
+        return CSRDesign(*(p.open() if isinstance(p, MappedArray) else p for p in self.parts),
+                         self.shape)
+
+
 class ZeroOffset:
     """The all-zero offset of a model without exposure, sent as its length."""
 
