@@ -15,11 +15,16 @@ def _pyplot():
 
 
 def plot_sweep(result, path):
-    """Two panels against step size (log scale), one line per method and batch size:
-    KS distance over its noise floor (the unbiased region shaded) and ESS per second.
-    The recommended setting is starred."""
+    """Panels against step size (log scale), one line per method and batch size:
+    KS distance over its noise floor (the unbiased region shaded) and ESS per second, the
+    recommended setting starred; and, when the sweep extrapolated, a third panel with the
+    bias that the extrapolation attributes to each setting (`_plot_extrapolation`)."""
     plt = _pyplot()
-    fig, (ax_bias, ax_cost) = plt.subplots(1, 2, figsize=(11, 4.4), constrained_layout=True)
+    extrapolated = any(np.isfinite(r.get("bias_estimate_sd", np.nan)) for r in result.rows)
+    n_panels = 3 if extrapolated else 2
+    fig, axes = plt.subplots(1, n_panels, figsize=(5.5 * n_panels, 4.4),
+                             constrained_layout=True)
+    ax_bias, ax_cost = axes[0], axes[1]
     groups = {}
     for r in result.rows:
         key = r["method"] if r["batch_size"] is None else f"{r['method']} (n={r['batch_size']})"
@@ -58,9 +63,43 @@ def plot_sweep(result, path):
         ax_bias.plot([], [], marker="o", ls="none", mfc="white", mec="gray",
                      label="inconclusive (ECDF ESS < 100)")
     ax_bias.legend(fontsize=8, loc="upper left")
+    if extrapolated:
+        _plot_extrapolation(axes[2], groups, ax_bias)
     fig.savefig(path, dpi=110)
     plt.close(fig)
     return Path(path)
+
+
+def _plot_extrapolation(ax, groups, ax_bias):
+    """The estimated bias of each setting (its means and sds against their extrapolated limit,
+    the largest over coefficients, in posterior sds) with +-2 Monte Carlo errors; hollow
+    markers where the extrapolated values themselves miss the reference by more than 3 Monte
+    Carlo errors (the extrapolation did not remove the bias there)."""
+    colors = {line.get_label(): line.get_color() for line in ax_bias.get_lines()}
+    for key, rows in groups.items():
+        rows = [r for r in sorted(rows, key=lambda r: r["step_size"])
+                if np.isfinite(r.get("bias_estimate_sd", np.nan))]
+        if not rows:
+            continue
+        h = np.array([r["step_size"] for r in rows])
+        b = np.array([r["bias_estimate_sd"] for r in rows])
+        e = np.array([r["bias_estimate_mcse_sd"] for r in rows])
+        kind = rows[0]["extrapolation"]["kind"].split(" (")[0]
+        color = colors.get(key)
+        ax.errorbar(h, b, yerr=2 * e, marker="o", capsize=3, color=color,
+                    label=f"{key}: h -> 0" if kind == "step" else f"{key}: n -> inf")
+        off = [r["extrapolated_error_mcse"] > 3 for r in rows]
+        ax.plot(h[off], b[off], marker="o", ls="none", mfc="white", mec=color, ms=9)
+    ax.axhline(0, color="gray", lw=0.8)
+    ax.set_xscale("log")
+    ax.set_xlabel("step size h (proposal variance h M^-1)")
+    ax.set_ylabel("estimated bias (posterior sds), +-2 MC errors")
+    ax.set_title("bias by extrapolation (sgld: 2 pi_h/2 - pi_h; penalty: jackknife in 1/n)",
+                 fontsize=9)
+    ax.grid(True, which="both", alpha=0.3)
+    ax.plot([], [], marker="o", ls="none", mfc="white", mec="gray",
+            label="extrapolated value > 3 MC errors from the reference")
+    ax.legend(fontsize=7, loc="upper left")
 
 
 def plot_run(result, directory):

@@ -113,7 +113,7 @@ def _add_sweep_arguments(parser):
 @command("sweep", "run a grid of methods and step sizes: bias against cost, and a "
          "recommended setting", _add_sweep_arguments)
 def _sweep(args):
-    from ..checks import sweep, write_sweep
+    from ..checks import SweepJournal, sweep, write_sweep
 
     config, model, out = _load(args)
     partial = out / "sweep.partial.jsonl"
@@ -140,7 +140,7 @@ def _sweep(args):
         res = sweep(model, methods=args.methods or ("penalty-mala", "sgld"),
                     step_sizes=args.step_sizes, batch_sizes=args.batch_sizes, level=args.level,
                     scheduler=scheduler, workers=workers, cache_dir=out, progress=not args.quiet,
-                    on_row=keep, done_rows=done, **settings)
+                    journal=SweepJournal(done_rows=done, on_row=keep), **settings)
     write_sweep(res, out)
     partial.unlink(missing_ok=True)
     if not args.quiet:
