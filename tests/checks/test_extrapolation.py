@@ -7,7 +7,8 @@ Sigma / (1 - h/4) in units of a Laplace mass matrix: first order in h, as Durmus
 NeurIPS 2016, assume), so the check covers means and sds: both extrapolated values must lie
 within 3 of their Monte Carlo errors of the exact ones. The second-order remainder of the sd,
 1 - 2 r(h/2) + r(h) with r(h) = (1 - h/4)^(-1/2), is -0.29% at h = 0.5, about 1.3 Monte Carlo
-errors at this run length: the test is sized so that it passes by the method, not by luck.
+errors at this run length: the test is sized so that it passes by the method, not by luck
+(measured: 1.75 Monte Carlo errors; the plain run at h/2, 16; sgld at h, KS 3.5-3.8 floors).
 """
 
 import numpy as np
@@ -24,8 +25,8 @@ pytestmark = pytest.mark.slow
 STEP = 0.5
 
 
-@pytest.fixture(scope="module")
-def problem():
+def make_problem():
+    """The linear-Gaussian model, its exact posterior (and means and sds), its preparation."""
     gen = np.random.default_rng(7)
     X = gen.standard_normal((2000, 2)) @ np.array([[1.0, 0.5], [0.0, 1.0]])
     y = 0.3 + X @ [1.0, -0.5] + gen.standard_normal(2000)
@@ -33,6 +34,11 @@ def problem():
     post = conjugate_posterior(model)
     exact = {"mean": post.mean, "sd": np.sqrt(np.diag(post.cov))}
     return model, post, exact, prepare(model)
+
+
+@pytest.fixture(scope="module")
+def problem():
+    return make_problem()
 
 
 def _pair(problem, shared):
@@ -57,7 +63,7 @@ def test_extrapolated_means_and_sds_match_the_exact_posterior(problem):
 
 def test_shared_noise_is_what_makes_the_extrapolation_precise(problem):
     """Without shared noise the same budget gives an extrapolation whose Monte Carlo error is
-    at least 1.5 times larger (for independent chains the variance of 2 pi_{h/2} - pi_h is
+    at least 1.5 times larger (measured 2.2) (for independent chains the variance of 2 pi_{h/2} - pi_h is
     4 var(fine) + var(coarse), about 5 times that of one average; the shared noise removes
     most of it)."""
     coupled = richardson_romberg(*_pair(problem, shared=True))
