@@ -7,7 +7,7 @@ errors (private).
 - In the batch size, for the penalty methods (the jackknife in 1/n; Quenouille 1956): with a
   residual bias C/n, batch sizes n1 < n2 give pi_0 = (n2 pi_{n2} - n1 pi_{n1}) / (n2 - n1),
   which is 2 pi_{2n} - pi_n for n2 = 2 n1; the residual bias of the run at n2 is then
-  pi_{n2} - pi_0 = n1 (pi_{n2} - pi_{n1}) / (n2 - n1).
+  pi_{n2} - pi_0 = n1 (pi_{n1} - pi_{n2}) / (n2 - n1).
 
 Monte Carlo errors. Every estimate here is a difference of averages along chains; its error
 is that of the average of one series (the "influence series"), whose MCSE ArviZ gives from
@@ -112,7 +112,7 @@ def batch_jackknife(small, large, n_small, n_large):
         e_lo, e_hi = np.array(small[key + "_mcse"]), np.array(large[key + "_mcse"])
         out[key] = ((1.0 + a) * hi - a * lo).tolist()
         out[key + "_mcse"] = np.hypot((1.0 + a) * e_hi, a * e_lo).tolist()
-        out["bias_" + key] = (a * (hi - lo)).tolist()
+        out["bias_" + key] = (a * (lo - hi)).tolist()
         out["bias_" + key + "_mcse"] = (a * np.hypot(e_hi, e_lo)).tolist()
     return out
 
