@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 
 import tallchain as tc
-from tallchain.checks import sweep
+from tallchain.checks import SweepJournal, sweep
 
 distributed = pytest.importorskip("distributed")
 pytestmark = pytest.mark.slow
@@ -139,10 +139,11 @@ def test_resume_after_interrupt_runs_only_the_missing_points(model, local, tmp_p
             raise KeyboardInterrupt("stop after three rows")
 
     with pytest.raises(KeyboardInterrupt, match="^stop after three rows$"):
-        sweep(model, scheduler="serial", cache_dir=tmp_path, on_row=stop_after_three, **GRID)
+        sweep(model, scheduler="serial", cache_dir=tmp_path,
+              journal=SweepJournal(on_row=stop_after_three), **GRID)
     rerun = []
-    res = sweep(model, scheduler="serial", cache_dir=tmp_path, done_rows=seen,
-                on_row=rerun.append, **GRID)
+    res = sweep(model, scheduler="serial", cache_dir=tmp_path,
+                journal=SweepJournal(done_rows=seen, on_row=rerun.append), **GRID)
     assert len(rerun) == len(local.rows) - 3
     assert _numbers(res) == _numbers(local)
 

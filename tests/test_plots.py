@@ -34,8 +34,7 @@ def test_rank_plot_texts_do_not_overlap(n_coef):
     names = ["a_rather_long_coefficient_name", *(f"c{j}" for j in range(n_coef - 2))]
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")    # few draws: ESS advice
-        pc = rank_plot(_run(n_coef, names).to_arviz())
-    fig = pc.viz["figure"].item()
+        fig = rank_plot(_run(n_coef, names).to_arviz())
     fig.canvas.draw()
     renderer = fig.canvas.get_renderer()
     panels = [ax for ax in fig.axes if ax.get_visible() and ax.axison]

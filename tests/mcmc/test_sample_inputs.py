@@ -9,7 +9,8 @@ from numpy_glm import mode_sd_tolerance
 
 import tallchain as tc
 from tallchain import executors
-from tallchain.checks import _calibration, _sweep, _twin, calibrate, check_on_twin, conjugate_twin, sweep
+from tallchain.checks import (SweepJournal, _calibration, _sweep, _twin, calibrate, check_on_twin,
+                             conjugate_twin, sweep)
 from tallchain.mcmc import _setup
 
 
@@ -202,7 +203,8 @@ SWEEP_CASES = [
     (dict(mass_matrix="unit"), r"mass_matrix: unknown value 'unit'"),
     (dict(stepsize=0.1), r"stepsize: is not a setting of sweep\(\)"),
     (dict(progress=None), r"progress: must be True or False"),
-    (dict(on_row=3), r"on_row: must be callable, got int"),
+    (dict(journal=SweepJournal(on_row=3)), r"on_row: must be callable, got int"),
+    (dict(extrapolate="yes"), r"extrapolate: must be True or False"),
 ]
 
 

@@ -106,15 +106,32 @@ def _add_sweep_arguments(parser):
     parser.add_argument("--level", type=float, default=0.05, metavar="A",
                         help="false-alarm rate of the whole table: the chance that a setting "
                              "without bias is called biased anywhere in it (default 0.05)")
+    parser.add_argument("--no-extrapolate", dest="extrapolate", action="store_false",
+                        help="skip the extrapolated estimates (sgld: paired runs at h and h/2, "
+                             "about 3x the cost of its points; penalty methods: the jackknife "
+                             "across batch sizes)")
     parser.add_argument("--resume", action="store_true",
                         help="skip grid points finished by an interrupted sweep")
     _scheduler_argument(parser)
 
 
+def _print_extrapolation(rows):
+    """One line per row with an extrapolated estimate: the bias it attributes to the row."""
+    for r in rows:
+        if r.get("extrapolation") and r.get("bias_estimate_sd") == r.get("bias_estimate_sd"):
+            e = r["extrapolation"]
+            print(f"extrapolation ({e['kind']}, from {e['from'][0]:.4g} and "
+                  f"{e['from'][1]:.4g}): {r['method']} at step {r['step_size']:.4g}"
+                  + (f", batch {r['batch_size']}" if r["batch_size"] else "")
+                  + f" is off by {r['bias_estimate_sd']:.3g} +- "
+                  f"{r['bias_estimate_mcse_sd']:.2g} posterior sds; the extrapolated values are "
+                  f"{r['extrapolated_error_mcse']:.2g} MC errors from the reference")
+
+
 @command("sweep", "run a grid of methods and step sizes: bias against cost, and a "
          "recommended setting", _add_sweep_arguments)
 def _sweep(args):
-    from ..checks import sweep, write_sweep
+    from ..checks import SweepJournal, sweep, write_sweep
 
     config, model, out = _load(args)
     partial = out / "sweep.partial.jsonl"
@@ -141,7 +158,8 @@ def _sweep(args):
         res = sweep(model, methods=args.methods or ("penalty-mala", "sgld"),
                     step_sizes=args.step_sizes, batch_sizes=args.batch_sizes, level=args.level,
                     scheduler=scheduler, workers=workers, cache_dir=out, progress=not args.quiet,
-                    on_row=keep, done_rows=done, **settings)
+                    journal=SweepJournal(done_rows=done, on_row=keep),
+                    extrapolate=args.extrapolate, **settings)
     write_sweep(res, out)
     partial.unlink(missing_ok=True)
     if not args.quiet:
@@ -151,6 +169,7 @@ def _sweep(args):
             print(f"{r['method']:<14}{r['step_size']:>10.4g}{str(r['batch_size'] or '-'):>7}"
                   f"{r['ks_ratio_max']:>10.2f}{r['ess_per_second']:>10.4g}"
                   f"{r['acceptance_rate']:>8.3f}  {r['verdict']}")
+        _print_extrapolation(res.rows)
         best = res.recommended
         if best is not None:
             print(f"recommended: method = {best['method']}, step_size = {best['step_size']:.4g}"

@@ -5,10 +5,10 @@ from ._calibration import (MAX_SHORT_SHARE, CalibrationResult, calibrate, ecdf_b
                            rank_uniformity_pvalues)
 from ._ks import (KS_CRITICAL, MIN_ESS_FOR_VERDICT, KSCheck, ecdf_ess, family_threshold,
                   ks_check)
-from ._sweep import SweepResult, reference_draws, sweep, write_sweep
+from ._sweep import SweepJournal, SweepResult, reference_draws, sweep, write_sweep
 from ._twin import TwinCheck, check_on_twin, conjugate_twin
 
 __all__ = ["calibrate", "CalibrationResult", "MAX_SHORT_SHARE", "ecdf_bands", "rank_uniformity_pvalues",
            "ks_check", "KSCheck", "KS_CRITICAL", "MIN_ESS_FOR_VERDICT", "ecdf_ess", "family_threshold", "sweep",
-           "SweepResult", "write_sweep", "reference_draws", "check_on_twin", "TwinCheck",
+           "SweepResult", "SweepJournal", "write_sweep", "reference_draws", "check_on_twin", "TwinCheck",
            "conjugate_twin"]
