@@ -188,3 +188,25 @@ def test_parallel_passes_give_the_serial_mode(rng, monkeypatch, family):
     assert_allclose((parallel.mode - serial.mode) / sd, 0.0, rtol=0,
                     atol=2 * mode_sd_tolerance(model, serial.mode))
     assert_allclose(parallel.precision, serial.precision, rtol=1e-6)
+
+
+@pytest.mark.parametrize("family", ["logistic", "poisson"])
+def test_row_cache_reuses_newtons_last_passes_bitwise(family, rng):
+    # The gradient and Hessian at the mode come from the same passes at the same point, so
+    # the row cache built with them equals the one that repeats them, bit for bit; two passes
+    # fewer.
+    from tallchain.posterior import cache_passes, control_variate_cache
+
+    X = design(rng)
+    eta = 0.3 + X @ np.array([0.5, -0.4, 0.2])
+    if family == "logistic":
+        model = tc.LogisticRegression(X, (rng.random(len(eta)) < special.expit(eta)) * 1.0)
+    else:
+        model = tc.PoissonRegression(X, rng.poisson(np.exp(eta)).astype(float))
+    lap = tc.find_mode(model)
+    assert lap.loglik_derivatives is not None
+    reused = control_variate_cache(model, lap.mode, 2, lap.loglik_derivatives)
+    fresh = control_variate_cache(model, lap.mode, 2)
+    np.testing.assert_array_equal(reused.g_star, fresh.g_star)
+    np.testing.assert_array_equal(reused.H_star, fresh.H_star)
+    assert cache_passes(2, lap.loglik_derivatives) == 1 and cache_passes(2, None) == 3

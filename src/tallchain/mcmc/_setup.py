@@ -11,7 +11,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .._validation import check_seed, fail
-from ..posterior import (ControlVariateCache, control_variate_cache, find_mode,
+from ..posterior import (ControlVariateCache, cache_passes, control_variate_cache, find_mode,
                          make_preconditioner)
 
 
@@ -56,9 +56,16 @@ def prepare(model, *, proxy_orders=(2, 0)):
     Preparation
     """
     laplace = find_mode(model)
-    caches = {k: control_variate_cache(model, laplace.mode if k else None, k)
+    caches = {k: control_variate_cache(model, laplace.mode if k else None, k,
+                                       _known(laplace, k))
               for k in proxy_orders}
     return Preparation(laplace, caches, model.n_rows, model.n_coef)
+
+
+def _known(laplace, order):
+    """The log-likelihood's gradient and Hessian at the mode, from Newton's last passes, for
+    a row cache of ``order`` around the mode (None: the cache computes them)."""
+    return laplace.loglik_derivatives if order and laplace is not None else None
 
 
 def spawn_seeds(seed, n):
@@ -114,8 +121,9 @@ def set_up(model, settings, preparation, rng):
     elif preparation is not None and order in preparation.caches:
         cache = preparation.caches[order]
     else:
-        cache = control_variate_cache(model, laplace.mode if order else None, order)
-        parts["cache_passes"] = {0: 1, 1: 2}.get(order, 3)
+        known = _known(laplace, order)
+        cache = control_variate_cache(model, laplace.mode if order else None, order, known)
+        parts["cache_passes"] = cache_passes(order, known)
     parts["mode_seconds"], parts["cache_seconds"] = t1 - t0, time.perf_counter() - t1
     starts = _starting_points(settings, model, laplace, rng)
     step = (_default_step(spec, pre, laplace, model.n_coef) if settings.adapts_step

@@ -48,6 +48,9 @@ class LaplaceApproximation:
         How Newton stopped: iterations and the last Newton decrement. A
         `LaplaceApproximation` exists only for a mode that met the tolerance (`find_mode`
         raises otherwise).
+    loglik_derivatives : tuple of ndarray or None
+        (gradient, Hessian) of the log-likelihood at ``mode`` from the passes Newton made
+        there, so that the second-order row cache need not repeat them; None when unknown.
     """
 
     mode: np.ndarray
@@ -55,6 +58,7 @@ class LaplaceApproximation:
     cov: np.ndarray
     n_evaluations: int
     message: str
+    loglik_derivatives: tuple | None = None
 
 
 class _Objective:
@@ -63,12 +67,14 @@ class _Objective:
     def __init__(self, model):
         self.model = model
         self.passes = 0
+        self.last_grad = self.last_hessian = (None, None)
 
     def value_grad(self, beta):
         """(log posterior, gradient) at beta: one pass."""
         self.passes += 1
         m = self.model
         ll, g = m.log_likelihood_grad(beta)
+        self.last_grad = (np.array(beta, dtype=float), g)
         r = beta - m.prior_mean
         pg = m.prior_prec @ r
         return ll - 0.5 * r @ pg, g - pg
@@ -76,7 +82,16 @@ class _Objective:
     def information(self, beta):
         """The negative log-likelihood Hessian at beta: one pass."""
         self.passes += 1
-        return symmetrized(-self.model.log_likelihood_hessian(beta))
+        hess = self.model.log_likelihood_hessian(beta)
+        self.last_hessian = (np.array(beta, dtype=float), hess)
+        return symmetrized(-hess)
+
+    def derivatives_at(self, beta):
+        """The log-likelihood's (gradient, Hessian) of the last passes if both were at beta."""
+        (xg, g), (xh, h) = self.last_grad, self.last_hessian
+        if xg is None or xh is None or not (np.array_equal(xg, beta) and np.array_equal(xh, beta)):
+            return None
+        return g.copy(), h.copy()
 
 
 def find_mode(model, *, start=None, tol=1e-8, max_iter=100):
@@ -140,9 +155,11 @@ def find_mode(model, *, start=None, tol=1e-8, max_iter=100):
         if found is None:
             check_passes = model.check_mode(x, info)
             note = "" if decrement <= tol else ", the rounding floor of the sums"
-            return _laplace(x, precision, obj.passes + check_passes,
-                            f"Newton converged in {it} iterations (decrement "
-                            f"{decrement:.2g} posterior sds{note})")
+            laplace = _laplace(x, precision, obj.passes + check_passes,
+                               f"Newton converged in {it} iterations (decrement "
+                               f"{decrement:.2g} posterior sds{note})")
+            laplace.loglik_derivatives = obj.derivatives_at(x)
+            return laplace
         x, f, g = found
         decrement_before = decrement
     _raise_not_converged(model, x, info, it, decrement, decrement_before)
