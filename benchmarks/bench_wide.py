@@ -37,6 +37,7 @@ import numpy as np
 
 import tallchain as tc
 from tallchain.mcmc import ess_bulk, prepare
+from tallchain.models._passes import PARALLEL_MIN_ROWS
 from tallchain.posterior import cache_passes
 
 from bench_tall_data import _read_rows
@@ -172,6 +173,10 @@ def main():
                   seed=0, parallel=False)
     tc.sample(warm, method="mala", chains=1, draws=20, warmup=20, seed=0, parallel=False)
     _read_rows(Xw, np.random.default_rng(0), 32, 3, 2)
+    # and the parallel set-up passes, which tall data take (models/_passes.PARALLEL_MIN_ROWS)
+    Xw, yw = make_data(PARALLEL_MIN_ROWS, 5, rng)
+    prepare(tc.LogisticRegression(Xw, yw), proxy_orders=(2,))
+    del Xw, yw
     rows = []
     for d in args.dims:
         ess_it, step = mala_reference(d, args.reference_size, rng, m_draws, m_warm)
