@@ -36,6 +36,8 @@ import warnings
 import numpy as np
 
 import tallchain as tc
+from tallchain.checks import ks_check
+from tallchain.checks._ks import KS_CRITICAL, family_threshold
 from tallchain.mcmc import ess_bulk, prepare
 from tallchain.models._passes import PARALLEL_MIN_ROWS
 from tallchain.posterior import cache_passes
@@ -66,13 +68,25 @@ def peak_gib():
 
 
 def mala_reference(d, n_ref, rng, draws, warmup):
-    """Full-data MALA at the reference size: (ESS per transition, its tuned step)."""
+    """Full-data MALA at the reference size: (ESS per transition, its tuned step, whether the
+    check passed). The check:
+    penalty-mala (default mass) on the same data against these draws, two-sample KS beside
+    its floor 1.358 sqrt(1/ESS + 1/ESS_ref) (`ks_check`), family-wise over the coefficients."""
     X, y = make_data(n_ref, d, rng)
     model = tc.LogisticRegression(X, y, prior=tc.GaussianPrior(sd=10.0))
     r = tc.sample(model, method="mala", chains=2, draws=draws, warmup=warmup, seed=2,
                   parallel=False)
     ess = float(np.min(ess_bulk(r.draws)))
-    return ess / (2 * draws), float(np.mean(r.tuned["step_size"]))
+    pen = tc.sample(model, method="penalty-mala", chains=2, draws=2 * draws, warmup=warmup,
+                    seed=4, parallel=False)
+    check = ks_check(pen.draws, r.draws.reshape(-1, d))
+    # the reference draws are autocorrelated: their ESS, not their count, in the floor
+    worst = float(np.max(check.ks / (KS_CRITICAL * np.sqrt(1 / check.ess + 1 / ess))))
+    limit = family_threshold(0.05, d)[0]
+    print(f"check: d={d}, N={n_ref:,d}: penalty-mala vs full-data MALA, largest KS "
+          f"{worst:.2f} two-sample floors (family-wise 5% threshold {limit:.2f}): "
+          f"{'ok' if worst <= limit else 'FAILED'}", flush=True)
+    return ess / (2 * draws), float(np.mean(r.tuned["step_size"])), worst <= limit
 
 
 def mala_seconds_per_transition(model, prep, step, n_iter):
@@ -177,9 +191,10 @@ def main():
     Xw, yw = make_data(PARALLEL_MIN_ROWS, 5, rng)
     prepare(tc.LogisticRegression(Xw, yw), proxy_orders=(2,))
     del Xw, yw
-    rows = []
+    rows, checks = [], []
     for d in args.dims:
-        ess_it, step = mala_reference(d, args.reference_size, rng, m_draws, m_warm)
+        ess_it, step, ok = mala_reference(d, args.reference_size, rng, m_draws, m_warm)
+        checks.append(ok)
         print(f"d={d}: full-data MALA at N = {args.reference_size:,d}: ESS per transition "
               f"{ess_it:.3f}, tuned step {step:.3g}", flush=True)
         for n in (int(s) for s in args.sizes):
@@ -199,7 +214,7 @@ def main():
               f"{r['ess_total']:.1f} | {r['vs_mala_total']:.0f} | {r['passes']} |")
     print("\nMALA's ESS per second at each N: its ESS per transition at the reference size times "
           "its measured seconds per transition at that N (an extrapolation, not a full run).")
-    return 0
+    return 0 if all(checks) else 1
 
 
 if __name__ == "__main__":
