@@ -110,13 +110,13 @@ def test_langevin_log_density_matches_dense_reference(k, rng):
 def test_kinds_choose_their_form():
     lap = tc.posterior.LaplaceApproximation(np.zeros(3), np.eye(3), np.eye(3), 0, "")
     assert _mass.make_preconditioner("laplace", 3, lap).factors is None
-    assert _mass.make_preconditioner("laplace-auto", 3, lap).factors is None
     assert _mass.make_preconditioner("laplace-lowrank", 3, lap).factors[1].shape == (3, 2)
-    wide = _mass.DENSE_MAX_COEF + 1
+    wide = _mass.LOW_RANK + 5
     lap = tc.posterior.LaplaceApproximation(np.zeros(wide), np.eye(wide), np.eye(wide), 0, "")
-    auto = _mass.make_preconditioner("laplace-auto", wide, lap)
-    assert auto.factors[1].shape == (wide, _mass.LOW_RANK)
-    assert auto.matrices.mass.shape == (0, 0)   # the kernel gets the factors only
+    low = _mass.make_preconditioner("laplace-lowrank", wide, lap)
+    assert low.factors[1].shape == (wide, _mass.LOW_RANK)
+    assert low.matrices.mass.shape == (0, 0)   # the kernel gets the factors only
+    assert _mass.make_preconditioner("laplace-diagonal", wide, lap).factors[1].shape == (wide, 0)
 
 
 # --- exactness ---------------------------------------------------------------------------------

@@ -189,13 +189,12 @@ class SamplerSettings:
         "``SeedSequence.spawn``. An integer from 0 to 2**64 - 1.")
     mass_matrix: str | np.ndarray = _setting(
         "laplace", _mass_matrix,
-        '"laplace", "laplace-auto", "laplace-lowrank", "laplace-diagonal", "identity" or array, '
+        '"laplace", "laplace-lowrank", "laplace-diagonal", "identity" or array, '
         'default="laplace"',
         "The preconditioner M; \"laplace\" uses the negative Hessian of the log posterior at the "
         "mode (O(d^2) per step); \"laplace-lowrank\" keeps the Laplace standard deviations and "
         "the 10 eigen-directions of its correlation farthest from 1, \"laplace-diagonal\" the "
-        "standard deviations only (O(d) per step); \"laplace-auto\" is \"laplace\" up to 100 "
-        "coefficients and \"laplace-lowrank\" above; an array must be symmetric positive "
+        "standard deviations only (O(d) per step); an array must be symmetric positive "
         "definite.")
     init: str | np.ndarray = _setting(
         "laplace", _init, '"laplace", "mode", "prior-mean" or array, default="laplace"',

@@ -18,12 +18,10 @@ import numpy as np
 from .._arrays import spd_inverse
 from .._validation import one_of, spd_matrix_and_inverse
 
-# Eigen-directions of the Laplace correlation kept by "laplace-lowrank" (at most d - 1);
-# chosen by benchmarks/bench_wide.py (DEVELOPERS.md, "Mass matrices for wide designs").
+# Eigen-directions of the Laplace correlation kept by "laplace-lowrank" (at most d - 1). The
+# dense "laplace" stays the default: it had the best ESS per second at d = 10, 100 and 500
+# (benchmarks/bench_wide.py; DEVELOPERS.md, "Wide designs and the time to an answer").
 LOW_RANK = 10
-# Problems up to this many coefficients get the dense Laplace mass matrix by default
-# ("laplace-auto"), wider ones the low-rank one (bench_wide.py).
-DENSE_MAX_COEF = 100
 
 _EMPTY_VECTOR = np.empty(0)
 _EMPTY_MATRIX = np.empty((0, 0))
@@ -80,19 +78,16 @@ class Preconditioner:
         return MassMatrix(self.mass, self.mass_inv, self.mass_inv_chol)
 
 
-MASS_MATRIX_KINDS = ("laplace", "laplace-auto", "laplace-lowrank", "laplace-diagonal",
-                     "identity")
+MASS_MATRIX_KINDS = ("laplace", "laplace-lowrank", "laplace-diagonal", "identity")
 
 
 def make_preconditioner(mass_matrix, n_coef, laplace):
-    """Build the preconditioner from a setting: "identity", "laplace", "laplace-auto",
-    "laplace-lowrank", "laplace-diagonal" or an (n_coef, n_coef) symmetric positive definite
+    """Build the preconditioner from a setting: "identity", "laplace", "laplace-lowrank",
+    "laplace-diagonal" or an (n_coef, n_coef) symmetric positive definite
     array (checked by `tallchain.SamplerSettings`); ``laplace`` is the `LaplaceApproximation`
     of the posterior (unused for the identity or an array)."""
     if isinstance(mass_matrix, str):
         one_of("mass_matrix", mass_matrix, MASS_MATRIX_KINDS)
-        if mass_matrix == "laplace-auto":
-            mass_matrix = "laplace" if n_coef <= DENSE_MAX_COEF else "laplace-lowrank"
         if mass_matrix == "laplace-lowrank":
             return factored_preconditioner(mass_matrix, laplace.cov, min(LOW_RANK, n_coef - 1))
         if mass_matrix == "laplace-diagonal":
