@@ -107,7 +107,10 @@ def run_record(result, summary, wall_seconds=None):
         "setup_seconds": result.setup_seconds,
         "sampling_seconds": result.sampling_seconds,
         "wall_seconds": wall_seconds if wall_seconds is not None
-        else result.setup_seconds + result.sampling_seconds,
+        else result.time_to_last_draw,
+        # start to the last draw: loading, set-up (mode, Laplace, caches) and sampling
+        "timing": result.timing,
+        "ess_per_total_second": run.get("ess_per_total_second"),
         "data_evaluations": result.data_evaluations,
         "data_evaluations_per_draw": result.data_evaluations
         / max(1, result.n_chains * (result.settings.warmup + result.completed_draws)),

@@ -398,3 +398,39 @@ def test_the_module_runs_as_a_script_and_states_its_version():
                           capture_output=True, text=True, timeout=120)
     assert done.returncode == 0, done.stderr
     assert done.stdout.strip() == f"tallchain {version('tallchain')}"
+
+
+def _timed_run(tmp_path, rng, capsys):
+    path = _setup(tmp_path, *_logistic_data(rng))
+    code, out, _ = _run(capsys, "run", path, "--out", tmp_path / "out")
+    assert code == 0
+    return json.loads((tmp_path / "out" / "run.json").read_text()), out
+
+
+def test_run_json_timing_parts_are_present_and_add_up(tmp_path, rng, capsys):
+    record, _ = _timed_run(tmp_path, rng, capsys)
+    t = record["timing"]
+    parts = ("load_seconds", "setup_seconds", "sampling_seconds")
+    for key in parts + ("total_seconds", "setup_mode_seconds", "setup_cache_seconds"):
+        assert t[key] >= 0.0, key
+    # the parts are measured one after the other inside the total
+    assert sum(t[k] for k in parts) <= t["total_seconds"]
+    assert t["setup_mode_seconds"] + t["setup_cache_seconds"] <= t["setup_seconds"]
+    # the total stops at the last draw; the wall time also covers writing the outputs
+    assert t["total_seconds"] <= record["wall_seconds"]
+    # Newton took passes; the second-order row cache takes 1 (its rows): the gradient and
+    # Hessian at the mode come from Newton's last passes
+    assert t["setup_mode_passes"] >= 2 and t["setup_cache_passes"] == 1
+    assert record["ess_per_total_second"] == record["ess_bulk_min"] / t["total_seconds"]
+    assert record["ess_per_total_second"] < record["ess_per_second"]
+
+
+def test_screen_report_shows_the_time_split_and_the_end_to_end_rate(tmp_path, rng, capsys):
+    record, out = _timed_run(tmp_path, rng, capsys)
+    t = record["timing"]
+    line = re.search(r"^to the last draw (\S+) s: loading (\S+) s, set-up (\S+) s \(mode \S+ s, "
+                     r"caches \S+ s, (\d+) data passes\), sampling (\S+) s$", out, re.M)
+    assert line, out
+    assert line[1] == f"{t['total_seconds']:.2f}" and line[2] == f"{t['load_seconds']:.2f}"
+    assert int(line[4]) == t["setup_mode_passes"] + t["setup_cache_passes"]
+    assert f"{record['ess_per_total_second']:.4g} end to end" in out

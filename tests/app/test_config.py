@@ -121,7 +121,8 @@ def test_overrides_replace_keys_and_are_named_as_such(folder, tmp_path, monkeypa
     ("[sampler]\nstep_size = [0.1]\n",
      r'^sampler\.step_size: must be a number > 0 or "auto", got \[0\.1\]'),
     ("[sampler]\nmass_matrix = [[1.0], [2.0]]\n",
-     r"^sampler\.mass_matrix: must be laplace, laplace-diagonal, identity or a square matrix"),
+     r"^sampler\.mass_matrix: must be laplace, laplace-lowrank, laplace-diagonal, identity or a "
+     r"square matrix"),
     ("[output]\ndir = 3\n", r"^output\.dir: must be a string, got 3"),
     ("prior_sd = \"wide\"\n", r"^model\.prior_sd: must be a number or a list of numbers"),
     ("[sampler.extra]\na = 1\n", r"^sampler\.extra: unknown key"),

@@ -55,7 +55,7 @@ BAD_SETTINGS = [
      r"^init: contains nan at position \(1\); give finite starting values$"),
     (dict(mass_matrix="laplace-diag"),
      r'^mass_matrix: unknown value \'laplace-diag\'; did you mean "laplace-diagonal"\? choose '
-     r"one of laplace, laplace-diagonal, identity$"),
+     r"one of laplace, laplace-lowrank, laplace-diagonal, identity$"),
     (dict(mass_matrix=None), r"^mass_matrix: unknown value None; choose one of laplace, "),
     (dict(mass_matrix=-np.eye(3)), r"^mass_matrix: is not positive definite; give a symmetric "
                                    r"positive definite matrix$"),

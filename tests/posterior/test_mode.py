@@ -188,3 +188,59 @@ def test_parallel_passes_give_the_serial_mode(rng, monkeypatch, family):
     assert_allclose((parallel.mode - serial.mode) / sd, 0.0, rtol=0,
                     atol=2 * mode_sd_tolerance(model, serial.mode))
     assert_allclose(parallel.precision, serial.precision, rtol=1e-6)
+
+
+@pytest.mark.parametrize("family", ["logistic", "poisson"])
+def test_row_cache_reuses_newtons_last_passes_bitwise(family, rng):
+    # The gradient and Hessian at the mode come from the same passes at the same point, so
+    # the row cache built with them equals the one that repeats them, bit for bit; two passes
+    # fewer.
+    from tallchain.posterior import cache_passes, control_variate_cache
+
+    X = design(rng)
+    eta = 0.3 + X @ np.array([0.5, -0.4, 0.2])
+    if family == "logistic":
+        model = tc.LogisticRegression(X, (rng.random(len(eta)) < special.expit(eta)) * 1.0)
+    else:
+        model = tc.PoissonRegression(X, rng.poisson(np.exp(eta)).astype(float))
+    lap = tc.find_mode(model)
+    assert lap.loglik_derivatives is not None
+    reused = control_variate_cache(model, lap.mode, 2, lap.loglik_derivatives)
+    fresh = control_variate_cache(model, lap.mode, 2)
+    np.testing.assert_array_equal(reused.g_star, fresh.g_star)
+    np.testing.assert_array_equal(reused.H_star, fresh.H_star)
+    assert cache_passes(2, lap.loglik_derivatives) == 1 and cache_passes(2, None) == 3
+
+
+@pytest.mark.parametrize("family", ["logistic", "poisson"])
+def test_subsample_start_reaches_the_statsmodels_mode(family, rng, monkeypatch):
+    # Tall data in miniature: a 2,000-row subsample of 20,000 rows starts Newton. The mode is
+    # statsmodels' maximum-likelihood fit (flat prior), to the rounding floor of the sums.
+    from tallchain.posterior import _start
+
+    monkeypatch.setattr(_start, "SUBSAMPLE_ROWS", 2000)
+    n = 20_000
+    X = rng.normal(0.0, 0.8, size=(n, 3))
+    eta = 0.3 + X @ np.array([1.5, -1.0, 0.7])
+    if family == "logistic":
+        y = (rng.random(n) < special.expit(eta)).astype(float)
+        model = tc.LogisticRegression(X, y, prior=FLAT)
+        fit = sm.Logit(y, sm.add_constant(X)).fit(disp=0, tol=1e-12, maxiter=100)
+    else:
+        y = rng.poisson(np.exp(eta)).astype(float)
+        model = tc.PoissonRegression(X, y, prior=FLAT)
+        fit = sm.GLM(y, sm.add_constant(X), family=sm.families.Poisson()).fit(tol=1e-12)
+    calls = []
+    real = _start.subsample_start
+    monkeypatch.setattr("tallchain.posterior._mode.subsample_start",
+                        lambda *a: calls.append(1) or real(*a))
+    lap = tc.find_mode(model)
+    assert calls and "Newton converged" in lap.message
+    sd = np.sqrt(np.diag(lap.cov))
+    assert_allclose((lap.mode - fit.params) / sd, 0.0, rtol=0,
+                    atol=mode_sd_tolerance(model, lap.mode))
+    # from the prior mean the same Newton needs more full-data passes than from the start
+    # (whose own passes count as ceil(passes * 2,000 / 20,000) = 1 or 2)
+    monkeypatch.setattr(_start, "SUBSAMPLE_ROWS", n)      # too few rows: no subsample
+    plain = tc.find_mode(model)
+    assert lap.n_evaluations < plain.n_evaluations, (lap.message, plain.message)

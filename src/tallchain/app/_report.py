@@ -18,7 +18,14 @@ def print_summary(result, summary, *, file=None, standardized=False):
     print(f"acceptance {r['acceptance_rate']:.3f}, log-ratio sd {r['log_ratio_sd_mean']:.3g} "
           f"(mean), {r['data_passes']:.3g} data passes, sampling {r['sampling_seconds']:.2f} s",
           file=out)
-    print(f"ESS/s {r['ess_per_second']:.4g} (smallest bulk ESS {r['ess_bulk_min']:.0f}), "
+    t = result.timing
+    print(f"to the last draw {t['total_seconds']:.2f} s: loading {t['load_seconds']:.2f} s, "
+          f"set-up {t['setup_seconds']:.2f} s (mode {t.get('setup_mode_seconds', 0.0):.2f} s, "
+          f"caches {t.get('setup_cache_seconds', 0.0):.2f} s, "
+          f"{t.get('setup_mode_passes', 0) + t.get('setup_cache_passes', 0)} data passes), "
+          f"sampling {t['sampling_seconds']:.2f} s", file=out)
+    print(f"ESS/s {r['ess_per_second']:.4g} sampling, {r['ess_per_total_second']:.4g} end to "
+          f"end (smallest bulk ESS {r['ess_bulk_min']:.0f}), "
           f"ESS per data pass {r['ess_per_data_pass']:.3g}", file=out)
 
 

@@ -85,7 +85,8 @@ def run_config(config, *, progress=False, resume=False, scheduler=None, workers=
     Returns
     -------
     result : SampleResult
-        With ``setup_seconds`` including the data loading.
+        With ``load_seconds`` (reading and checking the data) and ``total_seconds`` from
+        the start of the command to the last draw.
     summary : tallchain.mcmc.Summary
     dataset : tallchain.data.Dataset
     """
@@ -107,13 +108,15 @@ def run_config(config, *, progress=False, resume=False, scheduler=None, workers=
                             connect_seconds=config.compute.get("connect_seconds",
                                                                CONNECT_SECONDS))
     except SamplingInterrupted as stop:
-        partial = _to_original_scale(stop.result, dataset, load_seconds, model.n_beta)
+        partial = _to_original_scale(stop.result, dataset, load_seconds, model.n_beta,
+                                     time.perf_counter() - t0)
         save_result(partial, config.output_dir, interval=config.interval)
         raise KeyboardInterrupt(
             f"{partial.completed_draws} of {config.sampler.draws} draws per chain kept in "
             f"{Path(config.output_dir) / 'posterior.nc'} (status interrupted); continue with: "
             f"{hint}") from None
-    result = _to_original_scale(result, dataset, load_seconds, model.n_beta)
+    result = _to_original_scale(result, dataset, load_seconds, model.n_beta,
+                                time.perf_counter() - t0)
     extra = {"config": None if config.path is None else str(config.path.absolute()),
              "family": config.model.family, "interval": config.interval,
              "data": _data_record(config, dataset)}
@@ -165,10 +168,11 @@ def _data_record(config, dataset):
             "standardization": None if scaling is None else scaling.as_dict()}
 
 
-def _to_original_scale(result, dataset, load_seconds, n_beta):
-    """Add the data loading to the set-up time and map standardised draws back (the first
-    ``n_beta`` columns, the coefficients; a noise sd after them is on y's scale, unchanged)."""
-    changes = {"setup_seconds": result.setup_seconds + load_seconds}
+def _to_original_scale(result, dataset, load_seconds, n_beta, total_seconds):
+    """Record the data loading and the time to the last draw, and map standardised draws
+    back (the first ``n_beta`` columns, the coefficients; a noise sd after them is on y's
+    scale, unchanged)."""
+    changes = {"load_seconds": load_seconds, "total_seconds": total_seconds}
     scaling = dataset.standardization
     if scaling is not None:
         for key in ("draws", "laplace_mode"):

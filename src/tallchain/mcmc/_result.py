@@ -39,7 +39,8 @@ class SampleResult:
     n_rows : int
         Number of data rows N.
     setup_seconds, sampling_seconds : float
-        Data checks, mode finding, and starting and stopping the workers; warmup and draws.
+        Data checks, mode finding, Laplace approximation and row caches, and starting and
+        stopping the workers; warmup and draws.
     completed_draws : int
         Draws completed per chain (less than requested when the run was interrupted).
     status : {"complete", "interrupted"}
@@ -54,6 +55,16 @@ class SampleResult:
     model_record : dict or None
         What predictions need of the model: its family and options (e.g. ``noise_sd``),
         ``add_intercept`` and ``feature_names`` (``model.record()``).
+    load_seconds : float
+        Reading the data before `sample` was called (0 unless the caller measured it, as the
+        command line does).
+    setup_parts : dict
+        The set-up split: ``mode_seconds`` (mode and Laplace approximation),
+        ``cache_seconds`` (control-variate row cache and proxy sums), ``mode_passes`` and
+        ``cache_passes`` (full-data passes of each).
+    total_seconds : float or None
+        Wall time from the start (loading included) to the last draw; None means
+        ``load_seconds + setup_seconds + sampling_seconds`` (see `time_to_last_draw`).
     """
 
     draws: np.ndarray
@@ -70,6 +81,27 @@ class SampleResult:
     warnings: list = field(default_factory=list)
     laplace_cov: np.ndarray | None = None
     model_record: dict | None = None
+    load_seconds: float = 0.0
+    setup_parts: dict = field(default_factory=dict)
+    total_seconds: float | None = None
+
+    @property
+    def time_to_last_draw(self):
+        """Wall seconds from the start (loading included) to the last draw."""
+        if self.total_seconds is not None:
+            return self.total_seconds
+        return self.load_seconds + self.setup_seconds + self.sampling_seconds
+
+    @property
+    def timing(self):
+        """Where the time to the last draw went: ``load_seconds``, ``setup_seconds`` (with
+        its parts, see ``setup_parts``), ``sampling_seconds`` and ``total_seconds``; the parts
+        add up to at most the total (the rest is bookkeeping between them)."""
+        return {"load_seconds": float(self.load_seconds),
+                "setup_seconds": float(self.setup_seconds),
+                **{f"setup_{k}": v for k, v in self.setup_parts.items()},
+                "sampling_seconds": float(self.sampling_seconds),
+                "total_seconds": float(self.time_to_last_draw)}
 
     @property
     def n_family_params(self):
@@ -253,8 +285,10 @@ def to_arviz(result):
         "data_evaluations": int(result.data_evaluations),
         "nonfinite_count": int(result.nonfinite_count),
         "penalty_beyond_bound_count": int(result.penalty_beyond_bound_count),
+        "load_seconds": float(result.load_seconds),
         "setup_seconds": float(result.setup_seconds),
         "sampling_seconds": float(result.sampling_seconds),
+        "total_seconds": float(result.time_to_last_draw),
         "completed_draws": int(result.completed_draws),
         "status": result.status,
     }

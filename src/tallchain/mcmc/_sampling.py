@@ -100,8 +100,9 @@ def sample(model, settings=None, **options):
         interrupted = True
     # Starting and stopping workers (seconds for a cluster) is set-up, not sampling: the
     # ESS per second of the draws does not depend on where they ran.
-    timings = (setup_seconds + runner.pool_seconds,
-               time.perf_counter() - t_sample - runner.pool_seconds)
+    t_end = time.perf_counter()
+    timings = (setup_seconds + runner.pool_seconds, t_end - t_sample - runner.pool_seconds,
+               t_end - t_setup)
     result = _result(model, settings, setup, states, runner, schedule, timings)
     if interrupted:
         raise SamplingInterrupted(result, run.checkpoint)
@@ -166,4 +167,4 @@ def _result(model, settings, setup, states, runner, schedule, timings):
         n_rows=model.n_rows, setup_seconds=timings[0], sampling_seconds=timings[1], completed_draws=n_done,
         laplace_mode=None if setup.laplace is None else model.natural_scale(setup.laplace.mode),
         laplace_cov=None if setup.laplace is None else setup.laplace.cov,
-        model_record=model.record())
+        model_record=model.record(), setup_parts=setup.parts, total_seconds=timings[2])

@@ -188,9 +188,14 @@ class SamplerSettings:
         "The same seed gives bitwise-identical draws. Chains get independent streams via "
         "``SeedSequence.spawn``. An integer from 0 to 2**64 - 1.")
     mass_matrix: str | np.ndarray = _setting(
-        "laplace", _mass_matrix, '"laplace", "laplace-diagonal", "identity" or array, default="laplace"',
+        "laplace", _mass_matrix,
+        '"laplace", "laplace-lowrank", "laplace-diagonal", "identity" or array, '
+        'default="laplace"',
         "The preconditioner M; \"laplace\" uses the negative Hessian of the log posterior at the "
-        "mode; an array must be symmetric positive definite.")
+        "mode (O(d^2) per step); \"laplace-lowrank\" keeps the Laplace standard deviations and "
+        "the 10 eigen-directions of its correlation farthest from 1, \"laplace-diagonal\" the "
+        "standard deviations only (O(d) per step); an array must be symmetric positive "
+        "definite.")
     init: str | np.ndarray = _setting(
         "laplace", _init, '"laplace", "mode", "prior-mean" or array, default="laplace"',
         "Starting points; \"laplace\" draws overdispersed points from the Laplace "

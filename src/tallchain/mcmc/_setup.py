@@ -5,12 +5,13 @@ starting points and the first step size. `prepare` keeps the costly part for reu
 prepares once for all its grid points).
 """
 
-from dataclasses import dataclass
+import time
+from dataclasses import dataclass, field
 
 import numpy as np
 
 from .._validation import check_seed, fail
-from ..posterior import (ControlVariateCache, control_variate_cache, find_mode,
+from ..posterior import (ControlVariateCache, cache_passes, control_variate_cache, find_mode,
                          make_preconditioner)
 
 
@@ -55,9 +56,16 @@ def prepare(model, *, proxy_orders=(2, 0)):
     Preparation
     """
     laplace = find_mode(model)
-    caches = {k: control_variate_cache(model, laplace.mode if k else None, k)
+    caches = {k: control_variate_cache(model, laplace.mode if k else None, k,
+                                       _known(laplace, k))
               for k in proxy_orders}
     return Preparation(laplace, caches, model.n_rows, model.n_coef)
+
+
+def _known(laplace, order):
+    """The log-likelihood's gradient and Hessian at the mode, from Newton's last passes, for
+    a row cache of ``order`` around the mode (None: the cache computes them)."""
+    return laplace.loglik_derivatives if order and laplace is not None else None
 
 
 def spawn_seeds(seed, n):
@@ -80,22 +88,32 @@ def chain_generators(seed, n):
 @dataclass
 class SetUp:
     """The full-data work of one run: Laplace approximation (None when the settings need no
-    mode), preconditioner, row cache, starting points (chains, n_coef) and first step size."""
+    mode), preconditioner, row cache, starting points (chains, n_coef) and first step size;
+    ``parts`` times the mode and the caches and counts their full-data passes (none when a
+    `Preparation` supplied them)."""
 
     laplace: object
     preconditioner: object
     cache: ControlVariateCache
     starts: np.ndarray
     first_step: float
+    parts: dict = field(default_factory=dict)
 
 
 def set_up(model, settings, preparation, rng):
     """The `SetUp` of a run of ``settings`` on ``model``; ``preparation`` (or None) spares the
     mode search and the row cache; ``rng`` draws the overdispersed starting points."""
+    parts = {"mode_seconds": 0.0, "mode_passes": 0, "cache_seconds": 0.0, "cache_passes": 0}
+    t0 = time.perf_counter()
     laplace = None
     if settings.needs_laplace:
-        laplace = preparation.laplace if preparation is not None else find_mode(model)
+        if preparation is not None:
+            laplace = preparation.laplace
+        else:
+            laplace = find_mode(model)
+            parts["mode_passes"] = laplace.n_evaluations
     pre = make_preconditioner(settings.mass_matrix, model.n_coef, laplace)
+    t1 = time.perf_counter()
     order = settings.proxy_order_used
     spec = settings.spec
     if not spec.minibatch:
@@ -103,11 +121,14 @@ def set_up(model, settings, preparation, rng):
     elif preparation is not None and order in preparation.caches:
         cache = preparation.caches[order]
     else:
-        cache = control_variate_cache(model, laplace.mode if order else None, order)
+        known = _known(laplace, order)
+        cache = control_variate_cache(model, laplace.mode if order else None, order, known)
+        parts["cache_passes"] = cache_passes(order, known)
+    parts["mode_seconds"], parts["cache_seconds"] = t1 - t0, time.perf_counter() - t1
     starts = _starting_points(settings, model, laplace, rng)
     step = (_default_step(spec, pre, laplace, model.n_coef) if settings.adapts_step
             else settings.step_size)
-    return SetUp(laplace, pre, cache, starts, step)
+    return SetUp(laplace, pre, cache, starts, step, parts)
 
 
 def _starting_points(settings, model, laplace, rng):

@@ -57,8 +57,9 @@ def summarize(result, *, warn=True, interval=0.9):
         its interval, see `ratio_columns`); ess_bulk, ess_tail, r_hat, mcse_mean; and when the
         run had a Laplace approximation, laplace_ks, ks_floor, laplace_shift,
         laplace_sd_ratio (see `tallchain.mcmc.laplace_gap`); ``run``: dict with acceptance_rate, log_ratio_sd_mean,
-        data_passes, sampling_seconds, ess_bulk_min, ess_per_second, ess_per_data_pass;
-        ``warnings``: list of str; ``interval``.
+        data_passes, sampling_seconds, ess_bulk_min, ess_per_second, ess_per_data_pass,
+        total_seconds (start to the last draw, loading included) and ess_per_total_second
+        (end-to-end effective draws per second); ``warnings``: list of str; ``interval``.
     """
     import arviz as az
 
@@ -98,6 +99,9 @@ def summarize(result, *, warn=True, interval=0.9):
         "sampling_seconds": result.sampling_seconds,
         "ess_bulk_min": ess_min,
         "ess_per_second": ess_min / result.sampling_seconds if result.sampling_seconds > 0 else float("nan"),
+        "total_seconds": result.time_to_last_draw,
+        "ess_per_total_second": (ess_min / result.time_to_last_draw
+                                 if result.time_to_last_draw > 0 else float("nan")),
         "ess_per_data_pass": ess_min / result.data_passes if result.data_passes > 0 else float("nan"),
     }
     msgs = []
@@ -170,7 +174,7 @@ class Summary:
         had a Laplace approximation (see `summarize`). ``print(summary)`` shows it as a table.
     run : dict
         acceptance_rate, log_ratio_sd_mean, data_passes, sampling_seconds, ess_bulk_min,
-        ess_per_second, ess_per_data_pass.
+        ess_per_second, ess_per_data_pass, total_seconds, ess_per_total_second.
     warnings : list of str
         Convergence advice (R-hat, ESS).
     interval : float

@@ -31,7 +31,8 @@ group          fields                                         built by
 GLMData        family, X, y, offset, noise_sd, intercept      ``model.glm_data``
 PriorArrays    mean, precision                                ``model.prior_arrays``
 RowCache       order, beta_star, aux, g_star, H_star          ``ControlVariateCache.rows``
-MassMatrix     mass, mass_inv, mass_inv_chol                  ``Preconditioner.matrices``
+MassMatrix     mass, mass_inv, mass_inv_chol (dense) or       ``Preconditioner.matrices``
+               scale, basis, powers (factored)
 MethodCodes    proposal, gradient, ratio, rule, variance      ``_driver.ChainJob``
 Tuning         adapt_step, n_warmup, acceptance_target,        ``_driver.ChainJob``
                noise_sd_cap
@@ -55,6 +56,7 @@ import numpy as np
 
 from ._acceptance_kernels import NONE, log_accept_probability, noise_penalty
 from ._batches import draw_batch
+from ._factored_mass import langevin_log_density_factored, propose_factored
 from ._estimators import (
     add_prior_grad,
     batch_residual_diffs,
@@ -192,6 +194,8 @@ def _batch_gradient(data, prior, rows, beta, delta, idx, tmp, work, out):
 @jit
 def _langevin_log_density(beta_to, beta_from, grad_from, h, mass, z):
     """log q(beta_to | beta_from) up to a constant that cancels in the ratio."""
+    if mass.scale.shape[0] > 0:
+        return langevin_log_density_factored(beta_to, beta_from, grad_from, h, mass, z)
     d = beta_to.shape[0]
     m, m_inv = mass.mass, mass.mass_inv
     for a in range(d):
@@ -245,6 +249,9 @@ def _copy(src, dst):
 def _propose(mass, langevin, beta, grad, h, rng, xi, prop):
     """prop = beta + sqrt(h) L xi (+ (h/2) M^{-1} grad for Langevin), xi ~ N(0, I) drawn into
     ``xi``; L L^T = M^{-1}."""
+    if mass.scale.shape[0] > 0:
+        propose_factored(mass, langevin, beta, grad, h, rng, xi, prop)
+        return
     d = beta.shape[0]
     chol, m_inv = mass.mass_inv_chol, mass.mass_inv
     for a in range(d):

@@ -63,14 +63,26 @@ def row_cache(data, beta_star):
     return aux
 
 
-def control_variate_cache(model, beta_star, order):
+def control_variate_cache(model, beta_star, order, known=None):
     """Cache the Taylor proxies of every l_i around beta_star (METHODS.md section 4);
-    ``order = 0`` builds the plain row cache (beta* = 0) for runs without control variates."""
+    ``order = 0`` builds the plain row cache (beta* = 0) for runs without control variates.
+    ``known``: the log-likelihood's (gradient, Hessian) at beta_star when a pass already made
+    them (`LaplaceApproximation.loglik_derivatives`), which spares those two passes."""
     d = model.n_coef
     beta_star = np.zeros(d) if order == 0 else np.ascontiguousarray(beta_star, dtype=float)
     aux = row_cache(model.glm_data, beta_star)
     if order == 0:
         return ControlVariateCache(0, beta_star, aux, np.zeros(d), np.zeros((d, d)))
-    _, g_star = model.log_likelihood_grad(beta_star)
-    H_star = model.log_likelihood_hessian(beta_star) if order >= 2 else np.zeros((d, d))
+    if known is not None:
+        g_star, H_star = known
+    else:
+        _, g_star = model.log_likelihood_grad(beta_star)
+        H_star = model.log_likelihood_hessian(beta_star) if order >= 2 else None
+    H_star = H_star if order >= 2 else np.zeros((d, d))
     return ControlVariateCache(order, beta_star, aux, g_star, H_star)
+
+
+def cache_passes(order, known):
+    """Full-data passes `control_variate_cache` makes: the row cache, and the gradient and
+    (second order) Hessian at beta* unless known."""
+    return 1 if order == 0 or known is not None else 1 + min(order, 2)
