@@ -339,3 +339,43 @@ def test_a_sparse_run_resumes_from_its_checkpoint_and_refuses_changed_data(tmp_p
     changed.data[0] += 0.5
     with pytest.raises(tc.InputError, match=r"resume: .*changed: data values \(X\)"):
         tc.sample(tc.LogisticRegression(changed, y), checkpoint=ckpt, resume=True, **run)
+
+
+def _one_hot_pair(rng, n_rows, n_cols, per_row):
+    """The same logistic data as a CSR and a dense design: per_row one-hot blocks."""
+    import scipy.sparse as sp
+
+    cols = np.concatenate([b * (n_cols // per_row) + rng.integers(0, n_cols // per_row, n_rows)
+                           for b in range(per_row)])
+    rows = np.tile(np.arange(n_rows), per_row)
+    X = sp.csr_matrix((np.ones(rows.size), (rows, cols)), shape=(n_rows, n_cols))
+    eta = -1.0 + X @ (0.2 * rng.standard_normal(n_cols))
+    y = (rng.random(n_rows) < 1 / (1 + np.exp(-eta))).astype(float)
+    return tc.LogisticRegression(X.toarray(), y), tc.LogisticRegression(X, y)
+
+
+def test_the_wide_hessian_of_a_csr_design_agrees_with_the_blocked_dense_one(rng):
+    # From _passes.BLOCKED_MIN_COEF coefficients the dense Hessian is a BLAS product over row
+    # blocks; a CSR design keeps its row loop over non-zeros. Same budget as above: the
+    # entries are sums over N rows of w_i x_ia x_ib with |x| <= 1 and |f''| <= 1/4, so
+    # (p + 2 + N + 4) ulps of N/4 (here with a larger p, the same reasoning).
+    from tallchain.models import _passes
+
+    dense, csr = _one_hot_pair(rng, 3000, _passes.BLOCKED_MIN_COEF + 20, 4)
+    theta = 0.1 * rng.standard_normal(dense.n_coef)
+    p = dense.n_coef
+    assert_ulps_close(csr.log_likelihood_hessian(theta), dense.log_likelihood_hessian(theta),
+                      ulps=p + 2 + 3000 + 4, scale=3000 / 4, err_msg="wide Hessian")
+
+
+def test_the_subsample_start_of_a_tall_csr_design_reaches_the_dense_mode(rng):
+    # From posterior._start's MIN_RATIO * SUBSAMPLE_ROWS rows the mode starts from a weighted
+    # row subsample; the rows of a CSR design are taken as CSR (no dense copy).
+    from tallchain.posterior import _start
+
+    n = _start.MIN_RATIO * _start.SUBSAMPLE_ROWS
+    dense, csr = _one_hot_pair(rng, n, 24, 2)
+    lap_d, lap_s = tc.find_mode(dense), tc.find_mode(csr)
+    assert lap_s.n_evaluations == lap_d.n_evaluations   # the same path, the cheap start too
+    sd = np.sqrt(np.diag(lap_d.cov))
+    assert np.all(np.abs(lap_s.mode - lap_d.mode) <= 1e-6 * sd)

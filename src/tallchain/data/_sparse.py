@@ -106,6 +106,10 @@ class CSRDesign:
         out[rows, self.indices[a:a + counts.sum()]] = self.data[a:a + counts.sum()]
         return out
 
+    def take_rows(self, rows):
+        """A CSRDesign of the given rows (an integer array), in that order: a copy."""
+        return CSRDesign.from_scipy(self.to_scipy()[np.asarray(rows)])
+
     def to_scipy(self):
         """The whole design as a scipy CSR matrix sharing the arrays."""
         return self.row_slice(0, self.shape[0])

@@ -68,7 +68,9 @@ def loglik_grad(data, beta):
 def hessian(data, beta):
     """Full-data log-likelihood Hessian sum_i f''(eta_i) x_i x_i^T at beta (``data``: GLMData)."""
     beta = _beta(data, beta)
-    if data.n_family == 0 and beta.shape[0] >= BLOCKED_MIN_COEF:
+    # a CSR design keeps the row loop: it adds the outer products of each row's non-zeros only
+    if (data.n_family == 0 and beta.shape[0] >= BLOCKED_MIN_COEF
+            and isinstance(data.X, np.ndarray)):
         n_rows = data.X.shape[0]
         eta, f1, f2 = np.empty(n_rows), np.empty(n_rows), np.empty(n_rows)
         eta_derivatives(data, beta, eta, f1, f2)

@@ -11,6 +11,7 @@ Wright 2006, Numerical Optimization, 2nd ed., theorem 3.5).
 
 import numpy as np
 
+from ..data import is_csr_design
 from ..exceptions import ModeNotFoundError
 from ..models import _passes
 
@@ -31,7 +32,9 @@ class _Subsample:
         per_row = (lambda a: a[rows] if a.shape[0] == n else a)
         weights = (np.full(m, n / m) if data.weights.shape[0] != n
                    else data.weights[rows] * (n / m))
-        self.glm_data = data._replace(X=np.ascontiguousarray(data.X[rows]), y=data.y[rows],
+        X = (model.X.take_rows(rows).kernel_form() if is_csr_design(model.X)
+             else np.ascontiguousarray(model.X[rows]))
+        self.glm_data = data._replace(X=X, y=data.y[rows],
                                       offset=per_row(data.offset), trials=per_row(data.trials),
                                       weights=weights)
         self.X = self.glm_data.X
