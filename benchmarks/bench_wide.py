@@ -22,6 +22,10 @@ measures, side by side in one run:
   mode for its Laplace mass, and ESS / its ESS per second) over penalty-mala's whole time;
 * peak resident memory of the process (ru_maxrss, the largest so far) over the size of X.
 
+With --sparse the design is bench_sparse.py's one-hot CSR design instead (10 categorical
+variables of 11 levels, d = 101 coefficients, about 9.1 non-zeros a row; --dims is ignored) and
+the floor reads a batch row's non-zeros and column indices.
+
 Run:  python benchmarks/bench_wide.py [--quick] [--sizes 1e6 1e7] [--dims 10 100 500]
       [--reference-size 1e5] [--max-gib 6] [--sparse]
 Configurations whose X would exceed --max-gib are skipped with a line saying so.
@@ -42,6 +46,8 @@ from tallchain.mcmc import ess_bulk, prepare
 from tallchain.models._passes import PARALLEL_MIN_ROWS
 from tallchain.posterior import cache_passes
 
+from bench_sparse import D
+from bench_sparse import floor_of as csr_floor_of
 from bench_tall_data import _read_rows
 
 MASSES = ("laplace", "laplace-lowrank", "laplace-diagonal")
@@ -63,17 +69,28 @@ def make_data(n, d, rng, block=200_000):
     return X, y
 
 
+def make_design(n, d, rng, sparse):
+    """(X, y): the dense AR(1) design of `make_data`, or with ``sparse`` the one-hot CSR design
+    of bench_sparse.py (d fixed there: D + 1 coefficients)."""
+    if sparse:
+        from bench_sparse import make_data as one_hot
+
+        return one_hot(n, rng)
+    return make_data(n, d, rng)
+
+
 def peak_gib():
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 2**20
 
 
-def mala_reference(d, n_ref, rng, draws, warmup):
+def mala_reference(d, n_ref, rng, draws, warmup, sparse=False):
     """Full-data MALA at the reference size: (ESS per transition, its tuned step, whether the
     check passed). The check:
     penalty-mala (default mass) on the same data against these draws, two-sample KS beside
     its floor 1.358 sqrt(1/ESS + 1/ESS_ref) (`ks_check`), family-wise over the coefficients."""
-    X, y = make_data(n_ref, d, rng)
+    X, y = make_design(n_ref, d, rng, sparse)
     model = tc.LogisticRegression(X, y, prior=tc.GaussianPrior(sd=10.0))
+    d = model.n_coef
     r = tc.sample(model, method="mala", chains=2, draws=draws, warmup=warmup, seed=2,
                   parallel=False)
     ess = float(np.min(ess_bulk(r.draws)))
@@ -105,7 +122,7 @@ def floor_seconds(X, n_batch, reads):
 
 
 def run_config(n, d, rng, args, mala_ess_per_it, mala_step):
-    X, y = make_data(n, d, rng)
+    X, y = make_design(n, d, rng, args.sparse)
     t = time.perf_counter()
     model = tc.LogisticRegression(X, y, prior=tc.GaussianPrior(sd=10.0))
     load = time.perf_counter() - t
@@ -127,7 +144,8 @@ def run_config(n, d, rng, args, mala_ess_per_it, mala_step):
         total = load + t_prep + r.setup_seconds + r.sampling_seconds
         mala_total = load + t_prep + ess / mala_ess_s
         rows.append(dict(n=n, d=d, kind=kind, batch=nb, per_it=per_it,
-                         floor=floor_seconds(X, nb, reads), ess=ess,
+                         floor=(csr_floor_of(X, nb) if args.sparse
+                                else floor_seconds(X, nb, reads)), ess=ess,
                          ess_s=ess / r.sampling_seconds, ess_total=ess / total,
                          vs_mala=ess / r.sampling_seconds / mala_ess_s,
                          vs_mala_total=mala_total / total, load=load, setup=t_prep,
@@ -144,16 +162,6 @@ def run_config(n, d, rng, args, mala_ess_per_it, mala_step):
     return rows
 
 
-def sparse_available():
-    """Whether the models take a scipy.sparse CSR design (issue 15, item 1)."""
-    from scipy import sparse
-    try:
-        tc.LogisticRegression(sparse.csr_matrix(np.eye(3)), np.array([0.0, 1.0, 0.0]))
-    except Exception:  # noqa: BLE001  (any refusal means: not yet)
-        return False
-    return True
-
-
 def main():
     ap = argparse.ArgumentParser()
     ap.add_argument("--quick", action="store_true")
@@ -163,42 +171,42 @@ def main():
     ap.add_argument("--reference-size", type=float, default=1e5)
     ap.add_argument("--max-gib", type=float, default=6.0)
     ap.add_argument("--sparse", action="store_true",
-                    help="one-hot sparse designs (needs CSR support in the models)")
+                    help="the one-hot CSR design of bench_sparse.py (d = 101) instead")
     args = ap.parse_args()
-    if args.sparse and not sparse_available():
-        print("--sparse: the models do not take CSR designs yet (issue 15, item 1); the "
-              "one-hot sparse case is skipped")
-        return 0
-    if args.sparse:
-        print("--sparse: CSR designs exist now; add the one-hot case to this script")
-        return 1
     if args.quick:
         args.sizes, args.dims, args.reference_size = [1e5], [10, 50], 2e4
+    if args.sparse:
+        args.dims = [D + 1]
     args.reference_size = int(args.reference_size)
     args.draws, args.warmup, args.mala_iters = (500, 300, 5) if args.quick else (2000, 500, 5)
     m_draws, m_warm = (500, 200) if args.quick else (2000, 300)
     warnings.simplefilter("ignore")
     rng = np.random.default_rng(7)
     # Compile (or load from the cache) every kernel before anything is timed.
-    Xw, yw = make_data(2000, 5, rng)
+    Xw, yw = make_design(2000, 5, rng, args.sparse)
     warm = tc.LogisticRegression(Xw, yw)
     for kind in MASSES:
         tc.sample(warm, method="penalty-mala", mass_matrix=kind, chains=1, draws=50, warmup=50,
                   seed=0, parallel=False)
     tc.sample(warm, method="mala", chains=1, draws=20, warmup=20, seed=0, parallel=False)
-    _read_rows(Xw, np.random.default_rng(0), 32, 3, 2)
+    if args.sparse:
+        csr_floor_of(Xw, 32, 10)
+    else:
+        _read_rows(Xw, np.random.default_rng(0), 32, 3, 2)
     # and the parallel set-up passes, which tall data take (models/_passes.PARALLEL_MIN_ROWS)
-    Xw, yw = make_data(PARALLEL_MIN_ROWS, 5, rng)
+    Xw, yw = make_design(PARALLEL_MIN_ROWS, 5, rng, args.sparse)
     prepare(tc.LogisticRegression(Xw, yw), proxy_orders=(2,))
     del Xw, yw
     rows, checks = [], []
     for d in args.dims:
-        ess_it, step, ok = mala_reference(d, args.reference_size, rng, m_draws, m_warm)
+        ess_it, step, ok = mala_reference(d, args.reference_size, rng, m_draws, m_warm,
+                                          args.sparse)
         checks.append(ok)
         print(f"d={d}: full-data MALA at N = {args.reference_size:,d}: ESS per transition "
               f"{ess_it:.3f}, tuned step {step:.3g}", flush=True)
         for n in (int(s) for s in args.sizes):
-            gib = n * (d - 1) * 8 / 2**30
+            # a one-hot row holds about 9.1 non-zeros: 12 bytes each (value, column index)
+            gib = n * (9.1 * 12 if args.sparse else (d - 1) * 8) / 2**30
             if gib > args.max_gib:
                 print(f"N={n:,d} d={d}: skipped, X would take {gib:.1f} GiB > --max-gib "
                       f"{args.max_gib}")
