@@ -57,7 +57,8 @@ def summarize(result, *, warn=True, interval=0.9):
         its interval, see `ratio_columns`); ess_bulk, ess_tail, r_hat, mcse_mean; and when the
         run had a Laplace approximation, laplace_ks, ks_floor, laplace_shift,
         laplace_sd_ratio (see `tallchain.mcmc.laplace_gap`); ``run``: dict with acceptance_rate, log_ratio_sd_mean,
-        data_passes, sampling_seconds, ess_bulk_min, ess_per_second, ess_per_data_pass;
+        data_passes, sampling_seconds, ess_bulk_min, ess_per_second, ess_per_data_pass,
+        penalty_error_bound (`SampleResult.penalty_error_bound`);
         ``warnings``: list of str; ``interval``.
     """
     import arviz as az
@@ -99,6 +100,7 @@ def summarize(result, *, warn=True, interval=0.9):
         "ess_bulk_min": ess_min,
         "ess_per_second": ess_min / result.sampling_seconds if result.sampling_seconds > 0 else float("nan"),
         "ess_per_data_pass": ess_min / result.data_passes if result.data_passes > 0 else float("nan"),
+        "penalty_error_bound": result.penalty_error_bound,
     }
     msgs = []
     rhat_max = _finite_extreme(table["r_hat"], np.max)
