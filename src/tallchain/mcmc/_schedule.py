@@ -6,7 +6,7 @@ from typing import NamedTuple
 import numpy as np
 
 from . import _transition as _chain
-from ._acceptance_rules import validity_bound
+from ._acceptance_kernels import CHI2_MAX, validity_bound
 from ._noise_shape import BEYOND_SHARE_LIMIT, ERROR_LIMIT, batch_for_error, pooled_moments
 
 # The batch size of the first pilot phase of batch_size="auto".
@@ -23,8 +23,6 @@ class NoiseLimits(NamedTuple):
 
 
 NOISE_LIMITS = NoiseLimits(error=ERROR_LIMIT, beyond_share=BEYOND_SHARE_LIMIT)
-# The kernel falls back to sigma^2/2 at chi^2 > 16 at the latest (_acceptance_kernels).
-_FALLBACK_CHI2 = 16.0
 
 
 def batch_for_target(sd, n, n_rows, target_sd, floor, ceiling):
@@ -37,7 +35,7 @@ def batch_for_target(sd, n, n_rows, target_sd, floor, ceiling):
 
 def fallback_point(n):
     """The chi^2 beyond which the kernel subtracts sigma^2/2 instead of u_B at batch n."""
-    return min(_FALLBACK_CHI2, validity_bound(n)) if n >= 3 else 0.0
+    return min(CHI2_MAX, validity_bound(n)) if n >= 2 else 0.0
 
 
 def batch_for_bound(sd, beyond, n, n_rows, share, floor, ceiling):
