@@ -151,21 +151,30 @@ def main():
                                                       for n, s in zip(names, skew)))
     print(f"\n{'run':<20} {'batch':>6} {'seconds':>8} {'x old':>6} {'err bound':>10} "
           f"{'max |z|':>8}  z at (1%, 99%) per coefficient")
+    worst = []
     for seed in SEEDS[:1] if args.quick else SEEDS:
         old_limits = _schedule.NOISE_LIMITS
         _schedule.NOISE_LIMITS = _schedule.NoiseLimits(np.inf, np.inf)   # main's rule
         try:
-            base = report(run(model, f"auto, old rule, {seed}", seed), None, ref, w, ref_ess,
-                          names)
+            base = report(run(model, f"auto, old rule, {seed}", seed), None, ref, w,
+                          ref_ess, names)[2]
         finally:
             _schedule.NOISE_LIMITS = old_limits
-        report(run(model, f"auto, new rule, {seed}", seed), base, ref, w, ref_ess, names)
+        worst.append(report(run(model, f"auto, new rule, {seed}", seed), base, ref, w,
+                            ref_ess, names))
     report(run(model, "fixed batch 32", 1, batch_size=32), base, ref, w, ref_ess, names)
     report(run(model, "full-data mala", 1, method="mala"), base, ref, w, ref_ess, names)
+    z_max = max(z for z, _, _ in worst)
+    ratio_max = max(x for _, x, _ in worst)
+    print(f"check: new rule, worst |z| {z_max:.2f} (<= 4) at up to {ratio_max:.2f}x the old "
+          f"rule's time (<= 2): {'ok' if z_max <= 4 and ratio_max <= 2 else 'FAILED'}")
+    if z_max > 4:
+        raise SystemExit(1)
 
 
 def report(outcome, base, ref, w, ref_ess, names):
-    """Print one run's line; returns its seconds (the base of the "x old" column)."""
+    """Print one run's line; returns (its worst |z|, its time over ``base``, its seconds);
+    ``base`` None: the run is the base of the "x old" column."""
     label, res, seconds, noisy = outcome
     base = seconds if base is None else base
     z = tail_z(res, ref, w, ref_ess)
@@ -176,7 +185,7 @@ def report(outcome, base, ref, w, ref_ess, names):
     print(f"{'':<20} batch set by: {res.tuned.get('batch_limited_by')}")
     for msg in noisy:
         print(f"{'':<20} warning: {msg[:200]}")
-    return base
+    return float(np.abs(z).max()), seconds / base, seconds
 
 
 if __name__ == "__main__":

@@ -161,3 +161,28 @@ def test_batch_for_error_is_the_smallest_batch_within_the_limit():
 def test_run_error_bound_is_nan_without_minibatch_statistics():
     assert math.isnan(run_error_bound({}, N_ROWS, 64))
     assert math.isnan(run_error_bound({"log_ratio_skew": np.zeros((2, 0))}, N_ROWS, None))
+
+
+def test_the_error_bound_is_reported_in_result_summary_run_json_and_header(rng, tmp_path):
+    import json
+
+    from tallchain.mcmc._tables import run_header
+
+    X = rng.standard_normal((2000, 2))
+    y = (rng.random(2000) < 0.3).astype(float)
+    model = tc.LogisticRegression(X, y)
+    r = tc.sample(model, method="penalty-mala", batch_size="auto", chains=2, warmup=100,
+                  draws=100, seed=1)
+    bound = r.penalty_error_bound
+    # the same pooling of the draws' statistics (same code, so exact)
+    assert bound == run_error_bound(r.stats, r.n_rows, r.tuned["batch_size"]) and bound >= 0
+    assert r.tuned["batch_limited_by"] in ("log-ratio sd", "non-Gaussian error",
+                                           "validity bound")
+    assert r.summary(warn=False).run["penalty_error_bound"] == bound
+    r.save(tmp_path / "run")
+    record = json.loads((tmp_path / "run" / "run.json").read_text())
+    assert record["penalty_error_bound"] == pytest.approx(bound, rel=1e-15)
+    assert f"penalty error bound {bound:.2g}" in run_header(r)
+    exact = tc.sample(model, method="mala", chains=2, warmup=50, draws=50, seed=1)
+    assert math.isnan(exact.penalty_error_bound)
+    assert "penalty error bound" not in run_header(exact)
