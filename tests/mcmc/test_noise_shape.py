@@ -44,7 +44,8 @@ def test_error_formula_against_a_direct_monte_carlo_of_a_skewed_mean():
     # Per-row terms Gamma(0.05, 20): skewness 8.9. n = 50: theta/n = 0.4.
     k, theta, n = 0.05, 20.0, 50
     err, exact, wrong = _gamma_case(k, theta, n)
-    draws = stats.gamma(n * k, scale=theta / n).rvs(2_000_000, random_state=np.random.default_rng(3))
+    draws = stats.gamma(n * k, scale=theta / n).rvs(2_000_000,
+                                                    random_state=np.random.default_rng(3))
     e = np.exp(draws - k * theta)
     mc = math.log(e.mean()) - k * theta**2 / (2 * n)
     se = e.std() / e.mean() / math.sqrt(e.size)     # delta method for log of a mean

@@ -32,7 +32,7 @@ def noise_advice(result):
     err = result.penalty_error_bound
     if math.isfinite(err) and err > 2.0 * ERROR_LIMIT:
         msgs.append(f"the minibatch log-ratio noise is not Gaussian: the penalty's residual "
-                    f"error in the log acceptance ratio is up to {err:.3f} (limit "
+                    f"error in the log acceptance ratio is {err:.3f} (limit "
                     f"{2.0 * ERROR_LIMIT:g}; skewness and kurtosis of the per-row terms pooled "
                     f"over the draws), so tails may be biased; use batch_size=\"auto\" or a "
                     "larger batch_size")

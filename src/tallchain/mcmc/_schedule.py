@@ -40,8 +40,9 @@ def fallback_point(n):
 
 def batch_for_bound(sd, beyond, n, n_rows, share, floor, ceiling):
     """A batch at which at most ``share`` of steps would be beyond the fallback point: no
-    constraint (``floor``) when the recorded share is within it, else n scaled so that the (1 - share) quantile of
-    chi^2 (which falls as (1 - n/N)/n) lies at 0.9 of the fallback point."""
+    constraint (``floor``) when the recorded share is within it, else n scaled so that the
+    (1 - share) quantile of chi^2 (which falls as (1 - n/N)/n) lies at 0.9 of the fallback
+    point."""
     if not np.isfinite(sd).any() or float(np.mean(beyond)) <= share:
         return floor
     q = float(np.nanquantile(sd**2, 1.0 - share)) / (1.0 - n / n_rows)
@@ -72,9 +73,9 @@ class Schedule:
     residual error from non-Gaussian noise (`_noise_shape`, from per-row moments pooled over the
     steps) is below ``NOISE_LIMITS.error``, and the one at which at most
     ``NOISE_LIMITS.beyond_share`` of steps are beyond the Ceperley-Dewing fallback point; then
-    the step tuning restarts; the rest of warmup tunes the step at that
-    n; a last correction of n from the end of warmup fixes the batch for the draws (the kernel
-    is fixed from then on, so the chain stays valid).
+    the step tuning restarts; the rest of warmup tunes the step at that n; a last correction
+    of n by the same rule from the end of warmup fixes the batch for the draws (the kernel is
+    fixed from then on, so the chain stays valid).
     """
 
     def __init__(self, settings, n_rows, pilot=PILOT_BATCH):
