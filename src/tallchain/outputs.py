@@ -119,6 +119,7 @@ def run_record(result, summary, wall_seconds=None):
         "data_passes": run.get("data_passes", result.data_passes),
         "nonfinite_count": result.nonfinite_count,
         "penalty_beyond_bound_count": result.penalty_beyond_bound_count,
+        "penalty_error_bound": result.penalty_error_bound,
         "warmup_counts": result.warmup_counts,
         "warnings": list(result.warnings) + list(summary.warnings if summary else ()),
     }

@@ -75,6 +75,19 @@ def test_correction_is_undefined_beyond_validity_bound(n):
     assert acceptance.validity_bound(400) == pytest.approx(400 / 4, rel=0.15)
 
 
+@pytest.mark.parametrize("n", [10, 24])
+def test_correction_stays_undefined_where_the_series_turns_positive_again(n):
+    # Beyond the second Bessel zero 0F1(; (n-1)/2; -(n-1) chi^2/4) is positive again
+    # (scipy.special.hyp0f1): 12.1 < chi^2 < 16 at n = 10, 15.7 < chi^2 < 16 at n = 24. The
+    # estimator is valid only up to the first zero (METHODS.md section 1), so the kernel falls
+    # back there too.
+    chi2 = 15.9
+    assert special.hyp0f1(0.5 * (n - 1), -0.25 * (n - 1) * chi2) > 0
+    assert chi2 > acceptance.validity_bound(n)
+    assert np.isnan(acceptance.ceperley_dewing_penalty(chi2, n))
+    assert K.noise_penalty(K.PENALTY_CD, chi2, float(n), False) == (0.5 * chi2, True)
+
+
 @pytest.mark.parametrize("n", [5, 41, 401])
 def test_validity_bound_is_the_first_bessel_zero(n):
     # For odd n the order (n - 3)/2 is an integer and scipy.special.jn_zeros tabulates j_{nu,1}.

@@ -12,6 +12,9 @@ Rule codes used by the chain loop:
 
 import math
 
+import numpy as np
+from scipy import optimize, special
+
 from ..models._kernels import jit
 
 EXACT = 0
@@ -19,6 +22,26 @@ PLUGIN = 1
 PENALTY = 2
 PENALTY_CD = 3
 NONE = 4
+
+# The series for e^{-u_B} is evaluated only up to chi^2 = 16 (its rounding grows as e^{chi^2});
+# from n = 46 on the validity bound lies above that.
+CHI2_MAX = 16.0
+_TABLE_N = 46
+
+
+def validity_bound(n):
+    """Largest chi^2 for which e^{-u_B} is positive: j_{(n-3)/2, 1}^2 / (n - 1), with j the
+    first positive zero of the Bessel function J_{(n-3)/2} (about n/4 for large n)."""
+    nu = 0.5 * (n - 3.0)
+    # j_{nu,1} lies in (nu, nu + 2 nu^{1/3} + 3) for nu >= 0 (first zero beyond the order).
+    lo = max(nu, 1e-9)
+    hi = nu + 2.0 * max(nu, 1.0) ** (1.0 / 3.0) + 3.0
+    j1 = optimize.brentq(lambda z: special.jv(nu, z), lo + 1e-9 if nu > 0 else 1.0, hi)
+    return j1**2 / (n - 1.0)
+
+
+# The bound for the batch sizes where it lies below CHI2_MAX (index n; 0 for n < 2).
+_BOUNDS = np.array([0.0, 0.0] + [validity_bound(n) for n in range(2, _TABLE_N)])
 
 
 @jit
@@ -49,13 +72,20 @@ def ceperley_dewing_penalty(chi2, n):
     e^{-sigma^2/2} from a variance estimate chi^2 with n - 1 degrees of freedom
     (Ceperley & Dewing 1999; closed form in METHODS.md section 1).
 
-    Returns NaN outside the domain where the estimator is a valid (positive) probability factor.
+    Returns NaN outside the domain where the estimator is a valid (positive) probability
+    factor: beyond the first Bessel zero, and beyond chi^2 = 16 where the series is not
+    evaluated.
     """
     if chi2 <= 0.0:
         return 0.0
     b = 0.5 * (n - 1.0)
     x = 0.25 * (n - 1.0) * chi2
-    if chi2 > 16.0:
+    if chi2 > CHI2_MAX:
+        return math.nan
+    # Below 46 rows the series turns positive again beyond its second zero: the first zero
+    # (METHODS.md section 1) is the bound, whatever the sign further on.
+    k = int(n)
+    if k < _TABLE_N and chi2 >= _BOUNDS[k]:
         return math.nan
     lf = log_hyp0f1_neg(b, x)
     if math.isnan(lf):

@@ -22,9 +22,10 @@ J. Chem. Phys. 110, 9812 (1999).
 import math
 
 import numpy as np
-from scipy import optimize, special, stats
+from scipy import special, stats
 
 from . import _acceptance_kernels as _k
+from ._acceptance_kernels import validity_bound  # noqa: F401  (part of this module's face)
 
 RULES = ("exact", "plug-in", "penalty", "penalty-estimated")
 
@@ -82,17 +83,6 @@ def ceperley_dewing_closed_form(chi2, n):
 def ceperley_dewing_penalty(chi2, n):
     """u_B as the sampler computes it (power series of 0F1 in numba); NaN beyond validity."""
     return np.vectorize(lambda c: _k.ceperley_dewing_penalty(float(c), float(n)))(chi2)
-
-
-def validity_bound(n):
-    """Largest chi^2 for which e^{-u_B} is positive: j_{(n-3)/2, 1}^2 / (n - 1), with j the
-    first positive zero of the Bessel function J_{(n-3)/2} (about n/4 for large n)."""
-    nu = 0.5 * (n - 3.0)
-    # j_{nu,1} lies in (nu, nu + 2 nu^{1/3} + 3) for nu >= 0 (first zero beyond the order).
-    lo = max(nu, 1e-9)
-    hi = nu + 2.0 * max(nu, 1.0) ** (1.0 / 3.0) + 3.0
-    j1 = optimize.brentq(lambda z: special.jv(nu, z), lo + 1e-9 if nu > 0 else 1.0, hi)
-    return j1**2 / (n - 1.0)
 
 
 def accept_probability(log_ratio_estimate, proposal_term=0.0, variance=0.0, *, rule="penalty",

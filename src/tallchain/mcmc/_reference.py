@@ -25,7 +25,7 @@ from scipy import special
 from ..models import _reference as R
 from . import _transition as T
 from ._acceptance_kernels import NONE, PENALTY, PENALTY_CD
-from ._acceptance_rules import ceperley_dewing_closed_form
+from ._acceptance_rules import ceperley_dewing_closed_form, validity_bound
 
 # Dual averaging constants (Hoffman & Gelman 2014, section 3.2.1), as in _transition.
 DA_GAMMA, DA_T0, DA_KAPPA = 0.05, 10.0, 0.75
@@ -223,12 +223,16 @@ def draw_batch(rng, n_rows, n):
 def noise_penalty(rule, var, n_batch, var_is_known):
     """(penalty, fell back): 0 (exact, plug-in), var/2 (penalty, or a variance treated as
     known), u_B by its Bessel closed form (Ceperley-Dewing), and var/2 where the kernel gives
-    up on u_B: chi^2 > 16, or e^{-u_B} not positive."""
+    up on u_B: chi^2 > 16, or at or beyond the validity bound (the first Bessel zero)."""
     if rule == PENALTY or (rule == PENALTY_CD and var_is_known):
         return 0.5 * var, False
     if rule == PENALTY_CD:
-        u = float(ceperley_dewing_closed_form(var, n_batch)) if var > 0.0 else 0.0
-        return (0.5 * var, True) if math.isnan(u) or var > 16.0 else (u, False)
+        if var <= 0.0:
+            return 0.0, False
+        if var > 16.0 or (n_batch >= 2 and var >= validity_bound(n_batch)):
+            return 0.5 * var, True
+        u = float(ceperley_dewing_closed_form(var, n_batch))
+        return (0.5 * var, True) if math.isnan(u) else (u, False)
     return 0.0, False
 
 

@@ -6,6 +6,7 @@ from importlib.metadata import PackageNotFoundError, version
 
 import numpy as np
 
+from ._noise_shape import run_error_bound
 from ._summary import summarize
 
 
@@ -156,6 +157,17 @@ class SampleResult:
         return int(self.stats["penalty_beyond_bound"].sum())
 
     @property
+    def penalty_error_bound(self):
+        """The penalty's residual error in the log acceptance ratio from non-Gaussian minibatch
+        noise, |mu3| / (6 n^2) + |mu4 - 3 mu2^2| / (24 n^3) at the run's batch n, with the
+        per-row moments pooled over the draws (an upper bound: mean + 2 standard errors;
+        `tallchain.mcmc._noise_shape`); NaN for methods without a penalised minibatch ratio."""
+        spec = self.settings.spec
+        if not (spec.minibatch and spec.adjusted):
+            return float("nan")
+        return run_error_bound(self.stats, self.n_rows, self.tuned.get("batch_size"))
+
+    @property
     def warmup_counts(self):
         """The two counts above during warmup: ``{"nonfinite": ..., "penalty_beyond_bound": ...}``."""
         return {key: int(self.warmup_stats[key].sum())
@@ -286,6 +298,7 @@ def to_arviz(result):
         "nonfinite_count": int(result.nonfinite_count),
         "penalty_beyond_bound_count": int(result.penalty_beyond_bound_count),
         "load_seconds": float(result.load_seconds),
+        "penalty_error_bound": float(result.penalty_error_bound),
         "setup_seconds": float(result.setup_seconds),
         "sampling_seconds": float(result.sampling_seconds),
         "total_seconds": float(result.time_to_last_draw),

@@ -157,6 +157,7 @@ def _result(model, settings, setup, states, runner, schedule, timings):
     tuned = {
         "step_size": [float(math.exp(st.adapt[_chain.AD_LOG_H])) for st in states],
         "batch_size": int(schedule.n_batch) if spec.minibatch else None,
+        "batch_limited_by": schedule.limited_by,
         "acceptance_target": spec.acceptance_target if settings.adapts_step else None,
         "mass_matrix": setup.preconditioner.kind,
     }

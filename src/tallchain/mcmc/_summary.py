@@ -59,7 +59,8 @@ def summarize(result, *, warn=True, interval=0.9):
         laplace_sd_ratio (see `tallchain.mcmc.laplace_gap`); ``run``: dict with acceptance_rate, log_ratio_sd_mean,
         data_passes, sampling_seconds, ess_bulk_min, ess_per_second, ess_per_data_pass,
         total_seconds (start to the last draw, loading included) and ess_per_total_second
-        (end-to-end effective draws per second); ``warnings``: list of str; ``interval``.
+        (end-to-end effective draws per second), penalty_error_bound
+        (`SampleResult.penalty_error_bound`); ``warnings``: list of str; ``interval``.
     """
     import arviz as az
 
@@ -103,6 +104,7 @@ def summarize(result, *, warn=True, interval=0.9):
         "ess_per_total_second": (ess_min / result.time_to_last_draw
                                  if result.time_to_last_draw > 0 else float("nan")),
         "ess_per_data_pass": ess_min / result.data_passes if result.data_passes > 0 else float("nan"),
+        "penalty_error_bound": result.penalty_error_bound,
     }
     msgs = []
     rhat_max = _finite_extreme(table["r_hat"], np.max)
