@@ -273,7 +273,10 @@ def rss():
 
 rng = np.random.default_rng(1)
 run = dict(method="penalty-mala", chains=2, draws=200, warmup=100, seed=1, parallel=False)
-tc.sample(tc.LogisticRegression(*one_hot(3000, rng)), **run)   # compile first
+# compile first, the parallel set-up passes too (they start at PARALLEL_MIN_ROWS rows): on a
+# fresh clone numba's compiler would otherwise take ~1.3 GB inside the measured run
+from tallchain.models._passes import PARALLEL_MIN_ROWS
+tc.sample(tc.LogisticRegression(*one_hot(PARALLEL_MIN_ROWS, rng)), **run)
 base = rss()
 X, y = one_hot(int(sys.argv[1]), rng)
 tc.sample(tc.LogisticRegression(X, y), **run)
