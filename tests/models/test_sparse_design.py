@@ -382,3 +382,38 @@ def test_the_subsample_start_of_a_tall_csr_design_reaches_the_dense_mode(rng):
     assert lap_s.n_evaluations == lap_d.n_evaluations   # the same path, the cheap start too
     sd = np.sqrt(np.diag(lap_d.cov))
     assert np.all(np.abs(lap_s.mode - lap_d.mode) <= 1e-6 * sd)
+
+
+def test_the_subsample_start_compiles_no_new_kernel_types(rng):
+    # numba types read-only and writable arrays apart: a subsample whose weights (or rows of
+    # X, y) differ in that flag from the full data's would compile every pass kernel again, a
+    # gigabyte of compiler memory inside a run (seen as a 1.6 GB peak on a fresh clone).
+    from numba.core import event
+
+    from tallchain.posterior import _start
+
+    n = _start.MIN_RATIO * _start.SUBSAMPLE_ROWS
+    _, csr = _one_hot_pair(rng, n, 24, 2)
+    view = _start._Subsample(csr, np.arange(0, n, 4))
+    compiled = []
+
+    class Seen(event.Listener):
+        def on_start(self, ev):
+            compiled.append(ev.data["dispatcher"].py_func.__name__)
+
+        def on_end(self, ev):
+            pass
+
+    beta = np.zeros(csr.n_coef)
+    csr.log_likelihood_grad(beta), csr.log_likelihood_hessian(beta)     # compiled here, if new
+    listener = Seen()
+    event.register("numba:compile", listener)
+    try:
+        view.log_likelihood_grad(beta), view.log_likelihood_hessian(beta)
+        assert compiled == []
+        # power: the same view with writable weights is a new type, and compiles
+        view.glm_data = view.glm_data._replace(weights=view.glm_data.weights.copy())
+        view.log_likelihood_grad(beta)
+        assert compiled
+    finally:
+        event.unregister("numba:compile", listener)

@@ -23,6 +23,19 @@ MIN_RATIO = 4
 _SEED = 20261203
 
 
+def _like(full, part):
+    """``part`` made read-only where ``full`` is: numba types read-only and writable arrays
+    apart, and a new type would compile every pass kernel again (about a gigabyte of compiler
+    memory, seconds of time) for the subsample alone. A CSR design's arrays, likewise."""
+    if isinstance(full, np.ndarray):
+        if not full.flags.writeable and part.flags.writeable:
+            part.setflags(write=False)     # a fresh array (fancy indexing): no one else writes
+        return part
+    if hasattr(full, "_fields") and hasattr(part, "_fields"):   # CSRArrays
+        return type(part)(*(_like(f, q) for f, q in zip(full, part)))
+    return part
+
+
 class _Subsample:
     """What `_mode._newton` reads of a model, on a weighted row subsample of it."""
 
@@ -34,9 +47,10 @@ class _Subsample:
                    else data.weights[rows] * (n / m))
         X = (model.X.take_rows(rows).kernel_form() if is_csr_design(model.X)
              else np.ascontiguousarray(model.X[rows]))
-        self.glm_data = data._replace(X=X, y=data.y[rows],
-                                      offset=per_row(data.offset), trials=per_row(data.trials),
-                                      weights=weights)
+        self.glm_data = data._replace(
+            X=_like(data.X, X), y=_like(data.y, data.y[rows]),
+            offset=_like(data.offset, per_row(data.offset)),
+            trials=_like(data.trials, per_row(data.trials)), weights=_like(data.weights, weights))
         self.X = self.glm_data.X
         for key in ("prior_mean", "prior_prec", "n_beta", "n_coef", "coef_names",
                     "feature_names"):
