@@ -74,7 +74,7 @@ class CalibrationResult:
     settings: object
     ess: np.ndarray
     refits: np.ndarray
-    binned_p_values: np.ndarray = None
+    binned_p_values: np.ndarray
 
     @property
     def passed(self):
@@ -106,23 +106,22 @@ class CalibrationResult:
                                   "verdict": "calibrated" if p > self.level / len(self.coef_names)
                                   else "miscalibrated"}
                                  for n, p, b in zip(self.coef_names, self.p_values,
-                                                    self._binned())],
+                                                    self.binned_p_values)],
                 "ranks": self.ranks.tolist()}
 
 
-    def _binned(self):
-        return (np.full(len(self.coef_names), np.nan) if self.binned_p_values is None
-                else self.binned_p_values)
-
-
-def _ecdf_statistic(below, n_replications, z):
-    """Smallest two-sided pointwise binomial tail probability of rank ECDFs: ``below[..., i]``
-    counts the ranks under z_i (L + 1) of R replications (read from a table of the tails of
-    Binomial(R, z_i) at every count 0..R)."""
+def _tail_table(n_replications, z):
+    """(R + 1, len(z)): the two-sided tail probability 2 min(P(K <= k), P(K >= k)), capped at
+    1, of K ~ Binomial(R, z_i) at every count k = 0..R."""
     k = np.arange(n_replications + 1)[:, None]
-    tails = np.minimum(2.0 * np.minimum(stats.binom.cdf(k, n_replications, z),
-                                        stats.binom.sf(k - 1, n_replications, z)), 1.0)
-    return tails[below, np.arange(z.shape[0])].min(axis=-1)
+    return np.minimum(2.0 * np.minimum(stats.binom.cdf(k, n_replications, z),
+                                       stats.binom.sf(k - 1, n_replications, z)), 1.0)
+
+
+def _ecdf_statistic(below, tails):
+    """Smallest pointwise tail probability of ECDFs: ``below[..., i]`` counts the R values
+    under z_i, ``tails`` is `_tail_table` at those z."""
+    return tails[below, np.arange(tails.shape[1])].min(axis=-1)
 
 
 def _ranks_below(ranks, n_draws):
@@ -137,12 +136,12 @@ def _ranks_below(ranks, n_draws):
 def _ecdf_null(n_replications, n_draws, n_sim, seed):
     """The sorted null statistics of `ecdf_uniformity_pvalues` (they depend on R and L only),
     simulated in chunks of 10,000 rank sets."""
-    z = np.arange(1, n_draws + 1) / (n_draws + 1)
+    tails = _tail_table(n_replications, np.arange(1, n_draws + 1) / (n_draws + 1))
     rng = np.random.default_rng(seed)
     chunks = [_ecdf_statistic(_ranks_below(rng.integers(0, n_draws + 1,
                                                          size=(min(10_000, n_sim - a),
                                                                n_replications)), n_draws),
-                              n_replications, z)
+                              tails)
               for a in range(0, n_sim, 10_000)]
     return np.sort(np.concatenate(chunks))
 
@@ -163,7 +162,7 @@ def ecdf_uniformity_pvalues(ranks, n_draws, n_sim=100_000, seed=0):
     R = ranks.shape[0]
     z = np.arange(1, n_draws + 1) / (n_draws + 1)
     null = _ecdf_null(R, n_draws, n_sim, seed)
-    observed = _ecdf_statistic(_ranks_below(ranks.T, n_draws), R, z)
+    observed = _ecdf_statistic(_ranks_below(ranks.T, n_draws), _tail_table(R, z))
     return (1.0 + np.searchsorted(null, observed, side="right")) / (1.0 + n_sim)
 
 
@@ -188,11 +187,9 @@ def ecdf_bands(n_replications, n_points, level=0.05, n_sim=2000, seed=0):
     rng = np.random.default_rng(seed)
     z = np.arange(1, n_points + 1) / (n_points + 1)
     sims = np.sort(rng.random((n_sim, n_replications)), axis=1)
-    ecdf = np.stack([np.searchsorted(s, z, side="right") for s in sims]) / n_replications
+    below = np.stack([np.searchsorted(s, z, side="right") for s in sims])
     # for each simulated ECDF, the smallest pointwise tail probability it reaches
-    cdf = stats.binom.cdf(np.round(ecdf * n_replications), n_replications, z)
-    sf = stats.binom.sf(np.round(ecdf * n_replications) - 1, n_replications, z)
-    gamma = np.quantile(2 * np.minimum(cdf, sf).min(axis=1), level)
+    gamma = np.quantile(_ecdf_statistic(below, _tail_table(n_replications, z)), level)
     lo = stats.binom.ppf(gamma / 2, n_replications, z) / n_replications - z
     hi = stats.binom.ppf(1 - gamma / 2, n_replications, z) / n_replications - z
     return z, lo, hi
