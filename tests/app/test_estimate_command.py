@@ -8,7 +8,7 @@ import json
 import numpy as np
 import pytest
 
-from tallchain.app import _estimate_command, main
+from tallchain.app import _service, main
 
 @pytest.fixture()
 def config(tmp_path, rng):
@@ -64,7 +64,7 @@ def test_bad_options_exit_2_in_one_line_before_the_data(config, monkeypatch, cap
     def boom(*a, **k):
         raise AssertionError("read the data")
 
-    monkeypatch.setattr(_estimate_command, "build_model", boom)
+    monkeypatch.setattr(_service, "build_model", boom)
     assert main(["estimate", config(), *args]) == 2
     err = capsys.readouterr().err
     assert err.startswith(start) and len(err.strip().splitlines()) == 1, err

@@ -5,11 +5,11 @@ import json
 import time
 from pathlib import Path
 
-from ..outputs import removed_if_left_empty, write_json
+from ..outputs import write_json
 from ._config import named_fields
 from ._registry import (EXIT_CHECK_FAILED, EXIT_INCONCLUSIVE, EXIT_OK, add_config_arguments,
                         command, config_from_args, option_or, warnings_as_lines)
-from ._service import build_model, check_before_work
+from ._service import checked_model
 
 # The exit code of each verdict of a check.
 _EXIT_FOR = {"passed": EXIT_OK, "failed": EXIT_CHECK_FAILED, "inconclusive": EXIT_INCONCLUSIVE}
@@ -34,11 +34,8 @@ def _load(args):
     the folder and a scheduler address are checked before the data are read."""
     config = config_from_args(args)
     uses_workers = hasattr(args, "scheduler")   # validate runs its chains in this process
-    with removed_if_left_empty(config.output_dir):
-        check_before_work(config, getattr(args, "scheduler", None),
+    model = checked_model(config, getattr(args, "scheduler", None),
                           "processes" if uses_workers else None)
-        with warnings_as_lines():
-            model, _ = build_model(config)
     return config, model, Path(config.output_dir)
 
 

@@ -4,12 +4,12 @@ import argparse
 import time
 from pathlib import Path
 
-from ..outputs import atomic_write, removed_if_left_empty, write_json
+from ..outputs import atomic_write, write_json
 from ._check_commands import _scheduler_argument
 from ._config import named_fields
 from ._registry import (EXIT_INCONCLUSIVE, EXIT_OK, add_config_arguments, command,
                         config_from_args, option_or, warnings_as_lines)
-from ._service import build_model, check_before_work
+from ._service import checked_model
 
 
 def _span(text):
@@ -53,10 +53,7 @@ def _estimate(args):
         check_estimate_arguments(args.replicates, args.lag, args.span, args.max_iterations,
                                  args.level)
         check_coupled_settings(config.sampler)
-    with removed_if_left_empty(config.output_dir):
-        check_before_work(config, args.scheduler, "processes")
-        with warnings_as_lines():
-            model, _ = build_model(config)
+    model = checked_model(config, args.scheduler, "processes")
     out = Path(config.output_dir)
     settings = config.sampler_given()
     for key in ("draws", "chains"):   # the tuning run's own (only its warmup is used)
@@ -73,7 +70,7 @@ def _estimate(args):
     record["seconds"] = time.perf_counter() - t
     write_json(out / "estimate.json", record)
     atomic_write(out / "estimate.csv", res.write_csv)
-    res.plot(Path(out) / "tv_bound.png")
+    res.plot(out / "tv_bound.png")
     if not args.quiet:
         _print(res, out, record["seconds"])
     return EXIT_INCONCLUSIVE if res.unmet else EXIT_OK

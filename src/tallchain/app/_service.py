@@ -13,10 +13,10 @@ from ..executors import check_scheduler
 from ..exceptions import SamplingInterrupted
 from ..mcmc import sample
 from ..models import FAMILIES
-from ..outputs import check_writable, save_result
+from ..outputs import check_writable, removed_if_left_empty, save_result
 from ._config import named_fields
 from ._folder import CHECKPOINT_NAME, prepare_folder
-from ._registry import option_or
+from ._registry import option_or, warnings_as_lines
 
 
 def build_model(config):
@@ -69,6 +69,17 @@ def check_before_work(config, scheduler=None, default_scheduler="threads"):
         probe_address(chosen, compute.get("connect_seconds", CONNECT_SECONDS), where,
                       "raise compute.connect_seconds")
     return chosen
+
+
+def checked_model(config, scheduler, default_scheduler):
+    """`check_before_work`, then `build_model` with its warnings as lines: the model of a
+    checking command. An output folder that the checks created is removed again when the
+    config or its data are refused (nothing was written into it yet)."""
+    with removed_if_left_empty(config.output_dir):
+        check_before_work(config, scheduler, default_scheduler)
+        with warnings_as_lines():
+            model, _ = build_model(config)
+    return model
 
 
 def run_config(config, *, progress=False, resume=False, scheduler=None, workers=None,
