@@ -48,7 +48,7 @@ def local(model, tmp_path_factory):
 @pytest.fixture()
 def client():
     cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
-                                       dashboard_address=None)
+                                       dashboard_address=":0")
     c = distributed.Client(cluster)
     yield c
     c.close()

@@ -201,8 +201,10 @@ class TaskPool:
             return self
         distributed = self._distributed = _import_distributed(repr(self.scheduler))
         if self.scheduler == "dask-local":
+            # dashboard on a free port: None means 8787, and a second cluster on the machine
+            # (another run, a parallel test worker) would warn that it is taken
             self._cluster = distributed.LocalCluster(n_workers=self.workers, threads_per_worker=1,
-                                                     processes=True, dashboard_address=None)
+                                                     processes=True, dashboard_address=":0")
             self._client = distributed.Client(self._cluster)
         elif isinstance(self.scheduler, str):
             self._client = _connect(distributed, self.scheduler, self.timeout)

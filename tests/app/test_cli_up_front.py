@@ -212,7 +212,7 @@ def test_power_a_scheduler_at_an_address_runs_the_chains_to_the_threads_draws(tm
     path.write_text(CONFIG.format(sampler="seed = 1", compute="[compute]\nconnect_seconds = 20"))
     assert cli.main(["run", str(path), "--out", str(tmp_path / "threads"), "--quiet"]) == 0
     with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=False,
-                                  protocol="tcp", dashboard_address=None) as cluster:
+                                  protocol="tcp", dashboard_address=":0") as cluster:
         address = cluster.scheduler_address
         assert address.startswith("tcp://")
         code = cli.main(["run", str(path), "--out", str(tmp_path / "dask"), "--scheduler",
