@@ -110,7 +110,6 @@ def drive(runner, states, schedule, *, checkpoint=None, checkpoint_seconds=30.0)
         with _timed_pool(runner, len(states)) as pool:
             while schedule.segment < len(schedule.segments):
                 end = schedule.segments[schedule.segment][0]
-                start = min(st.iteration for st in states)
                 while min(st.iteration for st in states) < end:
                     target = min(end, min(st.iteration for st in states)
                                  + runner.round_length())
@@ -125,7 +124,7 @@ def drive(runner, states, schedule, *, checkpoint=None, checkpoint_seconds=30.0)
                     if checkpoint is not None and time.monotonic() - last_write > checkpoint_seconds:
                         checkpoint.write(states, schedule, runner)
                         last_write = time.monotonic()
-                schedule.finish_segment(states, runner.all_stats, start)
+                schedule.finish_segment(states, runner.all_stats)
                 if end == schedule.warmup and checkpoint is not None:
                     # Warmup (tuning) is the part most costly to lose: keep it at once.
                     checkpoint.write(states, schedule, runner)

@@ -104,8 +104,11 @@ class Schedule:
         # rule that set the last one
         self.history, self.limited_by = [], None
 
-    def finish_segment(self, states, all_stats, start):
+    def finish_segment(self, states, all_stats):
         end, rebatch, restart = self.segments[self.segment]
+        # the segment's first iteration from the schedule, not from where the chains were when
+        # this call's drive began: a run resumed mid-segment must see the same window
+        start = self.segments[self.segment - 1][0] if self.segment else 0
         if rebatch:
             self.n_batch = self.next_batch(all_stats[:, (start + end) // 2:end])
         if restart:
