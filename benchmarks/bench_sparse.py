@@ -82,9 +82,9 @@ def transition_cost(model, chains, draws, warmup):
     return r, r.sampling_seconds / iters, r.data_evaluations / iters
 
 
-def floor_of(X, nb, read_iters=20_000):
+def floor_of(X, nb, read_iters=20_000, reads=3):
     g = np.random.default_rng(3)
-    args = (X.data, X.indices, X.indptr, X.shape[0], g, nb, 3)
+    args = (X.data, X.indices, X.indptr, X.shape[0], g, nb, reads)
     _read_csr_rows(*args, 10)
     t = time.perf_counter()
     _read_csr_rows(*args, read_iters)

@@ -9,7 +9,9 @@ measures, side by side in one run:
 * set-up: `tallchain.prepare` (Newton mode, Laplace, second-order row cache) in seconds and in
   full-data passes (the mode's passes + the row cache's: 1 when Newton's last passes give the
   gradient and Hessian at the mode, else 3);
-* per mass matrix ("laplace" dense, "laplace-lowrank", "laplace-diagonal"): penalty-mala's
+* per mass matrix ("laplace" dense, "laplace-lowrank", "laplace-diagonal") and, with the
+  dense one, per gradient_batch ("fresh": batch gradients; "proxy": the drift of the control
+  variates' quadratic proxy, one batch per step): penalty-mala's
   ESS per sampling second (min bulk ESS over coefficients), seconds per transition, the
   bare row-reading floor of the rows it reads (a numba loop drawing sorted batches and
   summing their rows, nothing else), and the end-to-end ESS per second (loading + set-up +
@@ -24,10 +26,12 @@ measures, side by side in one run:
 
 With --sparse the design is bench_sparse.py's one-hot CSR design instead (10 categorical
 variables of 11 levels, d = 101 coefficients, about 9.1 non-zeros a row; --dims is ignored) and
-the floor reads a batch row's non-zeros and column indices.
+the floor reads a batch row's non-zeros and column indices (as many batches as the transition
+reads).
 
 Run:  python benchmarks/bench_wide.py [--quick] [--sizes 1e6 1e7] [--dims 10 100 500]
-      [--reference-size 1e5] [--max-gib 6] [--sparse]
+      [--reference-size 1e5] [--max-gib 6] [--sparse] [--draws 2000]
+      [--gradient-batches fresh proxy] [--masses laplace laplace-lowrank laplace-diagonal]
 Configurations whose X would exceed --max-gib are skipped with a line saying so.
 """
 
@@ -121,6 +125,13 @@ def floor_seconds(X, n_batch, reads):
     return (time.perf_counter() - t) / n_iter
 
 
+def variants(args):
+    """(mass matrix, gradient_batch) pairs to time: the proxy drift needs the dense Laplace
+    mass matrix."""
+    return [(kind, drift) for kind in args.masses for drift in args.gradient_batches
+            if drift != "proxy" or kind == "laplace"]
+
+
 def run_config(n, d, rng, args, mala_ess_per_it, mala_step):
     X, y = make_design(n, d, rng, args.sparse)
     t = time.perf_counter()
@@ -133,9 +144,10 @@ def run_config(n, d, rng, args, mala_ess_per_it, mala_step):
     mala_it = mala_seconds_per_transition(model, prep, mala_step, args.mala_iters)
     mala_ess_s = mala_ess_per_it / mala_it
     rows = []
-    for kind in args.masses:
+    for kind, drift in variants(args):
         r = tc.sample(model, method="penalty-mala", mass_matrix=kind, chains=2, draws=args.draws,
-                      warmup=args.warmup, seed=1, parallel=False, preparation=prep)
+                      warmup=args.warmup, seed=1, parallel=False, preparation=prep,
+                      gradient_batch=drift)
         iters = 2 * (args.draws + args.warmup)
         per_it = r.sampling_seconds / iters
         nb = r.tuned["batch_size"]
@@ -143,14 +155,14 @@ def run_config(n, d, rng, args, mala_ess_per_it, mala_step):
         ess = float(np.min(ess_bulk(r.draws)))
         total = load + t_prep + r.setup_seconds + r.sampling_seconds
         mala_total = load + t_prep + ess / mala_ess_s
-        rows.append(dict(n=n, d=d, kind=kind, batch=nb, per_it=per_it,
-                         floor=(csr_floor_of(X, nb) if args.sparse
+        rows.append(dict(n=n, d=d, kind=kind, drift=drift, batch=nb, per_it=per_it,
+                         floor=(csr_floor_of(X, nb, reads=reads) if args.sparse
                                 else floor_seconds(X, nb, reads)), ess=ess,
                          ess_s=ess / r.sampling_seconds, ess_total=ess / total,
                          vs_mala=ess / r.sampling_seconds / mala_ess_s,
                          vs_mala_total=mala_total / total, load=load, setup=t_prep,
                          passes=passes, acc=r.acceptance_rate))
-        print(f"N={n:>10,d} d={d:>3} {kind:<17} batch={nb:<4} ESS={ess:6.0f} "
+        print(f"N={n:>10,d} d={d:>3} {kind:<17} {drift:<6} batch={nb:<4} ESS={ess:6.0f} "
               f"us/transition={per_it * 1e6:8.1f} (floor x{per_it / rows[-1]['floor']:.2f}) "
               f"ESS/s={rows[-1]['ess_s']:9.1f} vs MALA x{rows[-1]['vs_mala']:.0f}; end to end "
               f"x{rows[-1]['vs_mala_total']:.0f}", flush=True)
@@ -169,7 +181,11 @@ def main():
     ap.add_argument("--dims", nargs="+", type=int, default=[10, 100, 500])
     ap.add_argument("--masses", nargs="+", default=list(MASSES))
     ap.add_argument("--reference-size", type=float, default=1e5)
+    ap.add_argument("--draws", type=int, default=2000,
+                    help="penalty-mala's draws per chain (2 chains; 500 warmup)")
     ap.add_argument("--max-gib", type=float, default=6.0)
+    ap.add_argument("--gradient-batches", nargs="+", default=["fresh", "proxy"],
+                    help="penalty-mala's gradient_batch settings to time side by side")
     ap.add_argument("--sparse", action="store_true",
                     help="the one-hot CSR design of bench_sparse.py (d = 101) instead")
     args = ap.parse_args()
@@ -178,16 +194,17 @@ def main():
     if args.sparse:
         args.dims = [D + 1]
     args.reference_size = int(args.reference_size)
-    args.draws, args.warmup, args.mala_iters = (500, 300, 5) if args.quick else (2000, 500, 5)
+    args.draws, args.warmup, args.mala_iters = ((500, 300, 5) if args.quick
+                                                else (args.draws, 500, 5))
     m_draws, m_warm = (500, 200) if args.quick else (2000, 300)
     warnings.simplefilter("ignore")
     rng = np.random.default_rng(7)
     # Compile (or load from the cache) every kernel before anything is timed.
     Xw, yw = make_design(2000, 5, rng, args.sparse)
     warm = tc.LogisticRegression(Xw, yw)
-    for kind in MASSES:
+    for kind, drift in variants(args):
         tc.sample(warm, method="penalty-mala", mass_matrix=kind, chains=1, draws=50, warmup=50,
-                  seed=0, parallel=False)
+                  seed=0, parallel=False, gradient_batch=drift)
     tc.sample(warm, method="mala", chains=1, draws=20, warmup=20, seed=0, parallel=False)
     if args.sparse:
         csr_floor_of(Xw, 32, 10)
@@ -213,11 +230,11 @@ def main():
                 continue
             rows += run_config(n, d, rng, args, ess_it, step)
     print()
-    print("| N | d | mass | batch | us/transition | over floor | ESS/s | x MALA (sampling) | "
-          "ESS/s end to end | x MALA (end to end) | set-up passes |")
-    print("|---|---|---|---|---|---|---|---|---|---|---|")
+    print("| N | d | mass | gradient_batch | batch | us/transition | over floor | ESS/s | "
+          "x MALA (sampling) | ESS/s end to end | x MALA (end to end) | set-up passes |")
+    print("|---|---|---|---|---|---|---|---|---|---|---|---|")
     for r in rows:
-        print(f"| {r['n']:,d} | {r['d']} | {r['kind']} | {r['batch']} | {r['per_it'] * 1e6:.1f} | "
+        print(f"| {r['n']:,d} | {r['d']} | {r['kind']} | {r['drift']} | {r['batch']} | {r['per_it'] * 1e6:.1f} | "
               f"{r['per_it'] / r['floor']:.2f} | {r['ess_s']:.1f} | {r['vs_mala']:.0f} | "
               f"{r['ess_total']:.1f} | {r['vs_mala_total']:.0f} | {r['passes']} |")
     print("\nMALA's ESS per second at each N: its ESS per transition at the reference size times "

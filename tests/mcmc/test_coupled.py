@@ -209,6 +209,7 @@ def test_tv_bound_is_the_lag_formula():
     ({"level": 1.5}, "level"),
     ({"method": "sgld", "step_size": 0.1}, "method"),
     ({"method": "penalty-mala", "gradient_batch": "carried"}, "gradient_batch"),
+    ({"method": "penalty-mala", "gradient_batch": "proxy"}, "gradient_batch"),
     ({"log_ratio_variance": "pooled"}, "log_ratio_variance"),
     ({"scheduler": "nowhere"}, "scheduler"),
     ({"chain": 3}, "chain"),

@@ -104,14 +104,27 @@ def logistic_reference():
     return model, draws, w
 
 
-def test_penalty_mala_logistic_matches_importance_sampling_reference(logistic_reference):
+@pytest.mark.parametrize("drift", ["fresh", "proxy"])
+def test_penalty_mala_logistic_matches_importance_sampling_reference(logistic_reference, drift):
     model, ref, w = logistic_reference
     assert w.sum() ** 2 / np.sum(w**2) > 30_000  # the reference is sharp
-    r = tc.sample(model, method="penalty-mala", chains=4, draws=3000, warmup=600, seed=9)
+    r = tc.sample(model, method="penalty-mala", chains=4, draws=3000, warmup=600, seed=9,
+                  gradient_batch=drift)
+    assert r.tuned["gradient_batch"] == drift
     check = ks_check(r.draws, ref, reference_weights=w)
     assert check.passed, check.as_dict()
     # Power check: naive-mh without control variates at a large step fails the same test.
     with pytest.warns(tc.NoisyLogRatioWarning, match="larger batch_size"):
         bad = tc.sample(model, method="naive-mh", control_variates=False, batch_size=100,
                         step_size=1.0, chains=4, draws=3000, warmup=300, seed=9)
+    assert not ks_check(bad.draws, ref, reference_weights=w).passed
+
+
+def test_proxy_drift_without_its_proposal_term_fails_the_same_reference(logistic_reference):
+    # Power check for gradient_batch="proxy": the proxy's drift with the proposal-density term
+    # c dropped targets the wrong distribution (too wide at this step) and must fail the test
+    # that the correct proxy drift passes (test above).
+    model, ref, w = logistic_reference
+    bad = tc.sample(model, method="_penalty-mala-without-proposal-term", chains=4, draws=3000,
+                    warmup=600, seed=9, gradient_batch="proxy")
     assert not ks_check(bad.draws, ref, reference_weights=w).passed

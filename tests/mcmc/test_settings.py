@@ -74,6 +74,15 @@ BAD_SETTINGS = [
     (dict(warmup=30), r'^warmup: is 30, too short to choose batch_size="auto"; give warmup >= 40'),
     (dict(method="mala", gradient_batch="carried"),
      r'^gradient_batch: "carried" applies to penalty-mala, not mala; use gradient_batch="fresh"'),
+    (dict(method="sgld", step_size=0.1, gradient_batch="proxy"),
+     r'^gradient_batch: "proxy" applies to penalty-mala, not sgld; use gradient_batch="fresh"'),
+    (dict(gradient_batch="proxy", mass_matrix="laplace-lowrank"),
+     r'^gradient_batch: "proxy" needs second-order control variates and mass_matrix="laplace"; '
+     r'use gradient_batch="fresh", or control_variates=True, proxy_order=2'),
+    (dict(gradient_batch="proxy", proxy_order=1),
+     r'^gradient_batch: "proxy" needs second-order control variates'),
+    (dict(gradient_batch="proxy", control_variates=False),
+     r'^gradient_batch: "proxy" needs second-order control variates'),
 ]
 
 BAD_RUN_OPTIONS = [
@@ -191,3 +200,21 @@ def test_saving_somewhere_that_is_not_a_folder_is_one_line(model, tmp_path):
         r.save(tmp_path / "afile")
     r.save(tmp_path / "new" / "folder")
     assert (tmp_path / "new" / "folder" / "posterior.nc").exists()
+
+
+# Without second-order control variates a 32-row batch is noisy here; not what this is about.
+@pytest.mark.filterwarnings("ignore::tallchain.exceptions.NoisyLogRatioWarning")
+@pytest.mark.parametrize(("settings", "resolved"), [
+    ({}, "proxy"),
+    ({"mass_matrix": "laplace-diagonal"}, "fresh"),
+    ({"control_variates": False}, "fresh"),
+    ({"proxy_order": 1}, "fresh"),
+    ({"gradient_batch": "carried"}, "carried"),
+])
+def test_auto_gradient_batch_is_the_proxy_drift_where_it_applies(model, settings, resolved):
+    r = tc.sample(model, method="penalty-mala", chains=1, draws=20, warmup=40, seed=1,
+                  batch_size=32, **settings)
+    assert r.tuned["gradient_batch"] == resolved
+    # one batch per step with the proxy's drift, three with fresh gradient batches
+    reads = {"proxy": 32, "fresh": 96, "carried": 64}[resolved]
+    assert np.all(r.stats["rows_read"] == reads)

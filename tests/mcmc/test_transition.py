@@ -3,7 +3,9 @@
 The reference strings together the step references (tested one by one in test_estimators.py)
 one iteration at a time, drawing from a generator with the same seed in the kernel's order, so
 both follow the same path: every method's codes, with and without control variates, every
-noise-variance source, the carried gradient batch, and step-size adaptation in warmup. Checked:
+noise-variance source, the carried gradient batch, the proxy drift (the kernel's whitened
+recursion against the reference's drift, proposal density and proxy sums computed row by row
+from their definitions), and step-size adaptation in warmup. Checked:
 
 * the decisions and counts exactly: accepted, non-finite, rows read, batch size, beyond the
   Ceperley-Dewing bound (a rounding-level difference never flips an accept decision here:
@@ -30,7 +32,9 @@ from glm_problems import ROW_ULPS, loglik_scale
 from tallchain.mcmc import _acceptance_kernels as A
 from tallchain.mcmc import _reference as MR
 from tallchain.mcmc import _transition as T
-from tallchain.posterior import control_variate_cache, find_mode, make_preconditioner
+from tallchain.mcmc._proxy_drift import proxy_coordinates
+from tallchain.posterior import (control_variate_cache, find_mode, make_preconditioner,
+                                 proxy_preconditioner)
 from ulps import assert_ulps_close
 
 N, N_BATCH, N_ITER, N_WARMUP = 300, 24, 40, 20
@@ -52,7 +56,7 @@ def setup():
 
 
 R_, L_, LNC = T.PROPOSAL_RW, T.PROPOSAL_LANGEVIN, T.PROPOSAL_LANGEVIN_NO_C
-F_, B_, C_ = T.FULL, T.BATCH, T.CARRIED
+F_, B_, C_, P_ = T.FULL, T.BATCH, T.CARRIED, T.PROXY
 METHODS = {
     "mala": ((L_, F_, F_, A.EXACT, T.VAR_SAME), 0, 0.5),
     "rwm": ((R_, F_, F_, A.EXACT, T.VAR_SAME), 0, 0.8),
@@ -63,6 +67,7 @@ METHODS = {
     "penalty-mala-independent": ((L_, B_, B_, A.PENALTY_CD, T.VAR_INDEPENDENT), 1, 0.5),
     "penalty-mala-pooled": ((L_, B_, B_, A.PENALTY, T.VAR_POOLED), 0, 0.2),
     "penalty-mala-carried": ((L_, C_, B_, A.PENALTY_CD, T.VAR_SAME), 2, 0.5),
+    "penalty-mala-proxy": ((L_, P_, B_, A.PENALTY_CD, T.VAR_SAME), 2, 0.5),
     "sgld": ((L_, B_, F_, A.NONE, T.VAR_SAME), 2, 0.05),
 }
 
@@ -73,6 +78,9 @@ def run_both(setup, method, adapt):
     codes = T.MethodCodes(*code_tuple)
     data, prior, rows, mass = (model.glm_data, model.prior_arrays, caches[order].rows,
                                pre.matrices)
+    if codes.gradient == T.PROXY:
+        pre = proxy_preconditioner(rows, prior)
+        mass = pre.matrices
     noise_cap = 1.5 if codes.rule in (A.PENALTY, A.PENALTY_CD) else 0.0
     tuning = T.Tuning(adapt, N_WARMUP, 0.574, noise_cap)
     start = laplace.mode + 0.3 * np.sqrt(np.diag(laplace.cov))
@@ -85,6 +93,8 @@ def run_both(setup, method, adapt):
         T.init_full_state(data, prior, state)
     if codes.gradient == T.CARRIED:
         T.init_carried_gradient(data, prior, rows, state, rng, N_BATCH)
+    if codes.gradient == T.PROXY:
+        state.cur_grad[:] = proxy_coordinates(pre, state.beta)
     chain = {"beta": state.beta.copy(), "cur_grad": state.cur_grad.copy(),
              "cur_loglik": float(state.cur_loglik[0]), "adapt": state.adapt.copy(),
              "pooled": state.pooled.copy(), "n_batch": N_BATCH}
@@ -126,7 +136,8 @@ def test_run_chain_follows_the_reference_at_a_fixed_step(setup, method):
     check_same_path(model, draws, stats, ref_draws, ref_stats, 1.0)
 
 
-@pytest.mark.parametrize("method", ["mala", "penalty-mala", "penalty-rwm", "sgld"])
+@pytest.mark.parametrize("method", ["mala", "penalty-mala", "penalty-rwm", "sgld",
+                                    "penalty-mala-proxy"])
 def test_run_chain_follows_the_reference_while_tuning_the_step(setup, method):
     model, draws, stats, ref_draws, ref_stats = run_both(setup, method, adapt=True)
     steps = stats[:, T.ST_STEP_SIZE]

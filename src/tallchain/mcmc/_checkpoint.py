@@ -10,7 +10,7 @@ import numpy as np
 from .._validation import fail
 from ..outputs import write_npz
 
-CHECKPOINT_VERSION = 4
+CHECKPOINT_VERSION = 5
 _ARRAYS = ("draws", "stats", "beta", "cur_grad", "cur_loglik", "adapt", "pooled")
 
 
@@ -38,7 +38,7 @@ class Checkpoint:
             "draws": self.draws,
             "segment": schedule.segment,
             "n_batch": schedule.n_batch,
-            "chains": [{"iteration": st.iteration, "carried_ready": st.carried_ready,
+            "chains": [{"iteration": st.iteration, "drift_ready": st.drift_ready,
                         "rng": st.rng.bit_generator.state} for st in states],
         }
         arrays = {
@@ -91,7 +91,7 @@ class Checkpoint:
             st.adapt[:] = z["adapt"][c]
             st.pooled[:] = z["pooled"][c]
             st.iteration = meta["chains"][c]["iteration"]
-            st.carried_ready = meta["chains"][c]["carried_ready"]
+            st.drift_ready = meta["chains"][c]["drift_ready"]
             st.rng.bit_generator.state = meta["chains"][c]["rng"]
         # A finished run resumed with more draws re-enters its sampling segment, the last.
         schedule.segment = min(meta["segment"], len(schedule.segments) - 1)

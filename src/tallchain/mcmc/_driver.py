@@ -19,6 +19,7 @@ import numpy as np
 
 from . import _transition as _chain
 from ._methods import LOG_RATIO_VARIANCE
+from ._proxy_drift import proxy_coordinates
 
 CHUNK = 256
 ROUND = 4 * CHUNK
@@ -37,7 +38,7 @@ class ChainState:
         self.pooled = np.zeros(2)
         self.rng = rng
         self.iteration = 0
-        self.carried_ready = False
+        self.drift_ready = False
 
     @property
     def arrays(self):
@@ -54,16 +55,18 @@ class Interrupted(Exception):
 class ChainJob:
     """What every chain of a run shares: the model, the method's codes, the row cache, the
     preconditioner and the tuning settings. When chains run as tasks it travels once per worker.
+``gradient_batch`` is the setting as the set-up resolved it (`SetUp.gradient_batch`).
 
     The kernel's argument groups of the model, row cache and preconditioner are built from them
     at each `advance` (views, no copies); a job keeps only the objects, so that a model on a
     memory-mapped file still pickles as its path.
     """
 
-    def __init__(self, model, settings, cache, pre):
+    def __init__(self, model, settings, cache, pre, gradient_batch=None):
         spec = settings.spec
         self.model, self.spec, self.cache, self.pre = model, spec, cache, pre
-        gradient = _chain.CARRIED if settings.gradient_batch == "carried" else spec.gradient
+        gradient = {"carried": _chain.CARRIED, "proxy": _chain.PROXY}.get(
+            gradient_batch or settings.gradient_batch, spec.gradient)
         self.codes = _chain.MethodCodes(spec.proposal, gradient, spec.ratio, spec.rule,
                                         LOG_RATIO_VARIANCE[settings.log_ratio_variance])
         # Penalty methods aim at the exact-method rate times the share that the noise lets
@@ -80,9 +83,12 @@ class ChainJob:
         """
         data, prior = self.model.glm_data, self.model.prior_arrays
         rows, mass, n_batch = self.cache.rows, self.pre.matrices, int(n_batch)
-        if self.codes.gradient == _chain.CARRIED and not st.carried_ready:
+        if self.codes.gradient == _chain.CARRIED and not st.drift_ready:
             _chain.init_carried_gradient(data, prior, rows, st.arrays, st.rng, n_batch)
-            st.carried_ready = True
+            st.drift_ready = True
+        elif self.codes.gradient == _chain.PROXY and not st.drift_ready:
+            st.cur_grad[:] = proxy_coordinates(self.pre, st.beta)
+            st.drift_ready = True
         while st.iteration < until and not (stop is not None and stop.is_set()):
             n = min(CHUNK, until - st.iteration)
             i0 = st.iteration

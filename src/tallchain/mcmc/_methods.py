@@ -68,6 +68,10 @@ BROKEN_METHODS = {
     "_mala-without-proposal-term": MethodSpec(
         "_mala-without-proposal-term", _chain.PROPOSAL_LANGEVIN_NO_C, _F, _F, acc.EXACT, 0.574,
         "MALA with the proposal-density term dropped (wrong; for power checks only)"),
+    "_penalty-mala-without-proposal-term": MethodSpec(
+        "_penalty-mala-without-proposal-term", _chain.PROPOSAL_LANGEVIN_NO_C, _B, _B,
+        acc.PENALTY_CD, 0.574,
+        "penalty-mala with the proposal-density term dropped (wrong; for power checks only)"),
 }
 
 LOG_RATIO_VARIANCE = {"same-batch": _chain.VAR_SAME, "independent-batch": _chain.VAR_INDEPENDENT,

@@ -146,6 +146,12 @@ def batch_gradient(data, prior, rows, beta, idx):
     return add_prior_grad(prior, beta, est)
 
 
+def proxy_drift_gradient(data, prior, rows, beta):
+    """grad S(beta) = grad log p(beta) + sum_i grad q_i(beta), row by row: the drift of
+    gradient_batch="proxy" (the kernel follows it in whitened coordinates, `_proxy_drift`)."""
+    return add_prior_grad(prior, beta, proxy_gradient_sum(rows, beta, data))
+
+
 def langevin_log_density(beta_to, beta_from, grad_from, h, mass):
     """log q(beta_to | beta_from) = -(1/2h) z'Mz, z = beta_to - beta_from - (h/2) M^{-1} g,
     up to a constant (Roberts & Tweedie 1996)."""
@@ -269,6 +275,8 @@ def _metropolis_test(data, prior, rows, mass, codes, tuning, chain, rng, prop, h
     if langevin and codes.gradient == T.FULL:
         chain["loglik_prop"], g = R.full_loglik_grad(data, prop, with_const=False)
         chain["grad_prop"], read = add_prior_grad(prior, prop, g), n_rows
+    elif langevin and codes.gradient == T.PROXY:
+        chain["grad_prop"] = proxy_drift_gradient(data, prior, rows, prop)
     elif langevin:
         if codes.gradient == T.CARRIED:
             chain["idx_grad"] = draw_batch(rng, n_rows, n)
@@ -311,6 +319,8 @@ def run_chain(data, prior, rows, mass, codes, tuning, chain, rng, first, n_iter)
             chain["idx_grad"] = draw_batch(rng, n_rows, n)
             chain["grad"] = batch_gradient(data, prior, rows, beta, chain["idx_grad"])
             read = n
+        elif langevin and codes.gradient == T.PROXY:
+            chain["grad"] = proxy_drift_gradient(data, prior, rows, beta)
         prop = propose(mass, beta, h, rng.standard_normal(d), chain["grad"] if langevin else None)
         ratio, log_alpha, accepted, nonfinite = no_ratio, 0.0, True, False
         if codes.rule != NONE:

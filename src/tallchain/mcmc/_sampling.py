@@ -134,7 +134,8 @@ def _runner(model, settings, run, setup):
     n_total = settings.warmup + settings.draws
     all_draws = np.zeros((settings.chains, n_total, model.n_coef))
     all_stats = np.full((settings.chains, n_total, _chain.N_STATS), np.nan)
-    job = _driver.ChainJob(model, settings, setup.cache, setup.preconditioner)
+    job = _driver.ChainJob(model, settings, setup.cache, setup.preconditioner,
+                           setup.gradient_batch)
     if run.scheduler in ("threads", "serial"):
         return Runner(job, all_draws, all_stats, run.progress,
                       run.parallel and run.scheduler == "threads")
@@ -160,6 +161,7 @@ def _result(model, settings, setup, states, runner, schedule, timings):
         "batch_limited_by": schedule.limited_by,
         "acceptance_target": spec.acceptance_target if settings.adapts_step else None,
         "mass_matrix": setup.preconditioner.kind,
+        "gradient_batch": setup.gradient_batch if spec.langevin and spec.minibatch else None,
     }
     # Family parameters sampled on another scale (a log noise sd) are reported on their own.
     return SampleResult(

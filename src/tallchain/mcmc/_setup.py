@@ -12,7 +12,7 @@ import numpy as np
 
 from .._validation import check_seed, fail
 from ..posterior import (ControlVariateCache, cache_passes, control_variate_cache, find_mode,
-                         make_preconditioner)
+                         make_preconditioner, proxy_preconditioner)
 
 
 @dataclass
@@ -89,7 +89,7 @@ def chain_generators(seed, n):
 class SetUp:
     """The full-data work of one run: Laplace approximation (None when the settings need no
     mode), preconditioner, row cache, starting points (chains, n_coef) and first step size;
-    ``parts`` times the mode and the caches and counts their full-data passes (none when a
+    ``gradient_batch`` is the setting resolved ("auto" becomes "proxy" or "fresh"); ``parts`` times the mode and the caches and counts their full-data passes (none when a
     `Preparation` supplied them)."""
 
     laplace: object
@@ -97,6 +97,7 @@ class SetUp:
     cache: ControlVariateCache
     starts: np.ndarray
     first_step: float
+    gradient_batch: str = "fresh"
     parts: dict = field(default_factory=dict)
 
 
@@ -125,10 +126,28 @@ def set_up(model, settings, preparation, rng):
         cache = control_variate_cache(model, laplace.mode if order else None, order, known)
         parts["cache_passes"] = cache_passes(order, known)
     parts["mode_seconds"], parts["cache_seconds"] = t1 - t0, time.perf_counter() - t1
+    drift, pre = _drift(settings, model, cache, pre)
     starts = _starting_points(settings, model, laplace, rng)
     step = (_default_step(spec, pre, laplace, model.n_coef) if settings.adapts_step
             else settings.step_size)
-    return SetUp(laplace, pre, cache, starts, step, parts)
+    return SetUp(laplace, pre, cache, starts, step, drift, parts)
+
+
+def _drift(settings, model, cache, pre):
+    """(gradient_batch resolved, preconditioner): "proxy" runs use the proxy's own precision
+    (`proxy_preconditioner`), which is the Laplace one at the mode up to rounding."""
+    choice = settings.gradient_batch
+    if choice == "auto":
+        choice = "proxy" if settings.proxy_drift_applies else "fresh"
+    if choice != "proxy":
+        return choice, pre
+    proxy = proxy_preconditioner(cache.rows, model.prior_arrays)
+    if proxy is not None:
+        return choice, proxy
+    if settings.gradient_batch == "proxy":
+        fail("gradient_batch", '"proxy": the proxy\'s precision P - H* at the mode is not '
+             "positive definite", 'use gradient_batch="fresh"')
+    return "fresh", pre
 
 
 def _starting_points(settings, model, laplace, rng):

@@ -10,6 +10,7 @@ mala           LANGEVIN    FULL        FULL        EXACT
 naive-mh       RW          -           BATCH       PLUGIN
 penalty-rwm    RW          -           BATCH       PENALTY_CD
 penalty-mala   LANGEVIN    BATCH       BATCH       PENALTY_CD
+  (proxy)      LANGEVIN    PROXY       BATCH       PENALTY_CD
 sgld           LANGEVIN    BATCH       -           NONE
 =============  ==========  ==========  ==========  ===========
 
@@ -41,7 +42,8 @@ ChainArrays    beta, cur_grad, cur_loglik, adapt, pooled      ``_driver.ChainSta
 
 An iteration reads: the gradient the proposal drifts along (cached, or `_batch_gradient` on a
 fresh batch), the proposal (`_propose`), the gradient at the proposal and the proposal-density
-term c (`_langevin_log_density` twice), the log target ratio on all rows or on a batch with
+term c (`_langevin_log_density` twice; with the proxy's drift, `propose_along_proxy` gives the
+proposal and c in whitened coordinates, reading no rows), the log target ratio on all rows or on a batch with
 its variance and penalty (`_noise`), the accept draw (`_accept`), the move (`_move`), the
 step-size adaptation (`_adapt_step_size`) and the record of the iteration's statistics
 (`_record`). `run_chain` calls the GLM and estimator kernels itself and the steps in between
@@ -57,6 +59,7 @@ import numpy as np
 from ._acceptance_kernels import NONE, log_accept_probability, noise_penalty
 from ._batches import draw_batch
 from ._factored_mass import langevin_log_density_factored, propose_factored
+from ._proxy_drift import propose_along_proxy, proxy_log_ratio
 from ._estimators import (
     add_prior_grad,
     batch_residual_diffs,
@@ -79,6 +82,10 @@ BATCH = 1
 # density uses a fresh batch at beta', which becomes the state's batch on acceptance, so the
 # gradient at the current point is reused (2 batches per step instead of 3).
 CARRIED = 2
+# The drift is the gradient of the control variates' quadratic proxy, with the proxy's
+# precision as mass matrix (`_proxy_drift`): no rows read for the proposal; the state's
+# gradient slot carries the whitened coordinates w.
+PROXY = 3
 VAR_SAME = 0
 VAR_INDEPENDENT = 1
 VAR_POOLED = 2
@@ -129,7 +136,7 @@ _DA_KAPPA = 0.75
 
 MethodCodes = namedtuple("MethodCodes", ["proposal", "gradient", "ratio", "rule", "variance"])
 MethodCodes.__doc__ = """A method as integer codes: ``proposal`` (PROPOSAL_*), ``gradient`` (FULL,
-BATCH or CARRIED), ``ratio`` (FULL or BATCH), ``rule`` (an acceptance rule code of
+BATCH, CARRIED or PROXY), ``ratio`` (FULL or BATCH), ``rule`` (an acceptance rule code of
 ``_acceptance_kernels``) and ``variance`` (VAR_*: where the log-ratio variance comes from)."""
 
 Tuning = namedtuple("Tuning", ["adapt_step", "n_warmup", "acceptance_target", "noise_sd_cap"])
@@ -210,6 +217,18 @@ def _langevin_log_density(beta_to, beta_from, grad_from, h, mass, z):
             s += m[a, b] * z[b]
         q += z[a] * s
     return -0.5 * q / h
+
+
+@jit
+def _proposal_term(proposal, proxy, c_proxy, beta, prop, grad, grad_prop, h, mass, z):
+    """c = log q(beta | beta') - log q(beta' | beta) (METHODS.md section 3): the proxy's
+    drift computed it with the proposal; 0 for a random walk or the power-check variant."""
+    if proposal != PROPOSAL_LANGEVIN:
+        return 0.0
+    if proxy:
+        return c_proxy
+    return (_langevin_log_density(beta, prop, grad_prop, h, mass, z)
+            - _langevin_log_density(prop, beta, grad, h, mass, z))
 
 
 @jit
@@ -307,7 +326,7 @@ def _move(codes, beta, prop, cur_grad, grad_prop, cur_loglik, loglik_prop):
         if codes.proposal != PROPOSAL_RW:
             for a in range(beta.shape[0]):
                 cur_grad[a] = grad_prop[a]
-    elif codes.gradient == CARRIED:
+    elif codes.gradient == CARRIED or codes.gradient == PROXY:
         for a in range(beta.shape[0]):
             cur_grad[a] = grad_prop[a]
 
@@ -396,14 +415,21 @@ def run_chain(data, prior, rows, mass, codes, tuning, state, rng, n_batch, first
         h = math.exp(adapt[AD_LOG_H])
         read = 0
         # the gradient the Langevin proposal drifts along: cached, or on a fresh batch S
+        proxy = codes.gradient == PROXY
+        c_proxy = 0.0
         if langevin and codes.gradient == BATCH:
             draw_batch(rng, n_rows, idx_grad)
             _difference(beta, beta_star, delta)
             _batch_gradient(data, prior, rows, beta, delta, idx_grad, tmp, work, grad)
             read += n_batch
-        elif langevin:
+        elif langevin and not proxy:
             _copy(cur_grad, grad)
-        _propose(mass, langevin, beta, grad, h, rng, xi, prop)
+        if proxy:
+            # grad_prop receives w'
+            c_proxy = propose_along_proxy(mass.mass_inv_chol, cur_grad, h, rng, grad_prop, xi,
+                                          beta, prop)
+        else:
+            _propose(mass, langevin, beta, grad, h, rng, xi, prop)
         _difference(beta, beta_star, delta)
         _difference(prop, beta_star, delta_prop)
         ratio = _LogRatio(math.nan, math.nan, 0.0, False, math.nan, math.nan)
@@ -415,17 +441,17 @@ def run_chain(data, prior, rows, mass, codes, tuning, state, rng, n_batch, first
                 loglik_prop = full_loglik_grad(data, prop, grad_prop, False, 0, n_rows)
                 add_prior_grad(prior, prop, grad_prop)
                 read += n_rows
-            elif langevin:
+            elif langevin and not proxy:
                 if codes.gradient == CARRIED:
                     draw_batch(rng, n_rows, idx_grad)
                 _batch_gradient(data, prior, rows, prop, delta_prop, idx_grad, tmp, work,
                                 grad_prop)
                 read += n_batch
-            if codes.proposal == PROPOSAL_LANGEVIN:
-                # c = log q(beta | beta') - log q(beta' | beta) (METHODS.md section 3)
-                c = (_langevin_log_density(beta, prop, grad_prop, h, mass, z)
-                     - _langevin_log_density(prop, beta, grad, h, mass, z))
-            prior_diff = prior_logpdf_diff(prior, prop, beta)
+            c = _proposal_term(codes.proposal, proxy, c_proxy, beta, prop, grad, grad_prop, h,
+                               mass, z)
+            # the proxy S = log prior + sum of q_i is quadratic in w: its difference is O(d)
+            prior_diff = (proxy_log_ratio(grad_prop, cur_grad) if proxy
+                          else prior_logpdf_diff(prior, prop, beta))
             if codes.ratio == FULL:
                 # exact; full-data MALA has the log-likelihood at beta' from its gradient pass
                 if not (langevin and codes.gradient == FULL):
@@ -440,7 +466,7 @@ def run_chain(data, prior, rows, mass, codes, tuning, state, rng, n_batch, first
                 read += n_batch
                 est, var, skew, kurt = scaled_sum_and_variance(diffs, n_rows)
                 value = prior_diff + est
-                if rows.order > 0:
+                if rows.order > 0 and not proxy:
                     value += proxy_loglik_diff_sum(rows, prop, beta)
                 if codes.variance == VAR_INDEPENDENT:
                     draw_batch(rng, n_rows, idx_ratio)

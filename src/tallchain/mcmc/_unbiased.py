@@ -69,9 +69,11 @@ def check_coupled_settings(settings):
     if method not in COUPLED_METHODS + _BROKEN:
         fail("method", f"{method} has no coupled version (it does not target the posterior "
              "exactly)", f"choose one of {', '.join(COUPLED_METHODS)}")
-    if settings.gradient_batch != "fresh":
+    if settings.gradient_batch == "carried":
         fail("gradient_batch", '"carried" is not coupled (the batch would be part of the '
              "state)", 'use gradient_batch="fresh"')
+    if settings.gradient_batch == "proxy":
+        fail("gradient_batch", '"proxy" is not coupled yet', 'use gradient_batch="fresh"')
     if settings.log_ratio_variance != "same-batch":
         fail("log_ratio_variance", f'"{settings.log_ratio_variance}" is not coupled',
              'use log_ratio_variance="same-batch"')
@@ -112,6 +114,8 @@ def coupled_setup(model, settings, preparation=None):
     """What every pair of a run shares, ``(job, plan, mode, chol of the Laplace covariance)``,
     after a tuned warmup run of ``settings`` (checked) has fixed the step and batch size
     (``plan.h``, ``plan.n_batch``); ``plan``'s lag, k, m and stop rule are set by the caller."""
+    # pairs run fresh gradient batches; "auto" would tune the step for the proxy's drift
+    settings = replace(settings, gradient_batch="fresh")
     prep = preparation or prepare(model, proxy_orders=(settings.proxy_order_used,))
     h, n_batch = _tuned(model, settings, prep)
     setup = set_up(model, settings, prep, np.random.default_rng(0))

@@ -56,7 +56,8 @@ class Preconditioner:
 
     ``factors`` is None for the dense kinds, else ``(scale, basis, powers)`` (see
     `MassMatrix`); the dense matrices are then kept for what runs once (references, tests)
-    and the kernel gets the factors only.
+    and the kernel gets the factors only. ``centre`` is the mode of the control variates'
+    quadratic proxy for `proxy_preconditioner`, else None.
     """
 
     kind: str
@@ -64,6 +65,7 @@ class Preconditioner:
     mass_inv: np.ndarray
     mass_inv_chol: np.ndarray
     factors: tuple | None = None
+    centre: np.ndarray | None = None
 
     @property
     def matrices(self):
@@ -126,3 +128,26 @@ def factored_preconditioner(kind, cov, rank):
     return Preconditioner(kind, np.ascontiguousarray(0.5 * (mass + mass.T)),
                           np.ascontiguousarray(0.5 * (mass_inv + mass_inv.T)),
                           np.ascontiguousarray(root), (scale, basis, powers))
+
+
+def proxy_preconditioner(rows, prior):
+    """The precision Lambda = P - H* of the quadratic proxy S = log p + sum_i q_i of a
+    second-order row cache ``rows`` (`RowCache`) and Gaussian prior ``prior`` (`PriorArrays`),
+    as a dense preconditioner whose ``centre`` is the proxy's mode
+    mu = beta* + Lambda^{-1} grad S(beta*), grad S(beta*) = g* - P (beta* - m).
+
+    Returns None when Lambda is not positive definite (beta* is then not a mode of S).
+    """
+    prec = np.asarray(prior.precision, dtype=float)
+    lam = prec - rows.H_star
+    lam = 0.5 * (lam + lam.T)
+    try:
+        mass_inv = spd_inverse(lam)
+        chol = np.linalg.cholesky(mass_inv)
+    except np.linalg.LinAlgError:
+        return None
+    grad = rows.g_star - prec @ (rows.beta_star - prior.mean)
+    centre = rows.beta_star + mass_inv @ grad
+    return Preconditioner("laplace", np.ascontiguousarray(lam),
+                          np.ascontiguousarray(0.5 * (mass_inv + mass_inv.T)),
+                          np.ascontiguousarray(np.tril(chol)), centre=centre)
