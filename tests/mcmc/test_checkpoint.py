@@ -7,7 +7,7 @@ import pytest
 
 import tallchain as tc
 from tallchain.exceptions import SamplingInterrupted
-from interrupts import interrupt_on_rounds
+from interrupts import interrupt_after, interrupt_on_rounds
 
 
 @pytest.fixture(scope="module")
@@ -55,8 +55,23 @@ def test_two_interrupts_and_two_resumes_equal_the_uninterrupted_run(model, tmp_p
     for key in full.stats:
         assert np.array_equal(done.stats[key], full.stats[key], equal_nan=True), key
     assert done.data_evaluations == full.data_evaluations
-    assert done.tuned["batch_size"] == full.tuned["batch_size"]
-    assert done.tuned["step_size"] == full.tuned["step_size"]
+    # what tuning chose, the batch rule that set the batch and the drift included
+    assert done.tuned == full.tuned
+
+
+def test_a_run_resumed_after_warmup_reports_what_tuning_chose(model, tmp_path, monkeypatch):
+    # Past warmup nothing rebatches, so the rule that set the batch must come from the
+    # checkpoint (it used to come back as None).
+    full = tc.sample(model, method="penalty-mala", **SETTINGS)
+    ckpt = tmp_path / "run.ckpt.npz"
+    with monkeypatch.context() as mp:
+        interrupt_after(mp, SETTINGS["warmup"] + 1)
+        with pytest.raises(SamplingInterrupted):
+            tc.sample(model, method="penalty-mala", checkpoint=ckpt, **SETTINGS)
+    done = tc.sample(model, method="penalty-mala", checkpoint=ckpt, resume=True, **SETTINGS)
+    assert np.array_equal(done.draws, full.draws)
+    assert full.tuned["batch_limited_by"] is not None
+    assert done.tuned == full.tuned
 
 
 def test_interrupted_result_keeps_completed_draws(model, tmp_path, monkeypatch):

@@ -10,7 +10,7 @@ import numpy as np
 from .._validation import fail
 from ..outputs import write_npz
 
-CHECKPOINT_VERSION = 5
+CHECKPOINT_VERSION = 5   # 5: drift_ready, the batch rule's outcome
 _ARRAYS = ("draws", "stats", "beta", "cur_grad", "cur_loglik", "adapt", "pooled")
 
 
@@ -38,6 +38,8 @@ class Checkpoint:
             "draws": self.draws,
             "segment": schedule.segment,
             "n_batch": schedule.n_batch,
+            "batch_limited_by": schedule.limited_by,
+            "batch_history": [[int(v) for v in h] for h in schedule.history],
             "chains": [{"iteration": st.iteration, "drift_ready": st.drift_ready,
                         "rng": st.rng.bit_generator.state} for st in states],
         }
@@ -96,6 +98,8 @@ class Checkpoint:
         # A finished run resumed with more draws re-enters its sampling segment, the last.
         schedule.segment = min(meta["segment"], len(schedule.segments) - 1)
         schedule.n_batch = meta["n_batch"]
+        schedule.limited_by = meta["batch_limited_by"]
+        schedule.history = [tuple(h) for h in meta["batch_history"]]
 
     def _read(self, with_arrays):
         """The metadata and (optionally) every array, read whole; a file that cannot be read
