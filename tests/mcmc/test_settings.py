@@ -15,6 +15,7 @@ import pytest
 import tallchain as tc
 from tallchain.app import _config
 from tallchain.mcmc import RunOptions, SamplerSettings, _setup
+from tallchain.mcmc._tables import run_header
 
 
 @pytest.fixture(scope="module")
@@ -218,3 +219,5 @@ def test_auto_gradient_batch_is_the_proxy_drift_where_it_applies(model, settings
     # one batch per step with the proxy's drift, three with fresh gradient batches
     reads = {"proxy": 32, "fresh": 96, "carried": 64}[resolved]
     assert np.all(r.stats["rows_read"] == reads)
+    # and the run's header line says when the proxy's drift ran
+    assert ("drift along the control variates' proxy" in run_header(r)) == (resolved == "proxy")

@@ -54,7 +54,7 @@ def coefficient_table(summary):
 
 def run_header(result):
     """One line: method, chains x draws after warmup, rows, batch size (with the bound that
-    set an "auto" batch and the penalty's error bound)."""
+    set an "auto" batch and the penalty's error bound), and the proxy's drift when it ran."""
     n_batch = result.tuned["batch_size"]
     batch = f", batch size {n_batch}" if n_batch else ""
     if n_batch and result.tuned.get("batch_limited_by"):
@@ -62,6 +62,8 @@ def run_header(result):
     err = result.penalty_error_bound
     if math.isfinite(err):
         batch += f", penalty error bound {err:.2g}"
+    if result.tuned.get("gradient_batch") == "proxy":
+        batch += ", drift along the control variates' proxy"
     return (f"{result.method}: {result.n_chains} chains x {result.n_draws} draws after "
             f"{result.settings.warmup} warmup, N = {result.n_rows:,} rows{batch}")
 
