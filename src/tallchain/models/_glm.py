@@ -162,14 +162,16 @@ class _GLM:
     @property
     def glm_data(self):
         """The data as every GLM kernel takes it: ``GLMData(family, X, y, offset, noise_sd,
-        intercept)``, built from the arrays the model keeps (no copy; a sparse design as its
-        `CSRArrays`)."""
+        intercept)``, built from the arrays the model keeps (read-only views, no copy; a sparse
+        design as its `CSRArrays`)."""
         X = self.X.kernel_form() if is_csr_design(self.X) else self.X
-        return _kernels.GLMData(self.family, X, self.y, self.offset,
+        view = _kernels.kernel_view
+        return _kernels.GLMData(self.family, view(X), view(self.y), view(self.offset),
                                 1.0 if self.noise_sd is None else self.noise_sd,
                                 int(self.add_intercept), len(self.family_param_names),
-                                _kernels.NO_TRIALS if self.trials is None else self.trials,
-                                _kernels.NO_WEIGHTS if self.weights is None else self.weights)
+                                _kernels.NO_TRIALS if self.trials is None else view(self.trials),
+                                _kernels.NO_WEIGHTS if self.weights is None
+                                else view(self.weights))
 
     @property
     def prior_arrays(self):

@@ -41,6 +41,21 @@ NO_TRIALS = np.ones(1)
 NO_TRIALS.flags.writeable = False
 NO_WEIGHTS = NO_TRIALS
 
+
+def kernel_view(a):
+    """A read-only view of ``a`` (an array, or a `CSRArrays` part by part), no copy.
+
+    numba types a read-only array apart from a writable one and compiles every kernel again
+    for each mix of flags in the groups it is given. The data and the row cache reach the
+    kernels read-only whatever the caller's arrays are (the placeholders above are read-only
+    too), so the kernels compile once per dtype and storage, not per flag combination.
+    """
+    if hasattr(a, "_fields"):   # CSRArrays: data, indices, indptr, shape
+        return type(a)(*(kernel_view(p) if isinstance(p, np.ndarray) else p for p in a))
+    v = a.view()
+    v.flags.writeable = False
+    return v
+
 GLMData = namedtuple("GLMData", ["family", "X", "y", "offset", "noise_sd", "intercept",
                                  "n_family", "trials", "weights"],
                      defaults=(0, NO_TRIALS, NO_WEIGHTS))

@@ -6,6 +6,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..models import _passes
+from ..models._kernels import kernel_view
 
 RowCache = namedtuple("RowCache", ["order", "beta_star", "aux", "g_star", "H_star"])
 RowCache.__doc__ = """The row cache and proxy sums as the estimator kernels take them.
@@ -49,8 +50,10 @@ class ControlVariateCache:
 
     @property
     def rows(self):
-        """The cache as the kernels take it: ``RowCache(order, beta_star, aux, g_star, H_star)``."""
-        return RowCache(self.order, self.beta_star, self.aux, self.g_star, self.H_star)
+        """The cache as the kernels take it: ``RowCache(order, beta_star, aux, g_star, H_star)``,
+        read-only views (`models.kernel_view`)."""
+        return RowCache(self.order, *(kernel_view(a) for a in (self.beta_star, self.aux,
+                                                               self.g_star, self.H_star)))
 
 
 def row_cache(data, beta_star):

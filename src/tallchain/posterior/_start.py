@@ -14,6 +14,7 @@ import numpy as np
 from ..data import is_csr_design
 from ..exceptions import ModeNotFoundError
 from ..models import _passes
+from ..models._kernels import kernel_view
 
 # Rows of the subsample, and the fewest rows a model needs for it to be worth a start
 # (below SUBSAMPLE_ROWS * MIN_RATIO rows the full passes are cheap anyway).
@@ -21,19 +22,6 @@ SUBSAMPLE_ROWS = 100_000
 MIN_RATIO = 4
 # The rows are drawn from a fixed seed: the mode, and so the draws, do not depend on chance.
 _SEED = 20261203
-
-
-def _like(full, part):
-    """``part`` made read-only where ``full`` is: numba types read-only and writable arrays
-    apart, and a new type would compile every pass kernel again (about a gigabyte of compiler
-    memory, seconds of time) for the subsample alone. A CSR design's arrays, likewise."""
-    if isinstance(full, np.ndarray):
-        if not full.flags.writeable and part.flags.writeable:
-            part.setflags(write=False)     # a fresh array (fancy indexing): no one else writes
-        return part
-    if hasattr(full, "_fields") and hasattr(part, "_fields"):   # CSRArrays
-        return type(part)(*(_like(f, q) for f, q in zip(full, part)))
-    return part
 
 
 class _Subsample:
@@ -47,10 +35,11 @@ class _Subsample:
                    else data.weights[rows] * (n / m))
         X = (model.X.take_rows(rows).kernel_form() if is_csr_design(model.X)
              else np.ascontiguousarray(model.X[rows]))
+        # read-only, as the full data's (`kernel_view`): no pass kernel compiles again
+        view = kernel_view
         self.glm_data = data._replace(
-            X=_like(data.X, X), y=_like(data.y, data.y[rows]),
-            offset=_like(data.offset, per_row(data.offset)),
-            trials=_like(data.trials, per_row(data.trials)), weights=_like(data.weights, weights))
+            X=view(X), y=view(data.y[rows]), offset=view(per_row(data.offset)),
+            trials=view(per_row(data.trials)), weights=view(weights))
         self.X = self.glm_data.X
         for key in ("prior_mean", "prior_prec", "n_beta", "n_coef", "coef_names",
                     "feature_names"):
