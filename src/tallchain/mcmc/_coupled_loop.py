@@ -8,7 +8,8 @@ later step, so they stay equal; after tau only X moves (or, for the tests, both 
 with ``Plan.keep_met``).
 
 The steps of one chain are those of the single-chain loop (`_transition`): the minibatch
-gradient, the Langevin proposal density, the move and its caches; the estimators of the
+gradient (or the proxy's gradient, in its O(d^2) form, for gradient_batch="proxy"), the Langevin
+proposal density, the move and its caches; the estimators of the
 log-ratio and its variance (`_estimators`); the acceptance rules (`_acceptance_kernels`). The
 log-ratio variance is the batch's own (``log_ratio_variance="same-batch"``).
 
@@ -29,8 +30,8 @@ from ._acceptance_kernels import log_accept_probability, noise_penalty
 from ._batches import draw_batch
 from ._coupling import independent_proposal, reflection_maximal
 from ._estimators import (add_prior_grad, batch_residual_diffs, prior_logpdf_diff,
-                          proxy_loglik_diff_sum, scaled_sum_and_variance)
-from ._transition import (BATCH, FULL, PROPOSAL_LANGEVIN, PROPOSAL_RW, _batch_gradient,
+                          proxy_gradient_sum, proxy_loglik_diff_sum, scaled_sum_and_variance)
+from ._transition import (BATCH, FULL, PROPOSAL_LANGEVIN, PROPOSAL_RW, PROXY, _batch_gradient,
                           _buffers, _copy, _difference, _langevin_log_density, _move)
 from ..models._kernels import full_loglik, full_loglik_grad, jit
 
@@ -61,6 +62,15 @@ def _mean_point(langevin, beta, grad, h, mass, mu):
 
 
 @jit
+def _proxy_gradient(prior, rows, beta, out):
+    """grad S(beta) = grad log p(beta) + g* + H* (beta - beta*): the proxy's drift
+    (`_proxy_drift`), here in the general form: the pair's reflection coupling works in
+    beta."""
+    proxy_gradient_sum(rows, beta, out)
+    add_prior_grad(prior, beta, out)
+
+
+@jit
 def _drift_gradient(data, prior, rows, codes, state, buf, idx_grad):
     """The gradient the proposal drifts along, into buf.grad: the cached full-data one, or the
     batch idx_grad's at the current point."""
@@ -70,6 +80,8 @@ def _drift_gradient(data, prior, rows, codes, state, buf, idx_grad):
         _difference(state.beta, rows.beta_star, buf.delta)
         _batch_gradient(data, prior, rows, state.beta, buf.delta, idx_grad, buf.tmp, buf.work,
                         buf.grad)
+    elif codes.gradient == PROXY:
+        _proxy_gradient(prior, rows, state.beta, buf.grad)
     else:
         _copy(state.cur_grad, buf.grad)
 
@@ -88,6 +100,8 @@ def _finish(data, prior, rows, mass, codes, plan, state, buf, shared, log_u):
     if langevin and codes.gradient == FULL:
         loglik_prop = full_loglik_grad(data, prop, grad_prop, False, 0, n_rows)
         add_prior_grad(prior, prop, grad_prop)
+    elif langevin and codes.gradient == PROXY:
+        _proxy_gradient(prior, rows, prop, grad_prop)
     elif langevin:
         _batch_gradient(data, prior, rows, prop, buf.delta_prop, shared.idx_grad, buf.tmp,
                         buf.work, grad_prop)

@@ -28,7 +28,7 @@ from ._setup import prepare, set_up, spawn_seeds
 
 # Methods that target the posterior and have a coupled loop (and the power checks' variant).
 COUPLED_METHODS = ("mala", "rwm", "penalty-mala", "penalty-rwm")
-_BROKEN = ("_mala-without-proposal-term",)
+_BROKEN = ("_mala-without-proposal-term", "_penalty-mala-without-proposal-term")
 # The tuning run's defaults, where estimate() is given no SamplerSettings: only its warmup is
 # used (the step and batch size it ends with).
 _TUNING_DEFAULTS = {"chains": 2, "warmup": 500, "draws": 100}
@@ -72,8 +72,6 @@ def check_coupled_settings(settings):
     if settings.gradient_batch == "carried":
         fail("gradient_batch", '"carried" is not coupled (the batch would be part of the '
              "state)", 'use gradient_batch="fresh"')
-    if settings.gradient_batch == "proxy":
-        fail("gradient_batch", '"proxy" is not coupled yet', 'use gradient_batch="fresh"')
     if settings.log_ratio_variance != "same-batch":
         fail("log_ratio_variance", f'"{settings.log_ratio_variance}" is not coupled',
              'use log_ratio_variance="same-batch"')
@@ -114,12 +112,10 @@ def coupled_setup(model, settings, preparation=None):
     """What every pair of a run shares, ``(job, plan, mode, chol of the Laplace covariance)``,
     after a tuned warmup run of ``settings`` (checked) has fixed the step and batch size
     (``plan.h``, ``plan.n_batch``); ``plan``'s lag, k, m and stop rule are set by the caller."""
-    # pairs run fresh gradient batches; "auto" would tune the step for the proxy's drift
-    settings = replace(settings, gradient_batch="fresh")
     prep = preparation or prepare(model, proxy_orders=(settings.proxy_order_used,))
     h, n_batch = _tuned(model, settings, prep)
     setup = set_up(model, settings, prep, np.random.default_rng(0))
-    job = ChainJob(model, settings, setup.cache, setup.preconditioner)
+    job = ChainJob(model, settings, setup.cache, setup.preconditioner, setup.gradient_batch)
     plan = _pair.Plan(h, n_batch, 1, 0, 0, 1, False)
     lap = prep.laplace
     return job, plan, lap.mode, np.linalg.cholesky(lap.cov)
