@@ -24,15 +24,16 @@ seed = 3
 """
 
 
-def _config(folder, rng, *, n=400, data_extra="", model_extra=""):
+def _config(folder, rng, *, n=400, data_extra=""):
+    """A logistic regression of 400 invented rows, as X.npy and y.npy beside run.toml."""
     X = rng.standard_normal((n, 2))
-    y = (rng.random(n) < 1.0 / (1.0 + np.exp(-(0.3 + X @ [1.0, -0.5])))).astype(float)
-    np.save(folder / "X.npy", X)
-    np.save(folder / "y.npy", y)
-    path = folder / "run.toml"
-    path.write_text(f'[data]\nx = "X.npy"\ny = "y.npy"\n{data_extra}\n'
-                    f'[model]\nfamily = "logistic"\n{model_extra}\n{FAST}')
-    return path
+    arrays = {"X": X, "y": (rng.random(n) < 1.0 / (1.0 + np.exp(-(0.3 + X @ [1.0, -0.5]))))}
+    for name, values in arrays.items():
+        np.save(folder / f"{name}.npy", values.astype(float))
+    lines = ["[data]", 'x = "X.npy"', 'y = "y.npy"', data_extra, "[model]",
+             'family = "logistic"', FAST]
+    (folder / "run.toml").write_text("\n".join(lines))
+    return folder / "run.toml"
 
 
 def _run(capsys, config, out, *extra):
