@@ -59,7 +59,9 @@ def test_second_run_reads_the_store_and_draws_the_same(tmp_path, rng, capsys):
     assert first["setup_cache_passes"] > 0
     assert second["setup_store"] == "loaded"
     assert second["setup_mode_passes"] == 0 and second["setup_cache_passes"] == 0
-    assert "stored for later runs" in text1 and "from the store of an earlier run" in text2
+    entry = store / _entries(store)[0]
+    assert f"mode and caches stored for later runs of this data and model in {entry}" in text1
+    assert f"mode and caches read from an earlier run's store: {entry}" in text2
     np.testing.assert_array_equal(draws2, draws1)   # bitwise: same code, same seed
 
 
