@@ -121,8 +121,8 @@ def run_config(config, *, progress=False, resume=False, scheduler=None, workers=
                             connect_seconds=config.compute.get("connect_seconds",
                                                                CONNECT_SECONDS))
     except SamplingInterrupted as stop:
-        partial = _to_original_scale(_with_store(stop.result, stored), dataset, load_seconds, model.n_beta,
-                                     time.perf_counter() - t0)
+        partial = _to_original_scale(_with_store(stop.result, stored), dataset, load_seconds,
+                                     model.n_beta, time.perf_counter() - t0)
         save_result(partial, config.output_dir, interval=config.interval)
         raise KeyboardInterrupt(
             f"{partial.completed_draws} of {config.sampler.draws} draws per chain kept in "

@@ -90,7 +90,8 @@ def load_or_prepare(model, folder, *, proxy_orders=(2, 0)):
     else:
         found = prepare(model, proxy_orders=proxy_orders)
         store = "written" if _write(found, path, made_for) else "not written"
-    return found, {"store": store, "entry": str(path), "seconds": time.perf_counter() - t0}
+    seconds = time.perf_counter() - t0
+    return found, {"store": store, "entry": str(path.absolute()), "seconds": seconds}
 
 
 def clear_preparations(folder):
