@@ -102,7 +102,8 @@ def test_what_the_key_covers(rng, tmp_path):
     assert len(clear_preparations(tmp_path)) == 5 and _entries(tmp_path) == []
 
 
-@pytest.mark.parametrize("damage", ["truncated aux", "flipped byte", "bad meta", "no array"])
+@pytest.mark.parametrize("damage", ["truncated aux", "flipped byte", "bad meta", "no meta",
+                                    "no array"])
 def test_a_damaged_entry_is_made_again_with_a_warning(rng, tmp_path, damage):
     model = _logistic(rng)
     made, record = load_or_prepare(model, tmp_path)
@@ -117,6 +118,8 @@ def test_a_damaged_entry_is_made_again_with_a_warning(rng, tmp_path, damage):
         path.write_bytes(bytes(raw))
     elif damage == "bad meta":
         (entry / "meta.json").write_text("{not json")
+    elif damage == "no meta":
+        (entry / "meta.json").unlink()
     else:
         (entry / "cov.npy").unlink()
     with pytest.warns(DataWarning, match="ignored the stored set-up"):

@@ -134,7 +134,6 @@ def _write(prep, path, made_for):
             "arrays": {name: {"shape": list(a.shape), "crc32": _crc(a)}
                        for name, a in arrays.items()}}
     try:
-        shutil.rmtree(path, ignore_errors=True)   # a bad entry being replaced
         tmp.mkdir(parents=True, exist_ok=True)
         for name, a in arrays.items():
             np.save(tmp / f"{name}.npy", a, allow_pickle=False)
@@ -155,12 +154,12 @@ def _write(prep, path, made_for):
 def _open(path, made_for, model):
     """The `Preparation` stored at ``path``; None when there is none, or (with a
     `DataWarning`) when it cannot be read or does not match ``made_for``."""
-    meta_file = path / "meta.json"
-    if not meta_file.is_file():
+    if not path.exists():
         return None
     try:
-        return _read(path, json.loads(meta_file.read_text()), made_for, model)
+        return _read(path, json.loads((path / "meta.json").read_text()), made_for, model)
     except _BAD_ENTRY as exc:
+        shutil.rmtree(path, ignore_errors=True)   # so that the rename can put a good one there
         warnings.warn(f"ignored the stored set-up {path} ({_reason(exc)}); it is made again and "
                       "rewritten", DataWarning, stacklevel=3)
         return None
