@@ -13,6 +13,8 @@ import numpy as np
 import pytest
 
 from tallchain.app import _cli as cli
+from tallchain.app import _service
+from tallchain.app._config import load_config
 
 FAST = """\
 [sampler]
@@ -121,3 +123,17 @@ def test_reuse_setup_false_and_cache_dir(tmp_path, rng, capsys):
     _run(capsys, config, tmp_path / "b")
     assert len(_entries(tmp_path / "elsewhere")) == 1
     assert not (tmp_path / ".tallchain-cache").exists()
+
+
+def test_a_resume_only_reads_the_store(tmp_path, rng, capsys):
+    # A resume must refuse a changed problem before the mode is searched for (sample checks
+    # the checkpoint first): it reads an entry but never makes one.
+    config = load_config(_config(tmp_path, rng))
+    model, _ = _service.build_model(config)
+    assert _service.stored_setup(config, model, resume=True) is None
+    assert not (tmp_path / ".tallchain-cache").exists()
+    prep, record = _service.stored_setup(config, model)   # power: a fresh run makes one
+    assert record["store"] == "written"
+    again, record = _service.stored_setup(config, model, resume=True)
+    assert record["store"] == "loaded"
+    np.testing.assert_array_equal(again.laplace.mode, prep.laplace.mode)

@@ -112,7 +112,7 @@ def run_config(config, *, progress=False, resume=False, scheduler=None, workers=
     checkpoint = Path(config.output_dir) / CHECKPOINT_NAME
     try:
         with config.named_fields():
-            stored = stored_setup(config, model)
+            stored = stored_setup(config, model, resume=resume)
             result = sample(model, config.sampler, progress=progress, checkpoint=checkpoint,
                             preparation=None if stored is None else stored[0],
                             resume=resume, checkpoint_extra=_data_identity(config, dataset),
@@ -155,18 +155,20 @@ def setup_store_folder(config):
     return cache_folder((d.table if d.table is not None else d.x).path, d.cache_dir)
 
 
-def stored_setup(config, model):
+def stored_setup(config, model, *, resume=False):
     """``(preparation, record)`` of `load_or_prepare` for a run of ``config`` on ``model``, or
-    None when the run needs no mode (nothing costly to keep) or the store is turned off. The
-    settings are checked against the model first, so a bad one is still refused before any
-    pass over the data."""
+    None when the run needs no mode (nothing costly to keep), the store is turned off, or a
+    ``resume`` finds no entry. The settings are checked against the model first, so a bad
+    one is still refused before any pass over the data; a resume only reads the store, so
+    that `sample` refuses a changed problem before the mode is searched for."""
     settings = config.sampler
     folder = setup_store_folder(config)
     if folder is None or not settings.needs_laplace:
         return None
     settings.check_against(model)
     orders = (settings.proxy_order_used,) if settings.spec.minibatch else ()
-    return load_or_prepare(model, folder, proxy_orders=orders)
+    stored = load_or_prepare(model, folder, proxy_orders=orders, make=not resume)
+    return None if stored[0] is None else stored
 
 
 def _with_store(result, stored):

@@ -46,7 +46,7 @@ def entry_for(model, folder, proxy_orders=(2, 0)):
     return Path(folder) / f"{PREFIX}{key}", made_for
 
 
-def load_or_prepare(model, folder, *, proxy_orders=(2, 0)):
+def load_or_prepare(model, folder, *, proxy_orders=(2, 0), make=True):
     """The `Preparation` of ``model``: read from the store in ``folder``, else made and stored.
 
     Parameters
@@ -58,16 +58,19 @@ def load_or_prepare(model, folder, *, proxy_orders=(2, 0)):
         folder (``[data] cache_dir``, or ``.tallchain-cache`` beside the data file).
     proxy_orders : sequence of int, default=(2, 0)
         Orders of the Taylor proxies to cache, as in `prepare`.
+    make : bool, default=True
+        False: only read the store; nothing is made or written when it holds no entry.
 
     Returns
     -------
-    preparation : Preparation
+    preparation : Preparation or None
         Pass it to `sample` (``preparation=...``). Read from the store, its ``parts`` count
-        no full-data pass, and its row caches are read-only memory maps.
+        no full-data pass, and its row caches are read-only memory maps. None only with
+        ``make=False`` and no usable entry.
     record : dict
-        ``store``: ``"loaded"``, ``"written"`` or ``"not written"`` (the folder could not be
-        written; a `DataWarning` says why); ``entry``: the entry's folder; ``seconds``: the
-        time spent, fingerprint included.
+        ``store``: ``"loaded"``, ``"written"``, ``"not written"`` (the folder could not be
+        written; a `DataWarning` says why) or ``"absent"`` (``make=False``); ``entry``: the
+        entry's folder; ``seconds``: the time spent, fingerprint included.
 
     Warns
     -----
@@ -87,6 +90,8 @@ def load_or_prepare(model, folder, *, proxy_orders=(2, 0)):
     found = _open(path, made_for, model)
     if found is not None:
         store = "loaded"
+    elif not make:
+        store = "absent"
     else:
         found = prepare(model, proxy_orders=proxy_orders)
         store = "written" if _write(found, path, made_for) else "not written"
