@@ -81,6 +81,7 @@ class DataSettings:
     cache_dir: Path | None = None
     trials: DataSource | str | None = None
     weights: DataSource | str | None = None
+    reuse_setup: bool = True
 
 
 #: ``[data]`` keys of per-row values: array sources beside x and y, or column names of a table.
@@ -377,7 +378,7 @@ def _data_settings(table, formula, base_dir):
         check_folder("data.cache_dir", cache_dir)
     common = {"add_intercept": table.get("add_intercept", True),
               "standardize": table.get("standardize", False), "missing": missing,
-              "cache_dir": cache_dir}
+              "cache_dir": cache_dir, "reuse_setup": table.get("reuse_setup", True)}
     if "table" in table:
         return _table_settings(table, formula, base_dir, common)
     if formula is not None:

@@ -24,9 +24,16 @@ def print_summary(result, summary, *, file=None, standardized=False):
           f"caches {t.get('setup_cache_seconds', 0.0):.2f} s, "
           f"{t.get('setup_mode_passes', 0) + t.get('setup_cache_passes', 0)} data passes), "
           f"sampling {t['sampling_seconds']:.2f} s", file=out)
+    if t.get("setup_store") in _STORE_NOTES:
+        print(f"{_STORE_NOTES[t['setup_store']]} {t['setup_store_entry']}", file=out)
     print(f"ESS/s {r['ess_per_second']:.4g} sampling, {r['ess_per_total_second']:.4g} end to "
           f"end (smallest bulk ESS {r['ess_bulk_min']:.0f}), "
           f"ESS per data pass {r['ess_per_data_pass']:.3g}", file=out)
+
+
+# How the set-up line tells where the mode and caches came from (`_service.stored_setup`).
+_STORE_NOTES = {"loaded": "mode and caches read from an earlier run's store:",
+                "written": "mode and caches stored for later runs of this data and model in"}
 
 
 def print_outputs(directory):

@@ -8,10 +8,10 @@ from pathlib import Path
 import numpy as np
 
 from .._addresses import CONNECT_SECONDS, looks_like_address, probe_address
-from ..data import load_data
+from ..data import cache_folder, load_data
 from ..executors import check_scheduler
 from ..exceptions import SamplingInterrupted
-from ..mcmc import sample
+from ..mcmc import load_or_prepare, sample
 from ..models import FAMILIES
 from ..outputs import check_writable, removed_if_left_empty, save_result
 from ._config import named_fields
@@ -112,21 +112,23 @@ def run_config(config, *, progress=False, resume=False, scheduler=None, workers=
     checkpoint = Path(config.output_dir) / CHECKPOINT_NAME
     try:
         with config.named_fields():
+            stored = stored_setup(config, model, resume=resume)
             result = sample(model, config.sampler, progress=progress, checkpoint=checkpoint,
+                            preparation=None if stored is None else stored[0],
                             resume=resume, checkpoint_extra=_data_identity(config, dataset),
                             scheduler=scheduler,
                             workers=option_or(workers, config.compute.get("workers")),
                             connect_seconds=config.compute.get("connect_seconds",
                                                                CONNECT_SECONDS))
     except SamplingInterrupted as stop:
-        partial = _to_original_scale(stop.result, dataset, load_seconds, model.n_beta,
-                                     time.perf_counter() - t0)
+        partial = _to_original_scale(_with_store(stop.result, stored), dataset, load_seconds,
+                                     model.n_beta, time.perf_counter() - t0)
         save_result(partial, config.output_dir, interval=config.interval)
         raise KeyboardInterrupt(
             f"{partial.completed_draws} of {config.sampler.draws} draws per chain kept in "
             f"{Path(config.output_dir) / 'posterior.nc'} (status interrupted); continue with: "
             f"{hint}") from None
-    result = _to_original_scale(result, dataset, load_seconds, model.n_beta,
+    result = _to_original_scale(_with_store(result, stored), dataset, load_seconds, model.n_beta,
                                 time.perf_counter() - t0)
     extra = {"config": None if config.path is None else str(config.path.absolute()),
              "family": config.model.family, "interval": config.interval,
@@ -141,6 +143,48 @@ def run_config(config, *, progress=False, resume=False, scheduler=None, workers=
             f"{hint}") from None
     # The checkpoint stays: --extend continues the finished run from it.
     return result, summary, dataset
+
+
+def setup_store_folder(config):
+    """Where ``run`` keeps its set-up for later runs (`tallchain.mcmc.load_or_prepare`): the
+    data's cache folder (``[data] cache_dir``, or ``.tallchain-cache`` beside the table or x
+    file); None with ``[data] reuse_setup = false``."""
+    d = config.data
+    if not d.reuse_setup:
+        return None
+    return cache_folder((d.table if d.table is not None else d.x).path, d.cache_dir)
+
+
+def stored_setup(config, model, *, resume=False):
+    """``(preparation, record)`` of `load_or_prepare` for a run of ``config`` on ``model``, or
+    None when the run needs no mode (nothing costly to keep), the store is turned off, or a
+    ``resume`` finds no entry. The settings are checked against the model first, so a bad
+    one is still refused before any pass over the data; a resume only reads the store, so
+    that `sample` refuses a changed problem before the mode is searched for."""
+    settings = config.sampler
+    folder = setup_store_folder(config)
+    if folder is None or not settings.needs_laplace:
+        return None
+    settings.check_against(model)
+    orders = (settings.proxy_order_used,) if settings.spec.minibatch else ()
+    stored = load_or_prepare(model, folder, proxy_orders=orders, make=not resume)
+    return None if stored[0] is None else stored
+
+
+def _with_store(result, stored):
+    """``result`` with the set-up of a `stored_setup` counted in: its time in
+    ``setup_seconds``, its passes (none when loaded) in ``setup_parts``, and ``store``
+    ("loaded", "written" or "not written") with the entry and its seconds."""
+    if stored is None:
+        return result
+    prep, record = stored
+    parts = dict(result.setup_parts)
+    for key, value in prep.parts.items():
+        parts[key] = parts.get(key, 0) + value
+    parts.update(store=record["store"], store_seconds=record["seconds"],
+                 store_entry=record["entry"])
+    return dataclasses.replace(result, setup_parts=parts,
+                               setup_seconds=result.setup_seconds + record["seconds"])
 
 
 def _output_label(config):

@@ -6,7 +6,7 @@ a memory-mapped cache in one documented folder, and every pass over the columns 
 block.
 """
 
-from ._cache import CACHE_FOLDER
+from ._cache import CACHE_FOLDER, cache_folder
 from ._columns import Standardization, check_columns, column_stats, standardize_columns
 from ._dataset import Dataset, load_data
 from ._encoding import Encoding
@@ -19,7 +19,7 @@ from ._sparse import (SPARSE_MAX_DENSITY, CSRArrays, CSRDesign, design_blocks, i
 from ._tables import csv_header, is_table_object, table_column_names, table_matrix
 
 __all__ = ["ARRAY_SUFFIXES", "CACHE_FOLDER", "MISSING_CHOICES", "SPARSE_MAX_DENSITY",
-           "TABLE_SUFFIXES", "CSRArrays", "CSRDesign", "DataSource", "design_blocks",
+           "TABLE_SUFFIXES", "CSRArrays", "cache_folder", "CSRDesign", "DataSource", "design_blocks",
            "is_csr_design",
            "is_sparse_matrix",
            "Dataset", "Encoding", "Standardization", "TableData", "check_columns",

@@ -9,6 +9,7 @@ from ._laplace_gap import ECDF_QUANTILES, KS_CRITICAL, ecdf_ess
 from ._methods import METHODS
 from ._predict import predict_blocks, prediction_columns, rows_per_block
 from ._paired import sample_pair
+from ._prepared_store import clear_preparations, load_or_prepare
 from ._result import SampleResult, to_arviz
 from ._sampling import sample
 from ._settings import RunOptions, SamplerSettings, settings_from
@@ -19,6 +20,7 @@ from ._unbiased import check_coupled_settings, check_estimate_arguments, estimat
 
 __all__ = ["sample", "sample_pair", "estimate", "EstimateResult", "SamplerSettings",
            "RunOptions", "settings_from", "prepare", "Preparation", "spawn_seeds",
+           "load_or_prepare", "clear_preparations",
            "SampleResult", "to_arviz", "Summary", "summarize",
            "ess_bulk", "METHODS", "accept_probability", "mean_acceptance",
            "ceperley_dewing_series", "ceperley_dewing_closed_form", "ceperley_dewing_penalty",
