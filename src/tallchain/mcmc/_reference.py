@@ -245,7 +245,10 @@ def noise_penalty(rule, var, n_batch, var_is_known):
 def _batch_log_ratio(data, rows, codes, tuning, chain, rng, prop, it, prior_diff):
     """(log ratio, sd, penalty, fell back, skew, kurtosis, rows read) on a batch."""
     beta, star, n_rows, n = chain["beta"], rows.beta_star, np.shape(data.X)[0], chain["n_batch"]
-    diffs = batch_residual_diffs(data, rows, prop - star, beta - star, draw_batch(rng, n_rows, n))
+    idx = chain.pop("idx_ratio", None)
+    if idx is None:
+        idx = draw_batch(rng, n_rows, n)
+    diffs = batch_residual_diffs(data, rows, prop - star, beta - star, idx)
     est, var, skew, kurt = scaled_sum_and_variance(diffs, n_rows)
     value = prior_diff + est
     if rows.order > 0:
@@ -321,6 +324,8 @@ def run_chain(data, prior, rows, mass, codes, tuning, chain, rng, first, n_iter)
             read = n
         elif langevin and codes.gradient == T.PROXY:
             chain["grad"] = proxy_drift_gradient(data, prior, rows, beta)
+            # the kernel draws the log-ratio batch before the proposal (to prefetch its rows)
+            chain["idx_ratio"] = draw_batch(rng, n_rows, n)
         prop = propose(mass, beta, h, rng.standard_normal(d), chain["grad"] if langevin else None)
         ratio, log_alpha, accepted, nonfinite = no_ratio, 0.0, True, False
         if codes.rule != NONE:

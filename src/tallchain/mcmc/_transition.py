@@ -70,6 +70,7 @@ from ._estimators import (
     scaled_sum_and_variance,
 )
 from ..models._kernels import full_loglik, full_loglik_grad, jit
+from ..models._prefetch import prefetch_row_values, prefetch_rows
 
 PROPOSAL_RW = 0
 PROPOSAL_LANGEVIN = 1
@@ -425,9 +426,13 @@ def run_chain(data, prior, rows, mass, codes, tuning, state, rng, n_batch, first
         elif langevin and not proxy:
             _copy(cur_grad, grad)
         if proxy:
+            # the log-ratio batch first, so that its rows load while the proposal is computed
+            draw_batch(rng, n_rows, idx_ratio)
+            prefetch_rows(data.X, rows.aux, idx_ratio)
             # grad_prop receives w'
             c_proxy = propose_along_proxy(mass.mass_inv_chol, cur_grad, h, rng, grad_prop, xi,
                                           beta, prop)
+            prefetch_row_values(data.X, idx_ratio)
         else:
             _propose(mass, langevin, beta, grad, h, rng, xi, prop)
         _difference(beta, beta_star, delta)
@@ -461,7 +466,8 @@ def run_chain(data, prior, rows, mass, codes, tuning, state, rng, n_batch, first
                                   math.nan, math.nan)
             else:
                 # on a batch S2 independent of S, with its variance (METHODS.md sections 2, 4)
-                draw_batch(rng, n_rows, idx_ratio)
+                if not proxy:
+                    draw_batch(rng, n_rows, idx_ratio)
                 batch_residual_diffs(data, rows, delta_prop, delta, idx_ratio, diffs, work)
                 read += n_batch
                 est, var, skew, kurt = scaled_sum_and_variance(diffs, n_rows)
