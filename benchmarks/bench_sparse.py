@@ -58,21 +58,24 @@ def peak_rss():
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
 
 
-def make_data(n, rng):
-    """The one-hot CSR design (built without a dense intermediate) and a logistic response."""
-    level = rng.integers(0, LEVELS, size=(n, N_VARS), dtype=np.int32)
+def make_data(n, rng, n_vars=N_VARS, levels=LEVELS):
+    """The one-hot CSR design of ``n_vars`` categorical variables of ``levels`` levels (the
+    first of each is the baseline; built without a dense intermediate) and a logistic
+    response."""
+    width = n_vars * (levels - 1)
+    level = rng.integers(0, levels, size=(n, n_vars), dtype=np.int32)
     nz = level > 0
     counts = nz.sum(axis=1)
     indptr = np.zeros(n + 1, dtype=np.int64)
     np.cumsum(counts, out=indptr[1:])
-    cols = (np.arange(N_VARS, dtype=np.int32) * (LEVELS - 1))[None, :] + level - 1
+    cols = (np.arange(n_vars, dtype=np.int32) * (levels - 1))[None, :] + level - 1
     indices = cols[nz].astype(np.int32)   # row-major: sorted within each row
     del cols, nz
     data = np.ones(indices.shape[0])
-    effects = np.linspace(-0.8, 0.8, D)
+    effects = np.linspace(-0.8, 0.8, width)
     eta = -0.5 + np.add.reduceat(effects[indices], indptr[:-1]) * (counts > 0)
     y = (rng.random(n) < 1.0 / (1.0 + np.exp(-eta))).astype(float)
-    return CSRDesign(data, indices, indptr, (n, D)), y
+    return CSRDesign(data, indices, indptr, (n, width)), y
 
 
 def transition_cost(model, chains, draws, warmup):

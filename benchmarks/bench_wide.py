@@ -24,8 +24,9 @@ measures, side by side in one run:
   mode for its Laplace mass, and ESS / its ESS per second) over penalty-mala's whole time;
 * peak resident memory of the process (ru_maxrss, the largest so far) over the size of X.
 
-With --sparse the design is bench_sparse.py's one-hot CSR design instead (10 categorical
-variables of 11 levels, d = 101 coefficients, about 9.1 non-zeros a row; --dims is ignored) and
+With --sparse the design is bench_sparse.py's one-hot CSR design instead (by default 10
+categorical variables of 11 levels, d = 101 coefficients, about 9.1 non-zeros a row; --dims 10
+and 500 give 3 variables of 4 levels, d = 10, and 10 variables of 51 levels, d = 501) and
 the floor reads a batch row's non-zeros and column indices (as many batches as the transition
 reads).
 
@@ -50,7 +51,7 @@ from tallchain.mcmc import ess_bulk, prepare
 from tallchain.models._passes import PARALLEL_MIN_ROWS
 from tallchain.posterior import cache_passes
 
-from bench_sparse import D
+from bench_sparse import LEVELS, N_VARS
 from bench_sparse import floor_of as csr_floor_of
 from bench_tall_data import _read_rows
 
@@ -73,14 +74,29 @@ def make_data(n, d, rng, block=200_000):
     return X, y
 
 
+# One-hot designs for --sparse: d coefficients -> (variables, levels), d - 1 = variables x
+# (levels - 1) one-hot columns (bench_sparse.py's own design is the d = 100 entry: 101
+# coefficients, about 9.1 non-zeros a row).
+ONE_HOT = {10: (3, 4), 100: (N_VARS, LEVELS), 500: (10, 51)}
+
+
 def make_design(n, d, rng, sparse):
     """(X, y): the dense AR(1) design of `make_data`, or with ``sparse`` the one-hot CSR design
-    of bench_sparse.py (d fixed there: D + 1 coefficients)."""
+    of bench_sparse.py with the shape ONE_HOT gives for d (the nearest entry)."""
     if sparse:
         from bench_sparse import make_data as one_hot
 
-        return one_hot(n, rng)
+        n_vars, levels = ONE_HOT[min(ONE_HOT, key=lambda k: abs(k - d))]
+        return one_hot(n, rng, n_vars, levels)
     return make_data(n, d, rng)
+
+
+def coef_count(d, sparse):
+    """The model's coefficients for a --dims entry: d for dense, 1 + the one-hot columns."""
+    if not sparse:
+        return d
+    n_vars, levels = ONE_HOT[min(ONE_HOT, key=lambda k: abs(k - d))]
+    return 1 + n_vars * (levels - 1)
 
 
 def peak_gib():
@@ -191,8 +207,8 @@ def main():
     args = ap.parse_args()
     if args.quick:
         args.sizes, args.dims, args.reference_size = [1e5], [10, 50], 2e4
-    if args.sparse:
-        args.dims = [D + 1]
+    if args.sparse and args.dims == [10, 100, 500] and not args.quick:
+        args.dims = [100]   # bench_sparse.py's design; --dims 10 100 500 asks for all three
     args.reference_size = int(args.reference_size)
     args.draws, args.warmup, args.mala_iters = ((500, 300, 5) if args.quick
                                                 else (args.draws, 500, 5))
@@ -215,15 +231,16 @@ def main():
     prepare(tc.LogisticRegression(Xw, yw), proxy_orders=(2,))
     del Xw, yw
     rows, checks = [], []
-    for d in args.dims:
+    for d in (coef_count(d, args.sparse) for d in args.dims):
         ess_it, step, ok = mala_reference(d, args.reference_size, rng, m_draws, m_warm,
                                           args.sparse)
         checks.append(ok)
         print(f"d={d}: full-data MALA at N = {args.reference_size:,d}: ESS per transition "
               f"{ess_it:.3f}, tuned step {step:.3g}", flush=True)
         for n in (int(s) for s in args.sizes):
-            # a one-hot row holds about 9.1 non-zeros: 12 bytes each (value, column index)
-            gib = n * (9.1 * 12 if args.sparse else (d - 1) * 8) / 2**30
+            # a one-hot row holds n_vars (1 - 1/levels) non-zeros: 12 bytes each (value, index)
+            n_vars, levels = ONE_HOT[min(ONE_HOT, key=lambda k: abs(k - d))]
+            gib = n * (n_vars * (1 - 1 / levels) * 12 if args.sparse else (d - 1) * 8) / 2**30
             if gib > args.max_gib:
                 print(f"N={n:,d} d={d}: skipped, X would take {gib:.1f} GiB > --max-gib "
                       f"{args.max_gib}")
