@@ -55,18 +55,19 @@ class Interrupted(Exception):
 class ChainJob:
     """What every chain of a run shares: the model, the method's codes, the row cache, the
     preconditioner and the tuning settings. When chains run as tasks it travels once per worker.
-``gradient_batch`` is the setting as the set-up resolved it (`SetUp.gradient_batch`).
+    ``gradient_batch`` is the setting as the set-up resolved it (`SetUp.gradient_batch`:
+    "fresh", "carried" or "proxy", never "auto").
 
     The kernel's argument groups of the model, row cache and preconditioner are built from them
     at each `advance` (views, no copies); a job keeps only the objects, so that a model on a
     memory-mapped file still pickles as its path.
     """
 
-    def __init__(self, model, settings, cache, pre, gradient_batch=None):
+    def __init__(self, model, settings, cache, pre, gradient_batch):
         spec = settings.spec
         self.model, self.spec, self.cache, self.pre = model, spec, cache, pre
-        gradient = {"carried": _chain.CARRIED, "proxy": _chain.PROXY}.get(
-            gradient_batch or settings.gradient_batch, spec.gradient)
+        gradient = {"carried": _chain.CARRIED, "proxy": _chain.PROXY}.get(gradient_batch,
+                                                                          spec.gradient)
         self.codes = _chain.MethodCodes(spec.proposal, gradient, spec.ratio, spec.rule,
                                         LOG_RATIO_VARIANCE[settings.log_ratio_variance])
         # Penalty methods aim at the exact-method rate times the share that the noise lets

@@ -98,7 +98,8 @@ def chain_generators(seed, n):
 class SetUp:
     """The full-data work of one run: Laplace approximation (None when the settings need no
     mode), preconditioner, row cache, starting points (chains, n_coef) and first step size;
-    ``gradient_batch`` is the setting resolved ("auto" becomes "proxy" or "fresh"); ``parts`` times the mode and the caches and counts their full-data passes (none when a
+    ``gradient_batch`` is the setting resolved ("auto" becomes "proxy" or "fresh"); ``parts``
+    times the mode and the caches and counts their full-data passes (none when a
     `Preparation` supplied them)."""
 
     laplace: object

@@ -43,12 +43,12 @@ ChainArrays    beta, cur_grad, cur_loglik, adapt, pooled      ``_driver.ChainSta
 An iteration reads: the gradient the proposal drifts along (cached, or `_batch_gradient` on a
 fresh batch), the proposal (`_propose`), the gradient at the proposal and the proposal-density
 term c (`_langevin_log_density` twice; with the proxy's drift, `propose_along_proxy` gives the
-proposal and c in whitened coordinates, reading no rows), the log target ratio on all rows or on a batch with
-its variance and penalty (`_noise`), the accept draw (`_accept`), the move (`_move`), the
-step-size adaptation (`_adapt_step_size`) and the record of the iteration's statistics
-(`_record`). `run_chain` calls the GLM and estimator kernels itself and the steps in between
-are leaves that take arrays (see the note above `_buffers` for why). Work arrays are
-allocated once per call (`_buffers`), never per iteration.
+proposal and c in whitened coordinates, reading no rows), the log target ratio on all rows or
+on a batch with its variance and penalty (`_noise`), the accept draw (`_accept`), the move
+(`_move`), the step-size adaptation (`_adapt_step_size`) and the record of the iteration's
+statistics (`_record`). `run_chain` calls the GLM and estimator kernels itself and the
+steps in between are leaves that take arrays (see the note above `_buffers` for why). Work
+arrays are allocated once per call (`_buffers`), never per iteration.
 """
 
 import math
